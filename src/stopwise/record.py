@@ -1,0 +1,81 @@
+"""Recorder: the one place where per-iterate metrics are computed.
+
+The recorder owns preallocated columns and scratch buffers; recording an iterate writes
+one row in place. It never knows which solver produced the iterate.
+"""
+from __future__ import annotations
+
+import math
+from typing import Callable
+
+import numpy as np
+
+from .problem import Problem
+
+# Columns every trace has, in order (see docs/schema.md).
+BASE_COLUMNS = ("iteration", "passes", "seconds", "train_loss", "train_error", "val_error",
+                "test_error", "w_norm", "residual_norm", "dist_truth")
+
+# Extension point: functions (problem) -> {column: f(w) -> float} for task extras.
+METRIC_SETS: list[Callable[[Problem], dict[str, Callable[[np.ndarray], float]]]] = []
+
+
+class Recorder:
+    def __init__(self, problem: Problem, capacity: int = 256):
+        self.problem = problem
+        self._extras: dict[str, Callable[[np.ndarray], float]] = {}
+        for make in METRIC_SETS:
+            self._extras.update(make(problem) or {})
+        self.columns = BASE_COLUMNS + tuple(self._extras)
+        self._cap = max(int(capacity), 1)
+        self._data = {c: np.empty(self._cap, dtype=np.int64 if c == "iteration" else np.float64)
+                      for c in self.columns}
+        self.size = 0
+        p = problem
+        self._buf = {k: np.empty(getattr(p, "X_" + k).shape[0]) for k in ("train", "val", "test")}
+        self._dbuf = np.empty(p.d)
+
+    def _sq_error(self, split: str, w: np.ndarray) -> float:
+        X = getattr(self.problem, "X_" + split)
+        if X.shape[0] == 0:
+            return math.nan
+        buf = self._buf[split]
+        np.dot(X, w, out=buf)
+        buf -= getattr(self.problem, "y_" + split)
+        return float(buf @ buf)
+
+    def record(self, iteration: int, passes: float, seconds: float, w: np.ndarray) -> float:
+        """Write one row for iterate ``w``; returns the training objective."""
+        if self.size == self._cap:
+            self._grow()
+        p, i, col = self.problem, self.size, self._data
+        sq = self._sq_error("train", w)
+        n = p.n_train
+        col["iteration"][i] = iteration
+        col["passes"][i] = passes
+        col["seconds"][i] = seconds
+        col["train_loss"][i] = sq / (2 * n)
+        col["train_error"][i] = sq / n
+        col["residual_norm"][i] = math.sqrt(sq) if sq >= 0 else math.nan
+        col["val_error"][i] = self._sq_error("val", w) / p.X_val.shape[0] if p.X_val.shape[0] else math.nan
+        col["test_error"][i] = self._sq_error("test", w) / p.X_test.shape[0]
+        col["w_norm"][i] = math.sqrt(float(w @ w))
+        if p.w_true is not None:
+            np.subtract(w, p.w_true, out=self._dbuf)
+            col["dist_truth"][i] = math.sqrt(float(self._dbuf @ self._dbuf))
+        else:
+            col["dist_truth"][i] = math.nan
+        for name, fn in self._extras.items():
+            col[name][i] = fn(w)
+        self.size += 1
+        return sq / (2 * n)
+
+    def _grow(self) -> None:
+        self._cap *= 2
+        for c, a in self._data.items():
+            b = np.empty(self._cap, dtype=a.dtype)
+            b[: self.size] = a[: self.size]
+            self._data[c] = b
+
+    def result(self) -> dict[str, np.ndarray]:
+        return {c: a[: self.size].copy() for c, a in self._data.items()}

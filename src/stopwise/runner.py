@@ -1,0 +1,185 @@
+"""Run one RunSpec: problem -> solver loop -> recorder -> store; skip when already done."""
+from __future__ import annotations
+
+import math
+import platform
+import time
+import traceback
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from . import __version__
+from .data import cached_problem
+from .problem import Problem
+from .record import Recorder
+from .solvers import get_solver
+from .solvers.base import make_params
+from .spec import RunSpec, spec_from_overrides
+from .store import Store
+
+
+@dataclass
+class Trace:
+    columns: dict[str, np.ndarray]
+    status: str
+    message: str = ""
+    problem_info: dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class RunOutcome:
+    run_id: str
+    status: str
+    path: Path | None
+    skipped: bool
+    message: str = ""
+    label: str = ""
+    iterations: int = 0
+    best_val_error: float = math.nan
+    best_val_iteration: int = -1
+    seconds: float = 0.0
+
+
+def _problem_info(p: Problem) -> dict[str, Any]:
+    return {"n_train": p.n_train, "n_val": int(p.X_val.shape[0]), "n_test": int(p.X_test.shape[0]),
+            "d": p.d, "L": p.L, "task": p.task, "noise_kind": p.noise_kind, "noise_level": p.noise_level,
+            "noise_norm": p.noise_norm, "has_truth": p.w_true is not None,
+            "preprocessing": {k: v for k, v in p.preprocessing.items() if k != "standardize"},
+            "standardized": "standardize" in p.preprocessing}
+
+
+def _record_rows(spec: RunSpec) -> int:
+    it = spec.budget["iterations"]
+    return it // spec.record["every"] + 2
+
+
+def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
+    """Run the solver loop for ``spec`` and return the recorded trace (nothing written)."""
+    problem = problem if problem is not None else cached_problem(spec.dataset, spec.split, spec.seed)
+    sdef = get_solver(spec.solver)
+    if problem.task not in sdef.tasks:
+        raise ValueError(f"solver {spec.solver!r} does not handle {problem.task} problems")
+    params = make_params(sdef.params, spec.params, "solver")
+    train = problem.training
+    rng = np.random.default_rng([spec.seed, 0x50_17E5])
+    rec = Recorder(problem, capacity=_record_rows(spec))
+    max_it = spec.budget["iterations"]
+    max_passes = spec.budget["passes"]
+    every = spec.record["every"]
+    factor = spec.budget["diverge_factor"]
+    status, message = "completed", ""
+
+    clock = time.perf_counter
+    t0 = clock()
+    state = sdef.init(train, params, rng)
+    elapsed = clock() - t0
+    loss0 = rec.record(state.iteration, state.passes, elapsed, state.w)
+    limit = factor * max(loss0, np.finfo(float).tiny)
+    while state.iteration < max_it and (max_passes is None or state.passes < max_passes - 1e-12):
+        t0 = clock()
+        state = sdef.step(train, params, state)
+        elapsed += clock() - t0
+        sq = float(state.w @ state.w)
+        if not math.isfinite(sq):
+            status, message = "diverged", f"non-finite iterate at iteration {state.iteration}"
+            break
+        done = state.iteration >= max_it or (max_passes is not None and state.passes >= max_passes - 1e-12)
+        if state.iteration % every == 0 or done:
+            loss = rec.record(state.iteration, state.passes, elapsed, state.w)
+            if not math.isfinite(loss) or loss > limit:
+                status = "diverged"
+                message = (f"training objective grew from {loss0:.3g} to {loss:.3g} (over {factor:g} times) "
+                           f"by iteration {state.iteration}")
+                break
+    return Trace(columns=rec.result(), status=status, message=message, problem_info=_problem_info(problem))
+
+
+def environment() -> dict[str, Any]:
+    import importlib.metadata as md
+
+    versions = {"stopwise": __version__, "python": platform.python_version()}
+    for pkg in ("numpy", "scipy", "scikit-learn", "pandas", "pyarrow", "hydra-core"):
+        try:
+            versions[pkg] = md.version(pkg)
+        except md.PackageNotFoundError:
+            versions[pkg] = None
+    threads: dict[str, Any] = {}
+    try:
+        from threadpoolctl import threadpool_info
+
+        for info in threadpool_info():
+            threads[f"{info.get('user_api')}:{info.get('internal_api')}"] = info.get("num_threads")
+    except Exception:  # threadpoolctl missing or failing must not stop a run
+        pass
+    return {"versions": versions, "threads": threads, "machine": platform.machine()}
+
+
+def run_level_columns(spec: RunSpec, task: str, status: str) -> dict[str, Any]:
+    cols: dict[str, Any] = {"run_id": spec.run_id, "dataset": spec.dataset.get("name"), "task": task,
+                            "solver": spec.solver, "seed": spec.seed, "status": status}
+    for k, v in spec.params.items():
+        cols[k] = v
+    return cols
+
+
+def run_spec(spec: RunSpec, root: str | Path = "results", force: bool = False,
+             store: Store | None = None) -> RunOutcome:
+    """Execute and store one run unless a readable finished trace already exists."""
+    store = store or Store(root)
+    rid = spec.run_id
+    if not force and store.is_done(rid):
+        meta = store.run_meta(rid) or {}
+        s = meta.get("summary", {})
+        return RunOutcome(rid, meta.get("status", "?"), store.run_path(rid), True, meta.get("message", ""),
+                          spec.label(), s.get("iterations", 0), s.get("best_val_error", math.nan),
+                          s.get("best_val_iteration", -1), s.get("seconds", 0.0))
+    try:
+        trace = execute(spec)
+    except Exception as e:  # recorded as a failed run; the sweep goes on
+        tb = traceback.format_exception_only(type(e), e)[-1].strip()
+        trace = Trace(columns={}, status="failed", message=tb)
+    return save(spec, trace, store)
+
+
+def summarize(columns: dict[str, np.ndarray]) -> dict[str, Any]:
+    if not columns or len(columns["iteration"]) == 0:
+        return {"iterations": 0, "passes": 0.0, "seconds": 0.0}
+    val = columns["val_error"]
+    out = {"iterations": int(columns["iteration"][-1]), "passes": float(columns["passes"][-1]),
+           "seconds": float(columns["seconds"][-1]), "rows": int(len(val)),
+           "final_test_error": float(columns["test_error"][-1])}
+    if np.isfinite(val).any():
+        i = int(np.nanargmin(np.where(np.isfinite(val), val, np.nan)))
+        out.update(best_val_error=float(val[i]), best_val_iteration=int(columns["iteration"][i]),
+                   test_at_best_val=float(columns["test_error"][i]))
+    return out
+
+
+def save(spec: RunSpec, trace: Trace, store: Store) -> RunOutcome:
+    summary = summarize(trace.columns)
+    task = trace.problem_info.get("task", "regression")
+    meta = {"run_id": spec.run_id, "digest": spec.digest, "identity": spec.identity(),
+            "config": spec.to_dict(), "status": trace.status, "message": trace.message,
+            "problem": trace.problem_info, "summary": summary, "created": time.time(), **environment()}
+    path = store.write_run(spec.run_id, trace.columns, run_level_columns(spec, task, trace.status), meta)
+    return RunOutcome(spec.run_id, trace.status, path, False, trace.message, spec.label(),
+                      summary.get("iterations", 0), summary.get("best_val_error", math.nan),
+                      summary.get("best_val_iteration", -1), summary.get("seconds", 0.0))
+
+
+def run(overrides: list[str] | None = None, root: str | Path | None = None, force: bool = False) -> RunOutcome:
+    """Compose a config from Hydra overrides, run it, and store its trace.
+
+    >>> out = run(["dataset=wellposed", "solver=cgls", "budget.iterations=5"], root=tmp)  # doctest: +SKIP
+    """
+    from .spec import compose, spec_from_config
+
+    cfg = compose(list(overrides or []))
+    spec = spec_from_config(cfg)
+    return run_spec(spec, root if root is not None else cfg.results_root, force=force)
+
+
+__all__ = ["execute", "run", "run_spec", "save", "Trace", "RunOutcome", "spec_from_overrides"]

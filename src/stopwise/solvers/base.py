@@ -1,0 +1,174 @@
+"""Solver contract, parameter constraints as data, and the solver registry.
+
+A solver is a frozen params dataclass plus two pure functions::
+
+    init(train, params, rng) -> State
+    step(train, params, state) -> State
+
+``step`` never modifies the state it receives: every array in a State is read-only, and
+a step returns a new State. Randomness comes only from ``rng`` and lives in the state.
+"""
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import numpy as np
+
+from ..problem import TrainingSet
+
+
+def frozen(a: np.ndarray) -> np.ndarray:
+    """Mark an array read-only and return it (states are immutable)."""
+    a.flags.writeable = False
+    return a
+
+
+@dataclass(frozen=True)
+class State:
+    """Base iterate record: ``w`` is evaluated, ``passes`` counts data passes."""
+
+    w: np.ndarray
+    iteration: int = 0
+    passes: float = 0.0
+
+
+# ---------------------------------------------------------------- constraints as data
+
+@dataclass(frozen=True)
+class Interval:
+    """Numeric range; ``None`` ends are unbounded."""
+
+    low: float | None = None
+    high: float | None = None
+    low_closed: bool = True
+    high_closed: bool = True
+    integer: bool = False
+
+    def contains(self, v: Any) -> bool:
+        if isinstance(v, bool) or not isinstance(v, (int, float)):
+            return False
+        if self.integer and not float(v).is_integer():
+            return False
+        if not math.isfinite(float(v)):
+            return False
+        if self.low is not None and (v < self.low or (v == self.low and not self.low_closed)):
+            return False
+        if self.high is not None and (v > self.high or (v == self.high and not self.high_closed)):
+            return False
+        return True
+
+    def describe(self) -> str:
+        lo = "-inf" if self.low is None else f"{self.low:g}"
+        hi = "inf" if self.high is None else f"{self.high:g}"
+        left = "[" if self.low_closed and self.low is not None else "("
+        right = "]" if self.high_closed and self.high is not None else ")"
+        kind = "an integer" if self.integer else "a number"
+        return f"{kind} in {left}{lo}, {hi}{right}"
+
+    def outside(self) -> Any:
+        """A value outside the interval (for generated bad-input tests)."""
+        if self.low is not None:
+            return self.low - 1 if self.low_closed else self.low
+        if self.high is not None:
+            return self.high + 1 if self.high_closed else self.high
+        return float("nan")
+
+
+@dataclass(frozen=True)
+class Choice:
+    options: tuple[str, ...]
+
+    def contains(self, v: Any) -> bool:
+        return isinstance(v, str) and v in self.options
+
+    def describe(self) -> str:
+        return "one of " + ", ".join(self.options)
+
+    def outside(self) -> Any:
+        return "no-such-choice"
+
+
+def param(default: Any, constraint: Interval | Choice | None = None, doc: str = "") -> Any:
+    """Declare a params field with its constraint and one-line doc, readable by tests."""
+    return field(default=default, metadata={"constraint": constraint, "doc": doc})
+
+
+class ParamError(ValueError):
+    """A parameter outside its valid range; the message is one line."""
+
+
+def validate_params(params: Any, owner: str) -> None:
+    """Check every field of a params dataclass against its declared constraint."""
+    for f in dataclasses.fields(params):
+        c = f.metadata.get("constraint")
+        v = getattr(params, f.name)
+        if c is None or (v is None and f.default is None):
+            continue
+        if not c.contains(v):
+            raise ParamError(f"{owner}.{f.name}={v!r} is invalid: must be {c.describe()}")
+
+
+def make_params(cls: type, values: dict[str, Any], owner: str):
+    """Build and validate a params dataclass from a plain mapping."""
+    names = {f.name for f in dataclasses.fields(cls)}
+    unknown = sorted(set(values) - names)
+    if unknown:
+        raise ParamError(
+            f"{owner} has no parameter {unknown[0]!r}; valid: {', '.join(sorted(names)) or '(none)'}"
+        )
+    kwargs = {}
+    for f in dataclasses.fields(cls):
+        if f.name in values:
+            v = values[f.name]
+            if f.type in ("float", float) and isinstance(v, int) and not isinstance(v, bool):
+                v = float(v)
+            kwargs[f.name] = v
+    p = cls(**kwargs)
+    validate_params(p, owner)
+    return p
+
+
+# ---------------------------------------------------------------- registry
+
+@dataclass(frozen=True)
+class SolverDef:
+    """A registered solver: its params class, init and step, and how it spends work."""
+
+    name: str
+    params: type
+    init: Callable[[TrainingSet, Any, np.random.Generator], State]
+    step: Callable[[TrainingSet, Any, State], State]
+    summary: str
+    tasks: tuple[str, ...] = ("regression",)
+    stochastic: bool = False
+
+
+SOLVERS: dict[str, SolverDef] = {}
+
+
+def register(defn: SolverDef) -> SolverDef:
+    if defn.name in SOLVERS:
+        raise ValueError(f"solver {defn.name!r} registered twice")
+    SOLVERS[defn.name] = defn
+    return defn
+
+
+class UnknownSolver(ValueError):
+    pass
+
+
+def get_solver(name: str) -> SolverDef:
+    try:
+        return SOLVERS[name]
+    except KeyError:
+        raise UnknownSolver(
+            f"unknown solver {name!r}; valid: {', '.join(sorted(SOLVERS))}"
+        ) from None
+
+
+def step_size(train: TrainingSet, step_scale: float) -> float:
+    """Absolute step ``step_scale / L`` for a training set (0 when L is 0)."""
+    return step_scale / train.L if train.L > 0 else 0.0

@@ -1,0 +1,351 @@
+"""Typed config schemas, validation into a RunSpec, and the run hash.
+
+The schemas are registered in Hydra's ConfigStore under ``schema/`` (never inside a
+group that users sweep with ``glob(*)``). A composed config becomes a :class:`RunSpec`
+through :func:`spec_from_config`, which checks every value against the constraints that
+the solver and source params declare, and raises :class:`SpecError` with one line.
+"""
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import math
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Dict, List, Optional
+
+from .data import DataError, normalize_dataset, split_rows  # noqa: F401
+from .data.split import SPLIT_KINDS
+from .solvers import SOLVERS, get_solver
+from .solvers.base import Interval, ParamError, UnknownSolver, make_params
+
+TRACE_FORMAT = 1
+
+# Keys common to every solver config: a solver without a step size ignores step_scale,
+# and an ignored key never enters the run identity (so a sweep over step scales runs
+# CGLS once).
+COMMON_SOLVER_KEYS = ("step_scale",)
+
+
+class SpecError(ValueError):
+    """Invalid configuration; ``str(e)`` is one line naming the problem and the valid choices."""
+
+
+# ---------------------------------------------------------------- schemas (Hydra ConfigStore)
+
+@dataclass
+class DatasetConfig:
+    name: str = "diabetes"
+    source: str = "sklearn"
+    params: Dict[str, Any] = field(default_factory=dict)
+    features: Optional[List[str]] = None
+    standardize: bool = True
+    center_target: bool = True
+
+
+@dataclass
+class SplitConfig:
+    kind: str = "random"
+    test: float = 0.2
+    val: float = 0.2
+    train_rows: Optional[List[int]] = None
+    val_rows: Optional[List[int]] = None
+    test_rows: Optional[List[int]] = None
+
+
+@dataclass
+class BudgetConfig:
+    iterations: int = 500
+    passes: Optional[float] = None
+    diverge_factor: float = 1e10
+
+
+@dataclass
+class RecordConfig:
+    every: int = 1
+
+
+@dataclass
+class StoppingConfig:
+    rule: str = "budget"
+    halt: bool = False
+    params: Dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass
+class StopwiseConfig:
+    dataset: DatasetConfig = field(default_factory=DatasetConfig)
+    solver: Any = None
+    split: SplitConfig = field(default_factory=SplitConfig)
+    budget: BudgetConfig = field(default_factory=BudgetConfig)
+    record: RecordConfig = field(default_factory=RecordConfig)
+    stopping: StoppingConfig = field(default_factory=StoppingConfig)
+    seed: int = 0
+    results_root: str = "results"
+    campaign_id: Optional[str] = None
+
+
+# numeric constraints of the fixed schemas, as data (read by validation and by tests)
+FIELD_CONSTRAINTS: dict[str, Interval] = {
+    "budget.iterations": Interval(1, None, integer=True),
+    "budget.passes": Interval(0.0, None, low_closed=False),
+    "budget.diverge_factor": Interval(1.0, None, low_closed=False),
+    "record.every": Interval(1, None, integer=True),
+    "split.test": Interval(0.0, None),
+    "split.val": Interval(0.0, None),
+    "seed": Interval(0, 2**32 - 1, integer=True),
+}
+
+
+def solver_schema(name: str) -> type:
+    """The Hydra schema of one solver: ``name``, the common keys, and its params."""
+    d = get_solver(name)
+    fields: list = [("name", str, dataclasses.field(default=name))]
+    own = {f.name for f in dataclasses.fields(d.params)}
+    for key in COMMON_SOLVER_KEYS:
+        if key not in own:
+            fields.append((key, Optional[float], dataclasses.field(default=None)))
+    for f in dataclasses.fields(d.params):
+        fields.append((f.name, f.type if not isinstance(f.type, str) else _TYPES.get(f.type, Any),
+                       dataclasses.field(default=f.default)))
+    return dataclasses.make_dataclass(f"{name}_solver_config", fields)
+
+
+_TYPES = {"float": float, "int": int, "str": str, "bool": bool,
+          "float | None": Optional[float], "int | None": Optional[int], "str | None": Optional[str]}
+
+
+_REGISTERED = False
+
+
+def register_configs() -> None:
+    """Store the schemas in Hydra's ConfigStore (idempotent)."""
+    global _REGISTERED
+    if _REGISTERED:
+        return
+    from hydra.core.config_store import ConfigStore
+
+    cs = ConfigStore.instance()
+    cs.store(name="stopwise_schema", node=StopwiseConfig)
+    cs.store(group="schema/dataset", name="base", node=DatasetConfig, package="dataset")
+    for name in SOLVERS:
+        cs.store(group="schema/solver", name=name, node=solver_schema(name), package="solver")
+    _REGISTERED = True
+
+
+# ---------------------------------------------------------------- RunSpec
+
+@dataclass(frozen=True)
+class RunSpec:
+    """Everything that changes a run's numbers, validated and typed."""
+
+    dataset: dict
+    split: dict
+    solver: str
+    params: dict
+    budget: dict
+    record: dict
+    seed: int
+    stopping: dict  # the halting rule (part of identity only when halt is true)
+
+    def identity(self) -> dict:
+        ident = {
+            "format": TRACE_FORMAT,
+            "dataset": self.dataset,
+            "split": self.split,
+            "solver": {"name": self.solver, "params": self.params},
+            "budget": self.budget,
+            "record": self.record,
+            "seed": self.seed,
+        }
+        if self.stopping.get("halt"):
+            ident["halt"] = {"rule": self.stopping["rule"], "params": self.stopping.get("params", {})}
+        return ident
+
+    @property
+    def digest(self) -> str:
+        return hashlib.sha256(canonical_json(self.identity()).encode()).hexdigest()
+
+    @property
+    def run_id(self) -> str:
+        return self.digest[:16]
+
+    def to_dict(self) -> dict:
+        return dataclasses.asdict(self)
+
+    def label(self) -> str:
+        ps = " ".join(f"{k}={_fmt(v)}" for k, v in sorted(self.params.items()))
+        return f"{self.solver}{(' ' + ps) if ps else ''} seed={self.seed} on {self.dataset.get('name')}"
+
+
+def _fmt(v: Any) -> str:
+    return f"{v:g}" if isinstance(v, float) else str(v)
+
+
+def canonical_json(obj: Any) -> str:
+    """Key-order independent JSON; floats in shortest round-trip form; no NaN."""
+    return json.dumps(_canon(obj), sort_keys=True, separators=(",", ":"), allow_nan=False)
+
+
+def _canon(obj: Any) -> Any:
+    if isinstance(obj, dict):
+        return {str(k): _canon(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_canon(v) for v in obj]
+    if isinstance(obj, float):
+        if not math.isfinite(obj):
+            raise SpecError(f"non-finite number {obj!r} in a run identity")
+        return obj
+    return obj
+
+
+def _plain(cfg: Any) -> Any:
+    try:
+        from omegaconf import DictConfig, ListConfig, OmegaConf
+
+        if isinstance(cfg, (DictConfig, ListConfig)):
+            return OmegaConf.to_container(cfg, resolve=True)
+    except ImportError:  # pragma: no cover
+        pass
+    return cfg
+
+
+def _check(path: str, value: Any, allow_none: bool = False) -> Any:
+    c = FIELD_CONSTRAINTS[path]
+    if value is None and allow_none:
+        return None
+    if not c.contains(value):
+        raise SpecError(f"{path}={value!r} is invalid: must be {c.describe()}")
+    return value
+
+
+def spec_from_config(cfg: Any) -> RunSpec:
+    """Validate a composed config (DictConfig or plain dict) into a RunSpec."""
+    c = _plain(cfg)
+    if not isinstance(c, dict):
+        raise SpecError("config must be a mapping")
+    for key in ("dataset", "solver"):
+        if not isinstance(c.get(key), dict):
+            raise SpecError(f"config has no {key}; choose one with {key}=NAME")
+    try:
+        dataset = normalize_dataset(c["dataset"])
+    except DataError as e:
+        raise SpecError(str(e)) from None
+
+    split = dict(SplitConfig().__dict__, **(c.get("split") or {}))
+    if split["kind"] not in SPLIT_KINDS:
+        raise SpecError(f"split.kind={split['kind']!r} is invalid: must be one of {', '.join(SPLIT_KINDS)}")
+    split["test"] = float(_check("split.test", split["test"]))
+    split["val"] = float(_check("split.val", split["val"]))
+    if split["test"] < 1 and split["val"] < 1 and split["test"] + split["val"] >= 1:
+        raise SpecError(f"split.test + split.val = {split['test'] + split['val']:g} leaves no training rows: "
+                        "fractions must sum to < 1")
+    if split["kind"] != "indices":
+        split["train_rows"] = split["val_rows"] = split["test_rows"] = None
+
+    solver_cfg = dict(c["solver"])
+    name = solver_cfg.pop("name", None)
+    try:
+        sdef = get_solver(name)
+    except UnknownSolver as e:
+        raise SpecError(str(e)) from None
+    own = {f.name for f in dataclasses.fields(sdef.params)}
+    for key in COMMON_SOLVER_KEYS:
+        if key not in own:
+            solver_cfg.pop(key, None)
+    solver_cfg = {k: v for k, v in solver_cfg.items() if not (v is None and k in own and
+                  getattr(sdef.params, k, None) is not None)}
+    try:
+        params = dataclasses.asdict(make_params(sdef.params, solver_cfg, "solver"))
+    except ParamError as e:
+        raise SpecError(str(e)) from None
+
+    budget = dict(BudgetConfig().__dict__, **(c.get("budget") or {}))
+    budget["iterations"] = int(_check("budget.iterations", budget["iterations"]))
+    if budget["passes"] is not None:
+        budget["passes"] = float(_check("budget.passes", budget["passes"]))
+    budget["diverge_factor"] = float(_check("budget.diverge_factor", budget["diverge_factor"]))
+    record = dict(RecordConfig().__dict__, **(c.get("record") or {}))
+    record["every"] = int(_check("record.every", record["every"]))
+    seed = int(_check("seed", c.get("seed", 0)))
+    stopping = dict(StoppingConfig().__dict__, **(c.get("stopping") or {}))
+    return RunSpec(dataset=dataset, split=split, solver=name, params=params, budget=budget,
+                   record=record, seed=seed, stopping=stopping)
+
+
+def spec_from_identity(ident: dict) -> RunSpec:
+    """Rebuild a RunSpec from a stored identity (data only: nothing is imported or called)."""
+    if not isinstance(ident, dict) or ident.get("format") != TRACE_FORMAT:
+        raise SpecError("stored config has an unknown trace format")
+    cfg = {
+        "dataset": ident["dataset"], "split": ident["split"],
+        "solver": dict(ident["solver"]["params"], name=ident["solver"]["name"]),
+        "budget": ident["budget"], "record": ident["record"], "seed": ident["seed"],
+    }
+    if "halt" in ident:
+        cfg["stopping"] = {"rule": ident["halt"]["rule"], "halt": True, "params": ident["halt"]["params"]}
+    return spec_from_config(cfg)
+
+
+# ---------------------------------------------------------------- composing with Hydra
+
+def conf_dir() -> Path:
+    """The Hydra config directory: packaged copy when installed, else the checkout's conf/."""
+    here = Path(__file__).resolve().parent
+    packaged = here / "_conf"
+    if packaged.is_dir():
+        return packaged
+    return here.parent.parent / "conf"
+
+
+def campaigns_dir() -> Path:
+    return conf_dir() / "campaign"
+
+
+def group_options(group: str) -> list[str]:
+    d = conf_dir() / group
+    return sorted(p.stem for p in d.glob("*.yaml")) if d.is_dir() else []
+
+
+def hydra_error_line(e: BaseException) -> str:
+    """Turn a Hydra / OmegaConf composition error into one line."""
+    msg = str(e)
+    m = re.search(r"Could not find '([^']+)/([^'/]+)'", msg)
+    if m:
+        group, option = m.group(1), m.group(2)
+        noun = {"campaign": "campaign"}.get(group, group)
+        return f"unknown {noun} {option!r}; valid: {', '.join(group_options(group))}"
+    m = re.search(r"Could not override '([^']+)'", msg)
+    cause = e.__cause__
+    first = msg.strip().splitlines()[0] if msg.strip() else type(e).__name__
+    if cause is not None and str(cause).strip():
+        c = str(cause).strip().splitlines()[0]
+        if m:
+            return f"cannot set {m.group(1)}: {c}"
+        m = re.search(r"Error merging override (\S+)", first)
+        if m:
+            return f"{m.group(1)} is invalid: {c}"
+        return f"{first} {c}"
+    return first
+
+
+def compose(overrides: list[str], return_hydra_config: bool = False):
+    """Compose the config for a list of Hydra overrides (no files written)."""
+    from hydra import compose as hcompose
+    from hydra import initialize_config_dir
+    from hydra.errors import HydraException
+    from omegaconf.errors import OmegaConfBaseException
+
+    register_configs()
+    try:
+        with initialize_config_dir(config_dir=str(conf_dir()), version_base="1.3"):
+            return hcompose(config_name="config", overrides=list(overrides),
+                            return_hydra_config=return_hydra_config)
+    except (HydraException, OmegaConfBaseException) as e:
+        raise SpecError(hydra_error_line(e)) from None
+
+
+def spec_from_overrides(overrides: list[str]) -> RunSpec:
+    return spec_from_config(compose(overrides))

@@ -1,0 +1,189 @@
+"""Content-addressed results store: one Parquet trace per run, one manifest per campaign.
+
+Layout under a results root::
+
+    runs/<run_id16>.parquet        a run's trace (run-level + per-iterate columns)
+    campaigns/<campaign_id16>.json a campaign manifest (definition, hash, run ids)
+
+Every write goes to a hidden temporary name in the destination folder, is flushed and
+fsynced, then renamed over the final name, so readers never see a partial file.
+Results folders are data: nothing here imports, unpickles or instantiates anything
+named inside them.
+"""
+from __future__ import annotations
+
+import json
+import os
+import re
+import tempfile
+import time
+import warnings
+from pathlib import Path
+from typing import Any, Iterable
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+META_KEY = b"stopwise"
+RUN_LEVEL = ("run_id", "dataset", "task", "solver", "seed", "status")
+STATUSES = ("completed", "diverged", "failed")
+_ID = re.compile(r"^[0-9a-f]{4,64}$")
+
+
+class StoreError(ValueError):
+    pass
+
+
+def _atomic_write(path: Path, write) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            write(fh)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+
+
+def atomic_write_bytes(path: Path, data: bytes) -> None:
+    _atomic_write(Path(path), lambda fh: fh.write(data))
+
+
+class Store:
+    def __init__(self, root: str | os.PathLike = "results"):
+        self.root = Path(root)
+
+    # -------------------------------------------------- paths
+    @property
+    def runs_dir(self) -> Path:
+        return self.root / "runs"
+
+    @property
+    def campaigns_dir(self) -> Path:
+        return self.root / "campaigns"
+
+    def run_path(self, run_id: str) -> Path:
+        if not _ID.match(run_id):
+            raise StoreError(f"{run_id!r} is not a run id (hex digits)")
+        return self.runs_dir / f"{run_id[:16]}.parquet"
+
+    # -------------------------------------------------- runs
+    def write_run(self, run_id: str, columns: dict[str, np.ndarray], run_level: dict[str, Any],
+                  meta: dict[str, Any]) -> Path:
+        """Write a run's trace atomically. ``run_level`` values are repeated on every row."""
+        n = len(next(iter(columns.values()))) if columns else 0
+        arrays, names = [], []
+        for k, v in run_level.items():
+            names.append(k)
+            arrays.append(_constant_column(v, n))
+        for k, v in columns.items():
+            names.append(k)
+            if k == "dist_truth" and n and np.all(np.isnan(v)):
+                arrays.append(pa.nulls(n, pa.float64()))
+            else:
+                arrays.append(pa.array(v))
+        table = pa.Table.from_arrays(arrays, names=names)
+        table = table.replace_schema_metadata({META_KEY: json.dumps(meta, sort_keys=True, default=_json_default).encode()})
+        path = self.run_path(run_id)
+        _atomic_write(path, lambda fh: pq.write_table(table, fh, compression="zstd"))
+        return path
+
+    def read_meta(self, path: Path) -> dict[str, Any]:
+        md = pq.read_schema(path).metadata or {}
+        if META_KEY not in md:
+            raise StoreError(f"{path}: no stopwise metadata")
+        return json.loads(md[META_KEY])
+
+    def run_meta(self, run_id: str) -> dict[str, Any] | None:
+        """Metadata of a stored run, or None when it is missing or unreadable."""
+        path = self.run_path(run_id)
+        if not path.exists():
+            return None
+        try:
+            return self.read_meta(path)
+        except Exception:
+            return None
+
+    def is_done(self, run_id: str) -> bool:
+        """A run is done when its file reads back with a final, non-failed status."""
+        meta = self.run_meta(run_id)
+        return meta is not None and meta.get("status") in ("completed", "diverged")
+
+    def run_files(self, run_ids: Iterable[str] | None = None) -> list[Path]:
+        if run_ids is None:
+            return sorted(self.runs_dir.glob("*.parquet")) if self.runs_dir.is_dir() else []
+        return [p for p in (self.run_path(r) for r in run_ids) if p.exists()]
+
+    def resolve_run(self, prefix: str) -> str:
+        """Full 16-digit file id of the unique run starting with ``prefix``."""
+        if not _ID.match(prefix):
+            raise StoreError(f"{prefix!r} is not a run or campaign id (hex digits)")
+        hits = [p.stem for p in self.run_files() if p.stem.startswith(prefix[:16])]
+        if len(hits) > 1:
+            raise StoreError(f"run id prefix {prefix!r} is ambiguous ({len(hits)} runs)")
+        return hits[0] if hits else ""
+
+    # -------------------------------------------------- campaigns
+    def write_campaign(self, manifest: dict[str, Any]) -> Path:
+        cid = manifest["campaign_id"]
+        path = self.campaigns_dir / f"{cid[:16]}.json"
+        atomic_write_bytes(path, json.dumps(manifest, indent=1, sort_keys=True).encode())
+        return path
+
+    def campaigns(self) -> list[dict[str, Any]]:
+        out = []
+        if not self.campaigns_dir.is_dir():
+            return out
+        for p in sorted(self.campaigns_dir.glob("*.json")):
+            try:
+                out.append(json.loads(p.read_text()))
+            except (OSError, ValueError):
+                warnings.warn(f"skipping unreadable campaign manifest {p}", stacklevel=2)
+        return out
+
+    def find_campaign(self, ref: str) -> dict[str, Any]:
+        """A campaign by id prefix, or the most recent one with that name."""
+        all_ = self.campaigns()
+        by_id = [c for c in all_ if _ID.match(ref or "") and c["campaign_id"].startswith(ref)]
+        if len(by_id) == 1:
+            return by_id[0]
+        if len(by_id) > 1:
+            raise StoreError(f"campaign id prefix {ref!r} is ambiguous")
+        named = [c for c in all_ if c.get("name") == ref]
+        if named:
+            return max(named, key=lambda c: c.get("created", 0))
+        names = sorted({c.get("name", "?") for c in all_})
+        raise StoreError(f"no campaign {ref!r} under {self.root}; known: {', '.join(names) or '(none)'}")
+
+
+def _constant_column(v: Any, n: int) -> pa.Array:
+    if isinstance(v, bool):
+        return pa.array([v] * n, type=pa.bool_())
+    if isinstance(v, int):
+        return pa.array([v] * n, type=pa.int64())
+    if isinstance(v, float):
+        return pa.array([v] * n, type=pa.float64())
+    if v is None:
+        return pa.nulls(n, pa.string())
+    if not isinstance(v, str):
+        v = json.dumps(v, sort_keys=True)
+    return pa.array([v] * n, type=pa.string())
+
+
+def _json_default(o: Any) -> Any:
+    if isinstance(o, np.generic):
+        return o.item()
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    return str(o)
+
+
+def now() -> float:
+    return time.time()
