@@ -26,6 +26,13 @@ def squares_gradient(train: TrainingSet, w: np.ndarray) -> np.ndarray:
     return g
 
 
+def gradient(train: TrainingSet, w: np.ndarray) -> np.ndarray:
+    """Dispatch on the training set's loss (least squares for regression)."""
+    if train.loss == "squares":
+        return squares_gradient(train, w)
+    raise ValueError(f"unknown loss {train.loss!r}")
+
+
 def mse(X: np.ndarray, y: np.ndarray, w: np.ndarray) -> float:
     if X.shape[0] == 0:
         return float("nan")

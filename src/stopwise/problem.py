@@ -26,6 +26,13 @@ class TrainingSet:
     y: np.ndarray
     L: float
     task: str = "regression"
+    loss: str = "squares"
+
+    def gradient(self, w: np.ndarray) -> np.ndarray:
+        """Gradient of the training objective at ``w`` as a new array (one data pass)."""
+        from .losses import gradient
+
+        return gradient(self, w)
 
     @property
     def n(self) -> int:

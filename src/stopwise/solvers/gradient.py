@@ -5,7 +5,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..losses import squares_gradient
 from ..problem import TrainingSet
 from .base import Interval, SolverDef, State, frozen, param, register, step_size
 
@@ -33,7 +32,7 @@ def gd_step(train: TrainingSet, params: GDParams, state: State) -> State:
     >>> s.w.tolist(), s.iteration, s.passes
     ([1.0, 2.0], 1, 1.0)
     """
-    g = squares_gradient(train, state.w)
+    g = train.gradient(state.w)
     g *= -step_size(train, params.step_scale)
     g += state.w
     return State(w=frozen(g), iteration=state.iteration + 1, passes=state.passes + 1.0)
@@ -73,7 +72,7 @@ def nesterov_step(train: TrainingSet, params: NesterovParams, state: MomentumSta
     v = state.w - state.w_prev
     v *= beta
     v += state.w
-    g = squares_gradient(train, v)
+    g = train.gradient(v)
     g *= -step_size(train, params.step_scale)
     g += v
     return MomentumState(w=frozen(g), iteration=t + 1, passes=state.passes + 1.0, w_prev=state.w)
@@ -101,7 +100,7 @@ def heavy_ball_step(train: TrainingSet, params: HeavyBallParams, state: Momentum
 
         w_{t+1} = w_t - (s / L) grad f(w_t) + beta (w_t - w_{t-1})
     """
-    g = squares_gradient(train, state.w)
+    g = train.gradient(state.w)
     g *= -step_size(train, params.step_scale)
     g += state.w
     if params.momentum:
