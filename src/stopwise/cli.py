@@ -140,6 +140,13 @@ def main(argv: list[str] | None = None) -> int:
     cmd, rest = argv[0], argv[1:]
     if cmd not in COMMANDS:
         return _fail(f"unknown command {cmd!r}; valid: {', '.join(COMMANDS)}")
+    if cmd in ("sweep", "run", "rerun"):
+        from .threads import ThreadsError, requested
+
+        try:
+            requested()
+        except ThreadsError as e:
+            return _fail(str(e))
     return COMMANDS[cmd](rest)
 
 

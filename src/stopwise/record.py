@@ -2,6 +2,12 @@
 
 The recorder owns preallocated columns and scratch buffers; recording an iterate writes
 one row in place. It never knows which solver produced the iterate.
+
+Squared errors ``||X_s w - y_s||^2`` of the train / validation / test splits come either
+from the rows directly or, for splits with more rows than features, from sufficient
+statistics computed once per problem (``w^T G_s w - 2 c_s^T w + y_s^T y_s``, one stacked
+product for all such splits), with a fall back to the rows where cancellation would
+lose digits; see :mod:`stopwise.fastpath`.
 """
 from __future__ import annotations
 
@@ -10,6 +16,7 @@ from typing import Callable
 
 import numpy as np
 
+from . import fastpath
 from .problem import Problem
 
 # Columns every trace has, in order (see docs/schema.md).
@@ -21,7 +28,10 @@ METRIC_SETS: list[Callable[[Problem], dict[str, Callable[[np.ndarray], float]]]]
 
 
 class Recorder:
-    def __init__(self, problem: Problem, capacity: int = 256):
+    def __init__(self, problem: Problem, capacity: int = 256,
+                 statistics: "fastpath.SplitStatistics | None | str" = "auto"):
+        """``statistics``: the split statistics to use, None for direct evaluation only, or
+        an evaluation path name (``auto``, ``gram``, ``direct``, ``blocked``)."""
         self.problem = problem
         self._extras: dict[str, Callable[[np.ndarray], float]] = {}
         for make in METRIC_SETS:
@@ -34,6 +44,22 @@ class Recorder:
         p = problem
         self._buf = {k: np.empty(getattr(p, "X_" + k).shape[0]) for k in ("train", "val", "test")}
         self._dbuf = np.empty(p.d)
+        if isinstance(statistics, str):
+            statistics = fastpath.split_statistics(p, statistics)
+        self.statistics = statistics
+        self._sq = np.full(3, math.nan)
+        splits = fastpath.SPLITS
+        used = statistics.splits if statistics is not None else ()
+        self._stat_idx = tuple(splits.index(s) for s in used)
+        self._direct_idx = tuple(i for i, s in enumerate(splits)
+                                 if s not in used and getattr(p, "X_" + s).shape[0] > 0)
+        k = len(used)
+        if k:
+            self._u = np.empty(k * p.d)
+            self._uk = self._u.reshape(k, p.d)
+            self._q, self._l, self._v, self._s = (np.empty(k) for _ in range(4))
+            self._ok = np.empty(k, dtype=bool)
+        self.fallbacks = 0  # statistics results recomputed from the rows (cancellation guard)
 
     def _sq_error(self, split: str, w: np.ndarray) -> float:
         X = getattr(self.problem, "X_" + split)
@@ -44,21 +70,47 @@ class Recorder:
         buf -= getattr(self.problem, "y_" + split)
         return float(buf @ buf)
 
+    def squared_errors(self, w: np.ndarray) -> np.ndarray:
+        """``||X_s w - y_s||^2`` for train, val, test (NaN for an empty split), in a
+        scratch array that the next call overwrites."""
+        sq = self._sq
+        st = self.statistics
+        if self._stat_idx:
+            np.dot(st.H, w, out=self._u)
+            np.dot(self._uk, w, out=self._q)
+            np.dot(st.C, w, out=self._l)
+            v, s = self._v, self._s
+            np.multiply(self._l, -2.0, out=v)
+            v += self._q
+            v += st.yy
+            np.add(self._q, st.yy, out=s)
+            s *= fastpath.GUARD
+            np.greater_equal(v, s, out=self._ok)
+            for j, i in enumerate(self._stat_idx):
+                if self._ok[j]:
+                    sq[i] = v[j]
+                else:
+                    self.fallbacks += 1
+                    sq[i] = self._sq_error(fastpath.SPLITS[i], w)
+        for i in self._direct_idx:
+            sq[i] = self._sq_error(fastpath.SPLITS[i], w)
+        return sq
+
     def record(self, iteration: int, passes: float, seconds: float, w: np.ndarray) -> float:
         """Write one row for iterate ``w``; returns the training objective."""
         if self.size == self._cap:
             self._grow()
         p, i, col = self.problem, self.size, self._data
-        sq = self._sq_error("train", w)
+        sq_tr, sq_va, sq_te = self.squared_errors(w).tolist()
         n = p.n_train
         col["iteration"][i] = iteration
         col["passes"][i] = passes
         col["seconds"][i] = seconds
-        col["train_loss"][i] = sq / (2 * n)
-        col["train_error"][i] = sq / n
-        col["residual_norm"][i] = math.sqrt(sq) if sq >= 0 else math.nan
-        col["val_error"][i] = self._sq_error("val", w) / p.X_val.shape[0] if p.X_val.shape[0] else math.nan
-        col["test_error"][i] = self._sq_error("test", w) / p.X_test.shape[0]
+        col["train_loss"][i] = sq_tr / (2 * n)
+        col["train_error"][i] = sq_tr / n
+        col["residual_norm"][i] = math.sqrt(sq_tr) if sq_tr >= 0 else math.nan
+        col["val_error"][i] = sq_va / p.X_val.shape[0] if p.X_val.shape[0] else math.nan
+        col["test_error"][i] = sq_te / p.X_test.shape[0]
         col["w_norm"][i] = math.sqrt(float(w @ w))
         if p.w_true is not None:
             np.subtract(w, p.w_true, out=self._dbuf)
@@ -68,7 +120,7 @@ class Recorder:
         for name, fn in self._extras.items():
             col[name][i] = fn(w)
         self.size += 1
-        return sq / (2 * n)
+        return sq_tr / (2 * n)
 
     def _grow(self) -> None:
         self._cap *= 2

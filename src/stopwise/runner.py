@@ -11,7 +11,7 @@ from typing import Any
 
 import numpy as np
 
-from . import __version__
+from . import __version__, fastpath, threads
 from .data import cached_problem
 from .problem import Problem
 from .record import Recorder
@@ -51,53 +51,107 @@ def _problem_info(p: Problem) -> dict[str, Any]:
             "standardized": "standardize" in p.preprocessing}
 
 
+PASS_EPS = 1e-12  # tolerance on pass counts (budget and record schedule)
+
+
 def _record_rows(spec: RunSpec) -> int:
     it = spec.budget["iterations"]
+    per_pass = spec.record.get("per_pass")
+    if per_pass is not None:
+        passes = spec.budget.get("passes")
+        return int(min(it, per_pass * passes)) + 2 if passes is not None else 256
     return it // spec.record["every"] + 2
 
 
-def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
-    """Run the solver loop for ``spec`` and return the recorded trace (nothing written)."""
+def run_rng(spec: RunSpec) -> np.random.Generator:
+    """The generator a run's solver receives at ``init``: seeded by the run's seed only,
+    so stochastic solvers draw the same numbers whatever their step size."""
+    return np.random.default_rng([spec.seed, 0x50_17E5])
+
+
+def pass_mark(passes: float, per_pass: float) -> int:
+    """Index of the last point of the grid ``k / per_pass`` at or below ``passes``."""
+    return int(math.floor(passes * per_pass + 1e-9))
+
+
+def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto") -> Trace:
+    """Run the solver loop for ``spec`` and return the recorded trace (nothing written).
+
+    ``path`` chooses how least-squares gradients and recorded errors are evaluated
+    (:mod:`stopwise.fastpath`): ``auto`` (the default, a function of the shapes only),
+    or ``direct`` / ``blocked`` / ``gram`` to force one, for checks and benchmarks.
+
+    Recording: the initial iterate, then every ``record.every``-th iterate, or, when
+    ``record.per_pass`` is set, the first iterate at or past each point of the grid
+    ``k / per_pass`` data passes; the last iterate is always recorded.
+    """
+    threads.configure()
     problem = problem if problem is not None else cached_problem(spec.dataset, spec.split, spec.seed)
     sdef = get_solver(spec.solver)
     if problem.task not in sdef.tasks:
         raise ValueError(f"solver {spec.solver!r} does not handle {problem.task} problems")
     params = make_params(sdef.params, spec.params, "solver")
-    train = problem.training
-    rng = np.random.default_rng([spec.seed, 0x50_17E5])
-    rec = Recorder(problem, capacity=_record_rows(spec))
+    clock = time.perf_counter
+    t_prep = clock()
+    train, stats = fastpath.prepare(problem, path)
+    t_prep = clock() - t_prep
+    rng = run_rng(spec)
+    rec = Recorder(problem, capacity=_record_rows(spec), statistics=stats)
     max_it = spec.budget["iterations"]
     max_passes = spec.budget["passes"]
     every = spec.record["every"]
+    per_pass = spec.record.get("per_pass")
     factor = spec.budget["diverge_factor"]
     status, message = "completed", ""
 
-    clock = time.perf_counter
     t0 = clock()
-    state = sdef.init(train, params, rng)
+    state = sdef.start(train, params, rng, spec.budget)
     elapsed = clock() - t0
     loss0 = rec.record(state.iteration, state.passes, elapsed, state.w)
     limit = factor * max(loss0, np.finfo(float).tiny)
-    while state.iteration < max_it and (max_passes is None or state.passes < max_passes - 1e-12):
+    mark = pass_mark(state.passes, per_pass) if per_pass is not None else 0
+    step = sdef.step
+    while state.iteration < max_it and (max_passes is None or state.passes < max_passes - PASS_EPS):
         t0 = clock()
-        state = sdef.step(train, params, state)
+        state = step(train, params, state)
         elapsed += clock() - t0
         sq = float(state.w @ state.w)
         if not math.isfinite(sq):
             status, message = "diverged", f"non-finite iterate at iteration {state.iteration}"
             break
-        done = state.iteration >= max_it or (max_passes is not None and state.passes >= max_passes - 1e-12)
-        if state.iteration % every == 0 or done:
+        done = state.iteration >= max_it or (max_passes is not None and state.passes >= max_passes - PASS_EPS)
+        if per_pass is None:
+            due = state.iteration % every == 0
+        else:
+            k = pass_mark(state.passes, per_pass)
+            due = k > mark
+            if due:
+                mark = k
+        if due or done:
             loss = rec.record(state.iteration, state.passes, elapsed, state.w)
             if not math.isfinite(loss) or loss > limit:
                 status = "diverged"
                 message = (f"training objective grew from {loss0:.3g} to {loss:.3g} (over {factor:g} times) "
                            f"by iteration {state.iteration}")
                 break
-    return Trace(columns=rec.result(), status=status, message=message, problem_info=_problem_info(problem))
+    info = _problem_info(problem)
+    info["evaluation"] = dict(fastpath.describe(train, stats), prepare_seconds=t_prep, fallbacks=rec.fallbacks)
+    return Trace(columns=rec.result(), status=status, message=message, problem_info=info)
+
+
+_ENVIRONMENT: dict[str, Any] = {}
 
 
 def environment() -> dict[str, Any]:
+    """Package versions, BLAS/OpenMP thread counts and machine, computed once per process
+    (after the thread count is set, see :mod:`stopwise.threads`)."""
+    threads.configure()
+    if not _ENVIRONMENT:
+        _ENVIRONMENT.update(_environment())
+    return {k: (dict(v) if isinstance(v, dict) else v) for k, v in _ENVIRONMENT.items()}
+
+
+def _environment() -> dict[str, Any]:
     import importlib.metadata as md
 
     versions = {"stopwise": __version__, "python": platform.python_version()}
@@ -106,15 +160,15 @@ def environment() -> dict[str, Any]:
             versions[pkg] = md.version(pkg)
         except md.PackageNotFoundError:
             versions[pkg] = None
-    threads: dict[str, Any] = {}
+    threads_: dict[str, Any] = {}
     try:
         from threadpoolctl import threadpool_info
 
         for info in threadpool_info():
-            threads[f"{info.get('user_api')}:{info.get('internal_api')}"] = info.get("num_threads")
+            threads_[f"{info.get('user_api')}:{info.get('internal_api')}"] = info.get("num_threads")
     except Exception:  # threadpoolctl missing or failing must not stop a run
         pass
-    return {"versions": versions, "threads": threads, "machine": platform.machine()}
+    return {"versions": versions, "threads": threads_, "machine": platform.machine()}
 
 
 def run_level_columns(spec: RunSpec, task: str, status: str) -> dict[str, Any]:
@@ -128,6 +182,7 @@ def run_level_columns(spec: RunSpec, task: str, status: str) -> dict[str, Any]:
 def run_spec(spec: RunSpec, root: str | Path = "results", force: bool = False,
              store: Store | None = None) -> RunOutcome:
     """Execute and store one run unless a readable finished trace already exists."""
+    threads.configure()  # an invalid STOPWISE_BLAS_THREADS stops here, before anything is written
     store = store or Store(root)
     rid = spec.run_id
     if not force and store.is_done(rid):

@@ -65,6 +65,7 @@ class BudgetConfig:
 @dataclass
 class RecordConfig:
     every: int = 1
+    per_pass: Optional[float] = None  # rows per data pass; replaces `every` when set
 
 
 @dataclass
@@ -93,6 +94,7 @@ FIELD_CONSTRAINTS: dict[str, Interval] = {
     "budget.passes": Interval(0.0, None, low_closed=False),
     "budget.diverge_factor": Interval(1.0, None, low_closed=False),
     "record.every": Interval(1, None, integer=True),
+    "record.per_pass": Interval(0.0, None, low_closed=False),
     "split.test": Interval(0.0, None),
     "split.val": Interval(0.0, None),
     "seed": Interval(0, 2**32 - 1, integer=True),
@@ -268,7 +270,17 @@ def spec_from_config(cfg: Any) -> RunSpec:
         budget["passes"] = float(_check("budget.passes", budget["passes"]))
     budget["diverge_factor"] = float(_check("budget.diverge_factor", budget["diverge_factor"]))
     record = dict(RecordConfig().__dict__, **(c.get("record") or {}))
+    unknown = sorted(set(record) - set(RecordConfig().__dict__))
+    if unknown:
+        raise SpecError(f"record has no key {unknown[0]!r}; valid: {', '.join(RecordConfig().__dict__)}")
     record["every"] = int(_check("record.every", record["every"]))
+    if record["per_pass"] is None:
+        del record["per_pass"]  # absent from the identity, so runs without it keep their ids
+    else:
+        record["per_pass"] = float(_check("record.per_pass", record["per_pass"]))
+        if record["every"] != 1:
+            raise SpecError(f"record.every={record['every']} and record.per_pass={record['per_pass']:g} "
+                            "are exclusive: set one of them")
     seed = int(_check("seed", c.get("seed", 0)))
     stopping = dict(StoppingConfig().__dict__, **(c.get("stopping") or {}))
     return RunSpec(dataset=dataset, split=split, solver=name, params=params, budget=budget,

@@ -144,6 +144,17 @@ class SolverDef:
     summary: str
     tasks: tuple[str, ...] = ("regression",)
     stochastic: bool = False
+    # optional init that also receives the run's budget (a dict with ``iterations`` and
+    # ``passes``), for solvers whose iterate depends on the horizon (tail averaging);
+    # the runner calls it instead of ``init`` when present
+    init_budget: Callable[[TrainingSet, Any, np.random.Generator, dict], State] | None = None
+
+    def start(self, train: TrainingSet, params: Any, rng: np.random.Generator,
+              budget: dict | None = None) -> State:
+        """The initial state: ``init_budget`` when the solver has one, else ``init``."""
+        if self.init_budget is not None:
+            return self.init_budget(train, params, rng, dict(budget or {}))
+        return self.init(train, params, rng)
 
 
 SOLVERS: dict[str, SolverDef] = {}

@@ -1,0 +1,269 @@
+"""Evaluation paths for least squares: direct, blocked rows, and sufficient statistics.
+
+Everything here computes exactly the quantities of the direct formulas, in a different
+order of floating-point operations. For ``f(w) = ||X w - y||^2 / (2 n)``:
+
+========  =========================================================  ==================
+path      gradient ``g = X^T (X w - y) / n``                          cost per call
+========  =========================================================  ==================
+direct    ``r = X w - y``, then ``X^T r``                             two reads of X
+blocked   ``sum_B X_B^T (X_B w - y_B)`` over cache-sized row blocks   one read of X
+gram      ``(G w - c) / n`` with ``G = X^T X``, ``c = X^T y``         O(d^2), X unread
+========  =========================================================  ==================
+
+and for a recorded squared error on a split ``(X_s, y_s)``:
+
+========  =========================================================
+direct    ``||X_s w - y_s||^2``
+stats     ``w^T G_s w - 2 c_s^T w + y_s^T y_s`` (O(d^2) per iterate)
+========  =========================================================
+
+The statistics formula subtracts numbers of size ``w^T G_s w + y_s^T y_s`` (the *scale*);
+when the result is below ``GUARD`` times the scale it would have lost more than
+``-log10(GUARD)`` digits to cancellation, and that split is evaluated directly instead
+(errors near zero, interpolation). The gradient needs no guard: the absolute rounding
+error of ``G w - c`` is of the same order as that of ``X^T (X w - y)``.
+
+Which path a run takes is a deterministic function of the array shapes (``choose_gradient_path``
+and ``statistics_splits``), so a rerun of a run, on any machine, takes the same path.
+
+Caching: the training Gram matrix lives on the Problem's :class:`~stopwise.problem.TrainingSet`
+(the solver may see it, it is made of training rows only); validation and test statistics
+live on the :class:`~stopwise.problem.Problem` (only the recorder reads them). Both are
+computed once per problem per process, on first use, and shared by every run on that
+problem. Plans are read-only after construction and allocate their scratch per call, so
+concurrent runs in threads may share them.
+"""
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from .problem import Problem, TrainingSet
+
+PATHS = ("auto", "direct", "blocked", "gram")
+SPLITS = ("train", "val", "test")
+
+GRAM_MAX_BYTES = 256 * 2**20     # no Gram matrix (of all splits together) above this size
+BLOCKED_MIN_BYTES = 4 * 2**20    # below this X stays in cache and the direct path is as fast
+BLOCK_BYTES = 512 * 2**10        # one row block fits comfortably in a core's L2 cache
+GUARD = 1e-4                     # statistics results below GUARD * scale are recomputed directly
+
+_PLAN = "_gradient_plan"
+_STATS = "_split_statistics"
+
+
+class PathError(ValueError):
+    """Unknown evaluation path; the message is one line."""
+
+
+def _check_path(path: str) -> str:
+    if path not in PATHS:
+        raise PathError(f"evaluation path {path!r} is invalid: must be one of {', '.join(PATHS)}")
+    return path
+
+
+def _frozen(a: np.ndarray) -> np.ndarray:
+    a.flags.writeable = False
+    return a
+
+
+# ---------------------------------------------------------------- gradient plans
+
+def choose_gradient_path(n: int, d: int, nbytes: int) -> str:
+    """The path ``auto`` picks: Gram when ``n > d`` and it fits, blocked for large X, else direct."""
+    if n > d and d * d * 8 <= GRAM_MAX_BYTES:
+        return "gram"
+    if nbytes > BLOCKED_MIN_BYTES:
+        return "blocked"
+    return "direct"
+
+
+class GramGradient:
+    """``g = (G w - c) / n`` with ``G = X^T X`` and ``c = X^T y`` computed once."""
+
+    path = "gram"
+
+    def __init__(self, X: np.ndarray, y: np.ndarray, G: np.ndarray | None = None,
+                 c: np.ndarray | None = None):
+        self.n = X.shape[0]
+        self.G = G if G is not None else _frozen(X.T @ X)
+        self.c = c if c is not None else _frozen(X.T @ y)
+
+    def __call__(self, w: np.ndarray) -> np.ndarray:
+        g = self.G @ w
+        g -= self.c
+        g /= self.n
+        return g
+
+
+class BlockedGradient:
+    """``g = sum_B X_B^T (X_B w - y_B) / n`` over contiguous row blocks of ``block_rows`` rows.
+
+    Each block is read from memory once by the first product and found in cache by the
+    second, so one gradient reads X once (the direct path reads it twice).
+    """
+
+    path = "blocked"
+
+    def __init__(self, X: np.ndarray, y: np.ndarray, block_rows: int | None = None):
+        n, d = X.shape
+        if block_rows is None:
+            block_rows = max(1, BLOCK_BYTES // max(8 * d, 1))
+        self.block_rows = int(max(1, min(block_rows, max(n, 1))))
+        self.n, self.d = n, d
+        B = self.block_rows
+        self.blocks = tuple((X[s:s + B], X[s:s + B].T, y[s:s + B]) for s in range(0, n, B))
+
+    def __call__(self, w: np.ndarray) -> np.ndarray:
+        g = np.zeros(self.d)
+        r = np.empty(self.block_rows)
+        gb = np.empty(self.d)
+        for Xb, XbT, yb in self.blocks:
+            rb = r[: Xb.shape[0]]
+            np.einsum("ij,j->i", Xb, w, out=rb)
+            rb -= yb
+            np.dot(XbT, rb, out=gb)
+            g += gb
+        g /= self.n
+        return g
+
+
+def gradient_plan(train: TrainingSet) -> Callable[[np.ndarray], np.ndarray] | None:
+    """The plan attached to a training set, or None (then the direct formula is used)."""
+    return train.__dict__.get(_PLAN)
+
+
+def attach_plan(train: TrainingSet, plan: Callable[[np.ndarray], np.ndarray] | None) -> TrainingSet:
+    """Attach a gradient plan to a (frozen) training set and return it."""
+    object.__setattr__(train, _PLAN, plan)
+    return train
+
+
+def _make_plan(train: TrainingSet, path: str, gram: tuple | None = None):
+    if path == "gram":
+        return GramGradient(train.X, train.y, *(gram[:2] if gram is not None else ()))
+    if path == "blocked":
+        return BlockedGradient(train.X, train.y)
+    return None
+
+
+def _squares(train: TrainingSet) -> bool:
+    return getattr(train, "loss", "squares") == "squares"
+
+
+def training_for(problem: Problem, path: str = "auto") -> TrainingSet:
+    """The training set a solver receives under an evaluation path.
+
+    ``auto`` returns the problem's own cached training set with the chosen plan attached
+    once (shared by every run on the problem); an explicit path returns a fresh copy with
+    that plan (``direct``: none), leaving the cached one untouched.
+    """
+    _check_path(path)
+    train = problem.training
+    if path == "auto":
+        if _PLAN not in train.__dict__:
+            chosen = (choose_gradient_path(train.n, train.d, train.X.nbytes) if _squares(train) and train.n
+                      else "direct")
+            gram = _gram(problem, "train") if chosen == "gram" else None
+            attach_plan(train, _make_plan(train, chosen, gram))
+        return train
+    fresh = dataclasses.replace(train)
+    if path != "direct" and _squares(fresh) and fresh.n:
+        attach_plan(fresh, _make_plan(fresh, path, _gram(problem, "train") if path == "gram" else None))
+    return fresh
+
+
+def path_name(train: TrainingSet) -> str:
+    plan = gradient_plan(train)
+    return getattr(plan, "path", "direct") if plan is not None else "direct"
+
+
+# ---------------------------------------------------------------- split statistics (recorder)
+
+def _gram_cache(problem: Problem) -> dict:
+    cache = problem.__dict__.get("_grams")
+    if cache is None:
+        cache = {}
+        object.__setattr__(problem, "_grams", cache)
+    return cache
+
+
+def _gram(problem: Problem, split: str) -> tuple[np.ndarray, np.ndarray, float]:
+    """(X_s^T X_s, X_s^T y_s, y_s^T y_s), computed once per problem."""
+    cache = _gram_cache(problem)
+    hit = cache.get(split)
+    if hit is None:
+        X, y = getattr(problem, "X_" + split), getattr(problem, "y_" + split)
+        hit = (_frozen(X.T @ X), _frozen(X.T @ y), float(y @ y))
+        cache[split] = hit
+    return hit
+
+
+def statistics_splits(problem: Problem, path: str = "auto") -> tuple[str, ...]:
+    """Splits whose recorded error uses sufficient statistics under ``path``.
+
+    ``auto``: every non-empty split with more rows than features, while all their Gram
+    matrices together fit in ``GRAM_MAX_BYTES``; ``gram``: every non-empty split;
+    ``direct`` and ``blocked``: none.
+    """
+    _check_path(path)
+    if path in ("direct", "blocked") or problem.task != "regression":
+        return ()
+    d = problem.d
+    rows = {s: getattr(problem, "X_" + s).shape[0] for s in SPLITS}
+    if path == "gram":
+        return tuple(s for s in SPLITS if rows[s] > 0)
+    chosen = tuple(s for s in SPLITS if rows[s] > d)
+    if len(chosen) * d * d * 8 > GRAM_MAX_BYTES:
+        return ()
+    return chosen
+
+
+@dataclass(frozen=True)
+class SplitStatistics:
+    """Stacked sufficient statistics of the splits in ``splits`` (read-only arrays).
+
+    ``H`` is ``[G_s1; G_s2; ...]`` (k d x d), ``C`` has rows ``c_s`` (k x d) and ``yy``
+    the values ``y_s^T y_s`` (k), so one product ``H w`` serves every split.
+    """
+
+    splits: tuple[str, ...]
+    H: np.ndarray
+    C: np.ndarray
+    yy: np.ndarray
+
+
+def split_statistics(problem: Problem, path: str = "auto") -> SplitStatistics | None:
+    splits = statistics_splits(problem, path)
+    if not splits:
+        return None
+    key = "_stats_" + ",".join(splits)
+    cached = problem.__dict__.get(key)
+    if cached is not None:
+        return cached
+    parts = [_gram(problem, s) for s in splits]
+    st = SplitStatistics(splits=splits, H=_frozen(np.concatenate([p[0] for p in parts], axis=0)),
+                         C=_frozen(np.stack([p[1] for p in parts])),
+                         yy=_frozen(np.array([p[2] for p in parts], dtype=np.float64)))
+    object.__setattr__(problem, key, st)
+    return st
+
+
+def prepare(problem: Problem, path: str = "auto") -> tuple[TrainingSet, SplitStatistics | None]:
+    """Everything a run on ``problem`` evaluates with: the solver's training set and the
+    recorder's statistics (both computed once per problem for ``auto``)."""
+    return training_for(problem, path), split_statistics(problem, path)
+
+
+def describe(train: TrainingSet, stats: SplitStatistics | None) -> dict:
+    return {"gradient": path_name(train), "statistics": list(stats.splits) if stats is not None else [],
+            "guard": GUARD}
+
+
+__all__ = ["PATHS", "GUARD", "BlockedGradient", "GramGradient", "SplitStatistics", "attach_plan",
+           "choose_gradient_path", "gradient_plan", "prepare", "split_statistics", "statistics_splits",
+           "training_for"]

@@ -1,0 +1,165 @@
+"""Fast evaluation paths give the direct path's numbers (numpy's plain X^T (X w - y) and
+||X w - y||^2 are the references), the cancellation guard keeps digits, and the paths
+keep reruns bit for bit and gradient descent on its spectral-filter closed form."""
+import numpy as np
+import pytest
+
+import stopwise
+from stopwise import fastpath
+from stopwise.cli import main as cli_main
+from stopwise.data import build_problem
+from stopwise.problem import TrainingSet
+from stopwise.record import Recorder
+from stopwise.rerun import rerun_one
+from stopwise.runner import execute
+from stopwise.spec import spec_from_overrides
+from stopwise.store import Store
+
+
+def _problem(*overrides):
+    spec = spec_from_overrides(list(overrides))
+    return build_problem(spec.dataset, spec.split, spec.seed)
+
+
+def _direct_gradient(X, y, w):
+    return X.T @ (X @ w - y) / X.shape[0]
+
+
+@pytest.mark.parametrize("name", ["diabetes", "wellposed", "illposed", "overparam"])
+def test_gram_and_blocked_gradients_equal_the_direct_formula(name):
+    p = _problem(f"dataset={name}")
+    X, y = p.X_train, p.y_train
+    rng = np.random.default_rng(0)
+    plans = [fastpath.GramGradient(X, y)] + [fastpath.BlockedGradient(X, y, block_rows=b) for b in (1, 7, 64, 10**6)]
+    for _ in range(5):
+        w = rng.standard_normal(p.d) * rng.uniform(0.1, 10)
+        ref = _direct_gradient(X, y, w)
+        # rounding scale of either formula: ||X|| (||X|| ||w|| + ||y||) / n
+        s = np.linalg.norm(X, 2)
+        scale = s * (s * np.linalg.norm(w) + np.linalg.norm(y)) / p.n_train
+        for plan in plans:
+            np.testing.assert_allclose(plan(w), ref, rtol=0, atol=1e-13 * scale)
+    blocked = plans[2]
+    assert sum(b[0].shape[0] for b in blocked.blocks) == p.n_train  # every row in exactly one block
+
+
+@pytest.mark.parametrize("solver", ["gd", "nesterov", "heavy_ball", "sgd"])
+@pytest.mark.parametrize("name", ["diabetes", "wellposed", "illposed", "overparam"])
+def test_whole_runs_agree_across_paths(solver, name):
+    """Every recorded column of a run (errors, norms, distance to the truth) under the
+    Gram and blocked paths and the automatic choice agrees with the direct path: relative
+    1e-9, or, for residuals that have shrunk to rounding level (interpolation), within
+    1e-11 ||y|| in residual norm, the size of the rounding error of X w - y itself."""
+    spec = spec_from_overrides([f"dataset={name}", f"solver={solver}", "budget.iterations=150",
+                                "solver.step_scale=0.9"])
+    prob = _problem(f"dataset={name}")
+    ref = execute(spec, prob, path="direct").columns
+    for path in ("gram", "blocked", "auto"):
+        got = execute(spec, prob, path=path).columns
+        assert got.keys() == ref.keys()
+        np.testing.assert_array_equal(got["iteration"], ref["iteration"])
+        for col in ("w_norm", "dist_truth"):
+            np.testing.assert_allclose(got[col], ref[col], rtol=1e-9, atol=1e-12, err_msg=f"{path} {col}")
+        for split in ("train", "val", "test"):
+            m, ynorm = getattr(prob, "y_" + split).size, np.linalg.norm(getattr(prob, "y_" + split))
+            np.testing.assert_allclose(np.sqrt(got[f"{split}_error"] * m), np.sqrt(ref[f"{split}_error"] * m),
+                                       rtol=1e-9, atol=1e-11 * ynorm, err_msg=f"{path} {split}")
+        np.testing.assert_allclose(got["train_loss"], got["train_error"] / 2)
+        np.testing.assert_allclose(got["residual_norm"], np.sqrt(got["train_error"] * prob.n_train), rtol=1e-15)
+
+
+def test_recorded_errors_of_gd_match_the_spectral_filter_closed_form():
+    """Gradient descent from 0 on least squares: w_t = V diag((1 - (1 - eta s^2/n)^t) / s) U^T y
+    (filter factors of the Landweber iteration, Hansen). Every recorded train / val / test
+    error under the automatic (Gram) path matches the closed form."""
+    spec = spec_from_overrides(["dataset=diabetes", "solver=gd", "budget.iterations=300"])
+    p = _problem("dataset=diabetes")
+    tr = execute(spec, p)
+    assert tr.problem_info["evaluation"]["gradient"] == "gram"
+    U, s, Vt = np.linalg.svd(p.X_train, full_matrices=False)
+    eta, n = 1.0 / p.L, p.n_train
+    for i, t in enumerate(tr.columns["iteration"]):
+        w = Vt.T @ ((1 - (1 - eta * s**2 / n) ** t) / s * (U.T @ p.y_train))
+        for split, col in (("train", "train_error"), ("val", "val_error"), ("test", "test_error")):
+            X, y = getattr(p, "X_" + split), getattr(p, "y_" + split)
+            assert tr.columns[col][i] == pytest.approx(np.mean((X @ w - y) ** 2), rel=1e-10)
+
+
+def test_cancellation_guard_falls_back_to_the_rows():
+    """Noise-free targets: near the least-squares solution the residual is tiny and the
+    statistics formula w'Gw - 2c'w + y'y would lose its digits to cancellation (shown by
+    evaluating it raw); the recorder detects this and uses the rows, so its numbers stay
+    those of the direct formula."""
+    p = _problem("dataset=wellposed", "dataset.params.noise=none")
+    X, y = p.X_train, p.y_train
+    w_ls = np.linalg.lstsq(X, y, rcond=None)[0]
+    rng = np.random.default_rng(1)
+    fast = Recorder(p, statistics="gram")
+    plain = Recorder(p, statistics=None)
+    G, c, yy = X.T @ X, X.T @ y, float(y @ y)
+    worst_raw = 0.0
+    for k in range(0, 14):
+        w = w_ls + 10.0**-k * rng.standard_normal(p.d)
+        direct = np.sum((X @ w - y) ** 2)
+        got = fast.squared_errors(w).copy()
+        np.testing.assert_allclose(got, plain.squared_errors(w), rtol=1e-9)
+        assert got[0] == pytest.approx(direct, rel=1e-9)
+        raw = w @ G @ w - 2 * c @ w + yy
+        worst_raw = max(worst_raw, abs(raw - direct) / direct)
+    assert worst_raw > 1e-3  # the unguarded formula really loses digits here
+    assert fast.fallbacks > 0
+
+
+def test_automatic_choice_depends_on_shapes_only():
+    assert fastpath.choose_gradient_path(265, 10, 265 * 80) == "gram"
+    assert fastpath.choose_gradient_path(90, 400, 90 * 3200) == "direct"
+    assert fastpath.choose_gradient_path(1000, 2000, 16 * 10**6) == "blocked"
+    assert fastpath.choose_gradient_path(10**6, 10**4, 8 * 10**10) == "blocked"  # Gram would be 800 MB
+    ill = _problem("dataset=illposed")  # 180 train, 60 val, 60 test rows, 100 features
+    assert fastpath.statistics_splits(ill) == ("train",)
+    assert fastpath.statistics_splits(_problem("dataset=overparam")) == ()
+    assert fastpath.statistics_splits(ill, "direct") == ()
+    with pytest.raises(fastpath.PathError, match="must be one of auto, direct, blocked, gram"):
+        fastpath.training_for(ill, "fast")
+
+
+def test_statistics_are_computed_once_per_problem_and_hidden_from_solvers():
+    p = _problem("dataset=wellposed")
+    t1, s1 = fastpath.prepare(p)
+    t2, s2 = fastpath.prepare(p)
+    assert t1 is t2 is p.training and s1 is s2
+    plan = fastpath.gradient_plan(t1)
+    assert plan is fastpath.gradient_plan(t2) and plan.G is fastpath._gram(p, "train")[0]  # one Gram matrix
+    assert not plan.G.flags.writeable and not s1.H.flags.writeable
+    # what the solver can reach is made of training rows only
+    np.testing.assert_allclose(plan.G, p.X_train.T @ p.X_train, rtol=1e-13)
+    np.testing.assert_allclose(plan.c, p.X_train.T @ p.y_train, rtol=1e-13)
+    assert s1.splits == ("train", "val", "test")
+    np.testing.assert_allclose(s1.H[2 * p.d:], p.X_test.T @ p.X_test, rtol=1e-13)
+    # an explicit path leaves the shared training set alone
+    fresh = fastpath.training_for(p, "direct")
+    assert fresh is not p.training and fastpath.gradient_plan(fresh) is None
+    assert isinstance(fresh, TrainingSet) and fresh.L == p.training.L
+
+
+def test_rerun_is_bit_for_bit_with_the_fast_paths(root):
+    outs = [stopwise.run(["dataset=diabetes", "solver=nesterov", "budget.iterations=200"], root=root),
+            stopwise.run(["dataset=wellposed", "solver=sgd", "solver.batch=0.05", "solver.average=tail",
+                          "budget.iterations=100000", "budget.passes=4", "record.per_pass=8"], root=root)]
+    store = Store(root)
+    for out in outs:
+        assert out.status == "completed"
+        c = rerun_one(store, out.run_id)
+        assert c.ok and c.max_diff == 0.0, c.problems
+        meta = store.run_meta(out.run_id)
+        assert meta["problem"]["evaluation"]["gradient"] == "gram"
+        assert any(k.startswith("blas") for k in meta["threads"])
+
+
+def test_invalid_blas_thread_setting_is_one_line_and_writes_nothing(monkeypatch, capsys, root):
+    monkeypatch.setenv("STOPWISE_BLAS_THREADS", "two")
+    code = cli_main(["run", "dataset=diabetes", f"results_root={root}"])
+    err = capsys.readouterr().err.strip()
+    assert code == 2
+    assert err == "stopwise: error: STOPWISE_BLAS_THREADS='two' is invalid: must be a whole number >= 1 or 'library'"
+    assert not root.exists()
