@@ -85,29 +85,33 @@ def test_recorded_errors_of_gd_match_the_spectral_filter_closed_form():
             assert tr.columns[col][i] == pytest.approx(np.mean((X @ w - y) ** 2), rel=1e-10)
 
 
-def test_cancellation_guard_falls_back_to_the_rows():
-    """Noise-free targets: near the least-squares solution the residual is tiny and the
-    statistics formula w'Gw - 2c'w + y'y would lose its digits to cancellation (shown by
-    evaluating it raw); the recorder detects this and uses the rows, so its numbers stay
-    those of the direct formula."""
+def test_compressed_rows_keep_their_digits_where_the_gram_form_loses_them():
+    """Noise-free targets: near the least-squares solution the residual shrinks to rounding
+    level. The Gram form w'Gw - 2c'w + y'y subtracts numbers of size ||y||^2 and loses all
+    its digits (shown by evaluating it); the recorder's compressed rows (QR of [X y]) agree
+    with the rows evaluated directly (numpy) to rounding of the residual itself."""
     p = _problem("dataset=wellposed", "dataset.params.noise=none")
-    X, y = p.X_train, p.y_train
-    w_ls = np.linalg.lstsq(X, y, rcond=None)[0]
-    rng = np.random.default_rng(1)
     fast = Recorder(p, statistics="gram")
     plain = Recorder(p, statistics=None)
-    G, c, yy = X.T @ X, X.T @ y, float(y @ y)
-    worst_raw = 0.0
-    for k in range(0, 14):
+    assert fast.statistics.splits == ("train", "val", "test") and plain.statistics is None
+    w_ls = np.linalg.lstsq(p.X_train, p.y_train, rcond=None)[0]
+    rng = np.random.default_rng(1)
+    worst_gram = 0.0
+    for k in range(0, 16, 2):
         w = w_ls + 10.0**-k * rng.standard_normal(p.d)
-        direct = np.sum((X @ w - y) ** 2)
         got = fast.squared_errors(w).copy()
-        np.testing.assert_allclose(got, plain.squared_errors(w), rtol=1e-9)
-        assert got[0] == pytest.approx(direct, rel=1e-9)
-        raw = w @ G @ w - 2 * c @ w + yy
-        worst_raw = max(worst_raw, abs(raw - direct) / direct)
-    assert worst_raw > 1e-3  # the unguarded formula really loses digits here
-    assert fast.fallbacks > 0
+        ref = plain.squared_errors(w).copy()
+        for j, split in enumerate(("train", "val", "test")):
+            X, y = getattr(p, "X_" + split), getattr(p, "y_" + split)
+            direct = np.sum((X @ w - y) ** 2)
+            assert ref[j] == pytest.approx(direct, rel=1e-12, abs=1e-28 * (y @ y))
+            # residual norms agree to 1e-13 ||y||, and relatively while the residual is not tiny
+            assert abs(np.sqrt(got[j]) - np.sqrt(direct)) <= 1e-13 * np.linalg.norm(y) + 1e-10 * np.sqrt(direct)
+            gram = w @ (X.T @ X) @ w - 2 * (X.T @ y) @ w + y @ y
+            worst_gram = max(worst_gram, abs(np.sqrt(abs(gram)) - np.sqrt(direct)) / np.linalg.norm(y))
+        if k >= 8:
+            assert got[0] < 1e-12 * (p.y_train @ p.y_train)  # really at rounding level
+    assert worst_gram > 1e-9  # the Gram form would have been off by far more
 
 
 def test_automatic_choice_depends_on_shapes_only():
@@ -130,12 +134,14 @@ def test_statistics_are_computed_once_per_problem_and_hidden_from_solvers():
     assert t1 is t2 is p.training and s1 is s2
     plan = fastpath.gradient_plan(t1)
     assert plan is fastpath.gradient_plan(t2) and plan.G is fastpath._gram(p, "train")[0]  # one Gram matrix
-    assert not plan.G.flags.writeable and not s1.H.flags.writeable
+    assert not plan.G.flags.writeable and not s1.A.flags.writeable
     # what the solver can reach is made of training rows only
     np.testing.assert_allclose(plan.G, p.X_train.T @ p.X_train, rtol=1e-13)
     np.testing.assert_allclose(plan.c, p.X_train.T @ p.y_train, rtol=1e-13)
     assert s1.splits == ("train", "val", "test")
-    np.testing.assert_allclose(s1.H[2 * p.d:], p.X_test.T @ p.X_test, rtol=1e-13)
+    R, Z = s1.factor(2), np.column_stack((p.X_test, p.y_test))
+    assert R.shape == (p.d + 1, p.d + 1) and np.allclose(R, np.triu(R))
+    np.testing.assert_allclose(R.T @ R, Z.T @ Z, rtol=0, atol=1e-12 * np.abs(Z.T @ Z).max())
     # an explicit path leaves the shared training set alone
     fresh = fastpath.training_for(p, "direct")
     assert fresh is not p.training and fastpath.gradient_plan(fresh) is None

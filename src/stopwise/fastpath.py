@@ -13,16 +13,23 @@ gram      ``(G w - c) / n`` with ``G = X^T X``, ``c = X^T y``         O(d^2), X 
 
 and for a recorded squared error on a split ``(X_s, y_s)``:
 
-========  =========================================================
-direct    ``||X_s w - y_s||^2``
-stats     ``w^T G_s w - 2 c_s^T w + y_s^T y_s`` (O(d^2) per iterate)
-========  =========================================================
+==========  ==============================================================================
+direct      ``||X_s w - y_s||^2``
+compressed  ``||R_s [w; -1]||^2`` with ``R_s`` the triangular factor of the QR
+            factorization ``[X_s  y_s] = Q_s R_s`` (O(d^2) per iterate)
+==========  ==============================================================================
 
-The statistics formula subtracts numbers of size ``w^T G_s w + y_s^T y_s`` (the *scale*);
-when the result is below ``GUARD`` times the scale it would have lost more than
-``-log10(GUARD)`` digits to cancellation, and that split is evaluated directly instead
-(errors near zero, interpolation). The gradient needs no guard: the absolute rounding
-error of ``G w - c`` is of the same order as that of ``X^T (X w - y)``.
+Precision. The recorded errors do not use the Gram form ``w^T G_s w - 2 c_s^T w + y_s^T y_s``:
+it subtracts numbers of the size of ``||X_s w||^2 + ||y_s||^2`` and loses all its digits
+when the error is small next to them (errors near zero, interpolation, noise-free
+data). The compressed rows have no such cancellation: Householder QR is backward stable,
+so ``||R_s [w; -1]||^2`` is the exact error of data within a few rounding units of
+``[X_s  y_s]``, as accurate as evaluating the rows directly, and no fall back to the rows
+is ever needed (the tests compare both paths near interpolation). The gradient may use
+the Gram form: near the solution ``G w - c`` is small too, but its absolute rounding error,
+``eps ||X||^2 ||w||``, is of the same order as that of ``X^T (X w - y)``, so both give the
+same iterates to rounding (tested against the spectral-filter closed form of gradient
+descent).
 
 Which path a run takes is a deterministic function of the array shapes (``choose_gradient_path``
 and ``statistics_splits``), so a rerun of a run, on any machine, takes the same path.
@@ -50,7 +57,6 @@ SPLITS = ("train", "val", "test")
 GRAM_MAX_BYTES = 256 * 2**20     # no Gram matrix (of all splits together) above this size
 BLOCKED_MIN_BYTES = 4 * 2**20    # below this X stays in cache and the direct path is as fast
 BLOCK_BYTES = 512 * 2**10        # one row block fits comfortably in a core's L2 cache
-GUARD = 1e-4                     # statistics results below GUARD * scale are recomputed directly
 
 _PLAN = "_gradient_plan"
 _STATS = "_split_statistics"
@@ -184,31 +190,46 @@ def path_name(train: TrainingSet) -> str:
 
 # ---------------------------------------------------------------- split statistics (recorder)
 
-def _gram_cache(problem: Problem) -> dict:
-    cache = problem.__dict__.get("_grams")
+def _cache(problem: Problem, name: str) -> dict:
+    cache = problem.__dict__.get(name)
     if cache is None:
         cache = {}
-        object.__setattr__(problem, "_grams", cache)
+        object.__setattr__(problem, name, cache)
     return cache
 
 
-def _gram(problem: Problem, split: str) -> tuple[np.ndarray, np.ndarray, float]:
-    """(X_s^T X_s, X_s^T y_s, y_s^T y_s), computed once per problem."""
-    cache = _gram_cache(problem)
+def _gram(problem: Problem, split: str) -> tuple[np.ndarray, np.ndarray]:
+    """(X_s^T X_s, X_s^T y_s), computed once per problem."""
+    cache = _cache(problem, "_grams")
     hit = cache.get(split)
     if hit is None:
         X, y = getattr(problem, "X_" + split), getattr(problem, "y_" + split)
-        hit = (_frozen(X.T @ X), _frozen(X.T @ y), float(y @ y))
+        hit = (_frozen(X.T @ X), _frozen(X.T @ y))
+        cache[split] = hit
+    return hit
+
+
+def compressed_rows(X: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """The triangular factor ``R`` of ``[X  y] = Q R`` (min(n, d + 1) x (d + 1)), so that
+    ``||X w - y||^2 = ||R [w; -1]||^2`` for every ``w``."""
+    return np.linalg.qr(np.column_stack((X, y)), mode="r")
+
+
+def _factor(problem: Problem, split: str) -> np.ndarray:
+    cache = _cache(problem, "_row_factors")
+    hit = cache.get(split)
+    if hit is None:
+        hit = _frozen(compressed_rows(getattr(problem, "X_" + split), getattr(problem, "y_" + split)))
         cache[split] = hit
     return hit
 
 
 def statistics_splits(problem: Problem, path: str = "auto") -> tuple[str, ...]:
-    """Splits whose recorded error uses sufficient statistics under ``path``.
+    """Splits whose recorded error uses compressed rows under ``path``.
 
-    ``auto``: every non-empty split with more rows than features, while all their Gram
-    matrices together fit in ``GRAM_MAX_BYTES``; ``gram``: every non-empty split;
-    ``direct`` and ``blocked``: none.
+    ``auto``: every split with more rows than features, while their factors together
+    fit in ``GRAM_MAX_BYTES``; ``gram``: every non-empty split; ``direct`` and ``blocked``:
+    none. Only regression problems (squared error) are compressed.
     """
     _check_path(path)
     if path in ("direct", "blocked") or problem.task != "regression":
@@ -218,23 +239,31 @@ def statistics_splits(problem: Problem, path: str = "auto") -> tuple[str, ...]:
     if path == "gram":
         return tuple(s for s in SPLITS if rows[s] > 0)
     chosen = tuple(s for s in SPLITS if rows[s] > d)
-    if len(chosen) * d * d * 8 > GRAM_MAX_BYTES:
+    if len(chosen) * (d + 1) ** 2 * 8 > GRAM_MAX_BYTES:
         return ()
     return chosen
 
 
 @dataclass(frozen=True)
 class SplitStatistics:
-    """Stacked sufficient statistics of the splits in ``splits`` (read-only arrays).
+    """Compressed rows of the splits in ``splits``, stacked for one product per iterate.
 
-    ``H`` is ``[G_s1; G_s2; ...]`` (k d x d), ``C`` has rows ``c_s`` (k x d) and ``yy``
-    the values ``y_s^T y_s`` (k), so one product ``H w`` serves every split.
+    ``A = [R_1; ...; R_k]`` (read-only, ``sum_j m_j`` rows, ``d + 1`` columns) and
+    ``starts[j]`` the first row of ``R_j``: with ``u = A [w; -1]`` the squared error of
+    split j is the sum of ``u^2`` over its rows.
     """
 
     splits: tuple[str, ...]
-    H: np.ndarray
-    C: np.ndarray
-    yy: np.ndarray
+    A: np.ndarray
+    starts: np.ndarray
+
+    @property
+    def k(self) -> int:
+        return len(self.splits)
+
+    def factor(self, j: int) -> np.ndarray:
+        end = self.starts[j + 1] if j + 1 < self.k else self.A.shape[0]
+        return self.A[self.starts[j]:end]
 
 
 def split_statistics(problem: Problem, path: str = "auto") -> SplitStatistics | None:
@@ -245,10 +274,9 @@ def split_statistics(problem: Problem, path: str = "auto") -> SplitStatistics | 
     cached = problem.__dict__.get(key)
     if cached is not None:
         return cached
-    parts = [_gram(problem, s) for s in splits]
-    st = SplitStatistics(splits=splits, H=_frozen(np.concatenate([p[0] for p in parts], axis=0)),
-                         C=_frozen(np.stack([p[1] for p in parts])),
-                         yy=_frozen(np.array([p[2] for p in parts], dtype=np.float64)))
+    parts = [_factor(problem, s) for s in splits]
+    starts = np.cumsum([0] + [p.shape[0] for p in parts[:-1]]).astype(np.intp)
+    st = SplitStatistics(splits=splits, A=_frozen(np.concatenate(parts, axis=0)), starts=_frozen(starts))
     object.__setattr__(problem, key, st)
     return st
 
@@ -260,10 +288,9 @@ def prepare(problem: Problem, path: str = "auto") -> tuple[TrainingSet, SplitSta
 
 
 def describe(train: TrainingSet, stats: SplitStatistics | None) -> dict:
-    return {"gradient": path_name(train), "statistics": list(stats.splits) if stats is not None else [],
-            "guard": GUARD}
+    return {"gradient": path_name(train), "statistics": list(stats.splits) if stats is not None else []}
 
 
-__all__ = ["PATHS", "GUARD", "BlockedGradient", "GramGradient", "SplitStatistics", "attach_plan",
-           "choose_gradient_path", "gradient_plan", "prepare", "split_statistics", "statistics_splits",
+__all__ = ["PATHS", "BlockedGradient", "GramGradient", "SplitStatistics", "attach_plan",
+           "choose_gradient_path", "compressed_rows", "gradient_plan", "prepare", "split_statistics", "statistics_splits",
            "training_for"]

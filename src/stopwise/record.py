@@ -4,10 +4,9 @@ The recorder owns preallocated columns and scratch buffers; recording an iterate
 one row in place. It never knows which solver produced the iterate.
 
 Squared errors ``||X_s w - y_s||^2`` of the train / validation / test splits come either
-from the rows directly or, for splits with more rows than features, from sufficient
-statistics computed once per problem (``w^T G_s w - 2 c_s^T w + y_s^T y_s``, one stacked
-product for all such splits), with a fall back to the rows where cancellation would
-lose digits; see :mod:`stopwise.fastpath`.
+from the rows directly or, for splits with more rows than features, from their compressed
+rows computed once per problem (``||R_s [w; -1]||^2`` with ``[X_s y_s] = Q_s R_s``, one
+stacked product for all such splits, as accurate as the rows; see :mod:`stopwise.fastpath`).
 """
 from __future__ import annotations
 
@@ -53,13 +52,11 @@ class Recorder:
         self._stat_idx = tuple(splits.index(s) for s in used)
         self._direct_idx = tuple(i for i, s in enumerate(splits)
                                  if s not in used and getattr(p, "X_" + s).shape[0] > 0)
-        k = len(used)
-        if k:
-            self._u = np.empty(k * p.d)
-            self._uk = self._u.reshape(k, p.d)
-            self._q, self._l, self._v, self._s = (np.empty(k) for _ in range(4))
-            self._ok = np.empty(k, dtype=bool)
-        self.fallbacks = 0  # statistics results recomputed from the rows (cancellation guard)
+        if used:
+            self._wa = np.empty(p.d + 1)
+            self._wa[p.d] = -1.0
+            self._u = np.empty(statistics.A.shape[0])
+            self._v = np.empty(len(used))
 
     def _sq_error(self, split: str, w: np.ndarray) -> float:
         X = getattr(self.problem, "X_" + split)
@@ -74,24 +71,15 @@ class Recorder:
         """``||X_s w - y_s||^2`` for train, val, test (NaN for an empty split), in a
         scratch array that the next call overwrites."""
         sq = self._sq
-        st = self.statistics
         if self._stat_idx:
-            np.dot(st.H, w, out=self._u)
-            np.dot(self._uk, w, out=self._q)
-            np.dot(st.C, w, out=self._l)
-            v, s = self._v, self._s
-            np.multiply(self._l, -2.0, out=v)
-            v += self._q
-            v += st.yy
-            np.add(self._q, st.yy, out=s)
-            s *= fastpath.GUARD
-            np.greater_equal(v, s, out=self._ok)
-            for j, i in enumerate(self._stat_idx):
-                if self._ok[j]:
-                    sq[i] = v[j]
-                else:
-                    self.fallbacks += 1
-                    sq[i] = self._sq_error(fastpath.SPLITS[i], w)
+            st = self.statistics
+            self._wa[:-1] = w
+            u = self._u
+            np.dot(st.A, self._wa, out=u)            # R_j [w; -1] for every split j
+            np.multiply(u, u, out=u)
+            np.add.reduceat(u, st.starts, out=self._v)
+            for i, v in zip(self._stat_idx, self._v.tolist()):
+                sq[i] = v
         for i in self._direct_idx:
             sq[i] = self._sq_error(fastpath.SPLITS[i], w)
         return sq

@@ -74,12 +74,14 @@ def pass_mark(passes: float, per_pass: float) -> int:
     return int(math.floor(passes * per_pass + 1e-9))
 
 
-def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto") -> Trace:
+def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
+            record_path: str | None = None) -> Trace:
     """Run the solver loop for ``spec`` and return the recorded trace (nothing written).
 
     ``path`` chooses how least-squares gradients and recorded errors are evaluated
     (:mod:`stopwise.fastpath`): ``auto`` (the default, a function of the shapes only),
-    or ``direct`` / ``blocked`` / ``gram`` to force one, for checks and benchmarks.
+    or ``direct`` / ``blocked`` / ``gram`` to force one, for checks and benchmarks;
+    ``record_path`` does the same for the recorded errors only (default: as ``path``).
 
     Recording: the initial iterate, then every ``record.every``-th iterate, or, when
     ``record.per_pass`` is set, the first iterate at or past each point of the grid
@@ -94,6 +96,8 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto") -
     clock = time.perf_counter
     t_prep = clock()
     train, stats = fastpath.prepare(problem, path)
+    if record_path is not None and record_path != path:
+        stats = fastpath.split_statistics(problem, record_path)
     t_prep = clock() - t_prep
     rng = run_rng(spec)
     rec = Recorder(problem, capacity=_record_rows(spec), statistics=stats)
@@ -135,7 +139,7 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto") -
                            f"by iteration {state.iteration}")
                 break
     info = _problem_info(problem)
-    info["evaluation"] = dict(fastpath.describe(train, stats), prepare_seconds=t_prep, fallbacks=rec.fallbacks)
+    info["evaluation"] = dict(fastpath.describe(train, stats), prepare_seconds=t_prep)
     return Trace(columns=rec.result(), status=status, message=message, problem_info=info)
 
 

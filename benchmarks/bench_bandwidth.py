@@ -1,0 +1,90 @@
+"""Benchmark 2: full-batch step cost against the memory-bandwidth limit measured in the same run.
+
+For an X of about 320 MB (far larger than every cache), the peer is the time to read X
+once, measured three ways (a max reduction, a column sum, a BLAS matrix-vector product);
+the fastest is the bandwidth limit. Each gradient path and a whole gradient-descent step
+through the solver are timed and reported as multiples of that one read. Two shapes: a
+tall X (n > d, where the automatic choice is the Gram path; the blocked path is forced
+for comparison) and a wide X (n < d, where the automatic choice is the blocked path).
+
+    .venv/bin/python benchmarks/bench_bandwidth.py
+"""
+from __future__ import annotations
+
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).parent))
+from _common import best_of, machine  # noqa: E402
+
+from stopwise import fastpath, threads  # noqa: E402
+from stopwise.problem import TrainingSet  # noqa: E402
+from stopwise.solvers import get_solver  # noqa: E402
+from stopwise.solvers.base import make_params  # noqa: E402
+
+
+def one_shape(n: int, d: int, repeat: int) -> None:
+    rng = np.random.default_rng(0)
+    X = rng.standard_normal((n, d))
+    y = rng.standard_normal(n)
+    w = rng.standard_normal(d) / np.sqrt(d)
+    v = np.ones(d)
+    mb = X.nbytes / 2**20
+    print(f"\nX: {n} x {d} float64 = {mb:.0f} MiB; automatic gradient path: "
+          f"{fastpath.choose_gradient_path(n, d, X.nbytes)}")
+    reads = {"max reduction X.max()": lambda: X.max(), "column sum X.sum(axis=0)": lambda: X.sum(axis=0),
+             "BLAS product X @ v": lambda: X @ v}
+    times = {k: best_of(f, repeat) for k, f in reads.items()}
+    one_read = min(times.values())
+    for k, t in times.items():
+        print(f"  read X once, {k:26s} {t * 1e3:8.2f} ms  {X.nbytes / t / 1e9:6.1f} GB/s")
+    print(f"  one read of X (fastest above)      {one_read * 1e3:8.2f} ms")
+
+    direct = lambda: X.T @ (X @ w - y) / n  # noqa: E731
+    blocked = fastpath.BlockedGradient(X, y)
+    t0 = time.perf_counter()
+    gram = fastpath.GramGradient(X, y) if n > d else None
+    t_gram_setup = time.perf_counter() - t0
+    ref = direct()
+    assert np.allclose(blocked(w), ref, rtol=1e-10, atol=1e-12)
+    rows = [("direct X^T (X w - y)", direct), (f"blocked ({blocked.block_rows} rows per block)", lambda: blocked(w))]
+    if gram is not None:
+        assert np.allclose(gram(w), ref, rtol=1e-9, atol=1e-10)
+        rows.append(("Gram (G w - c)", lambda: gram(w)))
+    gd = get_solver("gd")
+    gp = make_params(gd.params, {"step_scale": 1.0}, "solver")
+    L = 1.0  # the step size does not change the cost
+    for name, path in (("blocked", "blocked"), ("Gram", "gram")):
+        if path == "gram" and gram is None:
+            continue
+        tr = fastpath.attach_plan(TrainingSet(X, y, L), blocked if path == "blocked" else gram)
+        st = gd.init(tr, gp, None)
+        holder = [st]
+
+        def step(tr=tr, holder=holder):
+            holder[0] = gd.step(tr, gp, holder[0])
+        rows.append((f"gd step through the solver, {name}", step))
+    print(f"  {'gradient / step':36s} {'ms':>8s} {'x one read':>11s}")
+    for name, fn in rows:
+        t = best_of(fn, repeat)
+        print(f"  {name:36s} {t * 1e3:8.2f} {t / one_read:11.3f}")
+    if gram is not None:
+        print(f"  Gram set-up once per problem: {t_gram_setup * 1e3:.0f} ms = {t_gram_setup / one_read:.0f} reads of X "
+              f"(paid back after {t_gram_setup / max(best_of(direct, 3) - best_of(lambda: gram(w), 3), 1e-12):.0f} "
+              f"direct steps)")
+    del X
+
+
+def main() -> None:
+    threads.configure()
+    print("machine:\n" + machine())
+    print("targets: blocked step <= 1.5 x one read of X per data pass; Gram step far below")
+    one_shape(100_000, 400, repeat=7)
+    one_shape(16_000, 2_500, repeat=7)
+
+
+if __name__ == "__main__":
+    main()
