@@ -288,3 +288,11 @@ def test_every_and_per_pass_are_exclusive():
     with pytest.raises(SpecError) as e:
         spec_from_overrides(["solver=sgd", "record.every=2", "record.per_pass=4"])
     assert str(e.value) == "record.every=2 and record.per_pass=4 are exclusive: set one of them"
+
+
+def test_docstring_examples_run():
+    import doctest
+
+    from stopwise.solvers import stochastic
+
+    assert doctest.testmod(stochastic).failed == 0

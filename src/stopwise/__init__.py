@@ -11,10 +11,13 @@ from __future__ import annotations
 
 __version__ = "0.1.0"
 
+from .losses import minibatch_gradient  # noqa: E402
 from .problem import Problem, TrainingSet  # noqa: E402
 from .query import load_runs, load_traces  # noqa: E402
 from .runner import RunOutcome, execute, run  # noqa: E402
 from .solvers import SOLVERS, get_solver  # noqa: E402
+from .solvers.averaging import AveragingParams, averaged  # noqa: E402
+from .solvers.stochastic import SGDParams  # noqa: E402
 from .spec import RunSpec, SpecError, spec_from_overrides  # noqa: E402
 
 
@@ -32,4 +35,5 @@ def load_problem(overrides: list[str] | None = None) -> Problem:
 
 
 __all__ = ["Problem", "TrainingSet", "RunOutcome", "RunSpec", "SpecError", "SOLVERS", "execute",
-           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides"]
+           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides",
+           "AveragingParams", "SGDParams", "averaged", "minibatch_gradient"]
