@@ -85,11 +85,12 @@ def test_recorded_errors_of_gd_match_the_spectral_filter_closed_form():
             assert tr.columns[col][i] == pytest.approx(np.mean((X @ w - y) ** 2), rel=1e-10)
 
 
-def test_compressed_rows_keep_their_digits_where_the_gram_form_loses_them():
+def test_cancellation_guard_keeps_the_digits_near_interpolation():
     """Noise-free targets: near the least-squares solution the residual shrinks to rounding
-    level. The Gram form w'Gw - 2c'w + y'y subtracts numbers of size ||y||^2 and loses all
-    its digits (shown by evaluating it); the recorder's compressed rows (QR of [X y]) agree
-    with the rows evaluated directly (numpy) to rounding of the residual itself."""
+    level. The Gram form w'Gw - 2c'w + y'y subtracts numbers of size ||y||^2 and loses its
+    digits there (shown by evaluating it); the recorder notices (result below GUARD times
+    the scale) and uses the compressed rows (QR of [X y]), so it agrees with the rows
+    evaluated directly (numpy) to rounding of the residual itself."""
     p = _problem("dataset=wellposed", "dataset.params.noise=none")
     fast = Recorder(p, statistics="gram")
     plain = Recorder(p, statistics=None)
@@ -111,7 +112,22 @@ def test_compressed_rows_keep_their_digits_where_the_gram_form_loses_them():
             worst_gram = max(worst_gram, abs(np.sqrt(abs(gram)) - np.sqrt(direct)) / np.linalg.norm(y))
         if k >= 8:
             assert got[0] < 1e-12 * (p.y_train @ p.y_train)  # really at rounding level
-    assert worst_gram > 1e-9  # the Gram form would have been off by far more
+    assert worst_gram > 1e-9  # the unguarded Gram form would have been off by far more
+    assert fast.fallbacks >= 3 * 5  # every split from k = 6 on
+
+
+def test_compressed_rows_reproduce_the_squared_error():
+    """||X w - y||^2 = ||R [w; -1]||^2 for the QR factor R of [X y] (numpy's QR), for tall
+    and wide blocks of rows."""
+    rng = np.random.default_rng(2)
+    for n, d in ((50, 8), (5, 8)):
+        X, y = rng.standard_normal((n, d)), rng.standard_normal(n)
+        R = fastpath.compressed_rows(X, y)
+        assert R.shape == (min(n, d + 1), d + 1)
+        for _ in range(3):
+            w = rng.standard_normal(d)
+            r = R @ np.append(w, -1.0)
+            assert r @ r == pytest.approx(np.sum((X @ w - y) ** 2), rel=1e-12)
 
 
 def test_automatic_choice_depends_on_shapes_only():
@@ -139,9 +155,7 @@ def test_statistics_are_computed_once_per_problem_and_hidden_from_solvers():
     np.testing.assert_allclose(plan.G, p.X_train.T @ p.X_train, rtol=1e-13)
     np.testing.assert_allclose(plan.c, p.X_train.T @ p.y_train, rtol=1e-13)
     assert s1.splits == ("train", "val", "test")
-    R, Z = s1.factor(2), np.column_stack((p.X_test, p.y_test))
-    assert R.shape == (p.d + 1, p.d + 1) and np.allclose(R, np.triu(R))
-    np.testing.assert_allclose(R.T @ R, Z.T @ Z, rtol=0, atol=1e-12 * np.abs(Z.T @ Z).max())
+    np.testing.assert_allclose(s1.gram(2), p.X_test.T @ p.X_test, rtol=1e-13)
     # an explicit path leaves the shared training set alone
     fresh = fastpath.training_for(p, "direct")
     assert fresh is not p.training and fastpath.gradient_plan(fresh) is None

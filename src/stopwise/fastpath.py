@@ -15,21 +15,25 @@ and for a recorded squared error on a split ``(X_s, y_s)``:
 
 ==========  ==============================================================================
 direct      ``||X_s w - y_s||^2``
+gram        ``w^T G_s w - 2 c_s^T w + y_s^T y_s`` with ``G_s = X_s^T X_s``, ``c_s = X_s^T y_s``
+            (O(d^2) per iterate; one stacked product serves every split)
 compressed  ``||R_s [w; -1]||^2`` with ``R_s`` the triangular factor of the QR
             factorization ``[X_s  y_s] = Q_s R_s`` (O(d^2) per iterate)
 ==========  ==============================================================================
 
-Precision. The recorded errors do not use the Gram form ``w^T G_s w - 2 c_s^T w + y_s^T y_s``:
-it subtracts numbers of the size of ``||X_s w||^2 + ||y_s||^2`` and loses all its digits
-when the error is small next to them (errors near zero, interpolation, noise-free
-data). The compressed rows have no such cancellation: Householder QR is backward stable,
-so ``||R_s [w; -1]||^2`` is the exact error of data within a few rounding units of
-``[X_s  y_s]``, as accurate as evaluating the rows directly, and no fall back to the rows
-is ever needed (the tests compare both paths near interpolation). The gradient may use
-the Gram form: near the solution ``G w - c`` is small too, but its absolute rounding error,
-``eps ||X||^2 ||w||``, is of the same order as that of ``X^T (X w - y)``, so both give the
-same iterates to rounding (tested against the spectral-filter closed form of gradient
-descent).
+Precision. The Gram form subtracts numbers of the size of its *scale*
+``w^T G_s w + y_s^T y_s``; its rounding error is a few units of ``eps * scale``, so it
+keeps all but ``log10(scale / error)`` of its digits. When the result falls below
+``GUARD`` times the scale (errors near zero, interpolation, noise-free data) the recorder
+evaluates that split from its compressed rows instead, which have no cancellation:
+Householder QR is backward stable, so ``||R_s [w; -1]||^2`` is the exact error of data
+within a few rounding units of ``[X_s  y_s]``, as accurate as evaluating the rows
+directly, at O(d^2) cost. The factor ``R_s`` is computed on the first such iterate and
+kept with the problem (QR costs about four times the Gram matrix, so it is not paid by
+problems that never need it). The gradient needs no guard: near the solution ``G w - c``
+is small too, but its absolute rounding error, ``eps ||X||^2 ||w||``, is of the same
+order as that of ``X^T (X w - y)``, so both give the same iterates to rounding (tested
+against the spectral-filter closed form of gradient descent).
 
 Which path a run takes is a deterministic function of the array shapes (``choose_gradient_path``
 and ``statistics_splits``), so a rerun of a run, on any machine, takes the same path.
@@ -57,6 +61,7 @@ SPLITS = ("train", "val", "test")
 GRAM_MAX_BYTES = 256 * 2**20     # no Gram matrix (of all splits together) above this size
 BLOCKED_MIN_BYTES = 4 * 2**20    # below this X stays in cache and the direct path is as fast
 BLOCK_BYTES = 2**20              # one row block fits in a core's L2 cache (measured best of 256K..2M)
+GUARD = 1e-3                     # Gram-form errors below GUARD * scale are recomputed from compressed rows
 
 _PLAN = "_gradient_plan"
 _STATS = "_split_statistics"
@@ -198,13 +203,13 @@ def _cache(problem: Problem, name: str) -> dict:
     return cache
 
 
-def _gram(problem: Problem, split: str) -> tuple[np.ndarray, np.ndarray]:
-    """(X_s^T X_s, X_s^T y_s), computed once per problem."""
+def _gram(problem: Problem, split: str) -> tuple[np.ndarray, np.ndarray, float]:
+    """(X_s^T X_s, X_s^T y_s, y_s^T y_s), computed once per problem."""
     cache = _cache(problem, "_grams")
     hit = cache.get(split)
     if hit is None:
         X, y = getattr(problem, "X_" + split), getattr(problem, "y_" + split)
-        hit = (_frozen(X.T @ X), _frozen(X.T @ y))
+        hit = (_frozen(X.T @ X), _frozen(X.T @ y), float(y @ y))
         cache[split] = hit
     return hit
 
@@ -215,7 +220,8 @@ def compressed_rows(X: np.ndarray, y: np.ndarray) -> np.ndarray:
     return np.linalg.qr(np.column_stack((X, y)), mode="r")
 
 
-def _factor(problem: Problem, split: str) -> np.ndarray:
+def row_factor(problem: Problem, split: str) -> np.ndarray:
+    """Compressed rows ``R_s`` of a split, computed on first use and kept with the problem."""
     cache = _cache(problem, "_row_factors")
     hit = cache.get(split)
     if hit is None:
@@ -225,11 +231,11 @@ def _factor(problem: Problem, split: str) -> np.ndarray:
 
 
 def statistics_splits(problem: Problem, path: str = "auto") -> tuple[str, ...]:
-    """Splits whose recorded error uses compressed rows under ``path``.
+    """Splits whose recorded error uses sufficient statistics under ``path``.
 
-    ``auto``: every split with more rows than features, while their factors together
-    fit in ``GRAM_MAX_BYTES``; ``gram``: every non-empty split; ``direct`` and ``blocked``:
-    none. Only regression problems (squared error) are compressed.
+    ``auto``: every split with more rows than features, while their Gram matrices
+    together fit in ``GRAM_MAX_BYTES``; ``gram``: every non-empty split; ``direct`` and
+    ``blocked``: none. Only regression problems (squared error) are concerned.
     """
     _check_path(path)
     if path in ("direct", "blocked") or problem.task != "regression":
@@ -246,24 +252,26 @@ def statistics_splits(problem: Problem, path: str = "auto") -> tuple[str, ...]:
 
 @dataclass(frozen=True)
 class SplitStatistics:
-    """Compressed rows of the splits in ``splits``, stacked for one product per iterate.
+    """Stacked sufficient statistics of the splits in ``splits`` (read-only arrays).
 
-    ``A = [R_1; ...; R_k]`` (read-only, ``sum_j m_j`` rows, ``d + 1`` columns) and
-    ``starts[j]`` the first row of ``R_j``: with ``u = A [w; -1]`` the squared error of
-    split j is the sum of ``u^2`` over its rows.
+    ``A = [G_1; ...; G_k; c_1^T; ...; c_k^T]`` ((k d + k) x d), ``C2 = 2 [c_1; ...; c_k]``
+    (k d) and ``yy = (y_j^T y_j)_j``. One product ``u = A w`` gives ``G_j w`` and
+    ``l_j = c_j^T w``; then ``v_j = w^T (G_j w - 2 c_j) + yy_j`` is the squared error of
+    split j and ``v_j + 2 l_j = w^T G_j w + yy_j`` its scale (see the precision note).
     """
 
     splits: tuple[str, ...]
     A: np.ndarray
-    starts: np.ndarray
+    C2: np.ndarray
+    yy: tuple[float, ...]
 
     @property
     def k(self) -> int:
         return len(self.splits)
 
-    def factor(self, j: int) -> np.ndarray:
-        end = self.starts[j + 1] if j + 1 < self.k else self.A.shape[0]
-        return self.A[self.starts[j]:end]
+    def gram(self, j: int) -> np.ndarray:
+        d = self.A.shape[1]
+        return self.A[j * d:(j + 1) * d]
 
 
 def split_statistics(problem: Problem, path: str = "auto") -> SplitStatistics | None:
@@ -274,9 +282,10 @@ def split_statistics(problem: Problem, path: str = "auto") -> SplitStatistics | 
     cached = problem.__dict__.get(key)
     if cached is not None:
         return cached
-    parts = [_factor(problem, s) for s in splits]
-    starts = np.cumsum([0] + [p.shape[0] for p in parts[:-1]]).astype(np.intp)
-    st = SplitStatistics(splits=splits, A=_frozen(np.concatenate(parts, axis=0)), starts=_frozen(starts))
+    parts = [_gram(problem, s) for s in splits]
+    C = np.stack([p[1] for p in parts])
+    st = SplitStatistics(splits=splits, A=_frozen(np.concatenate([p[0] for p in parts] + [C], axis=0)),
+                         C2=_frozen(2.0 * C.ravel()), yy=tuple(p[2] for p in parts))
     object.__setattr__(problem, key, st)
     return st
 
@@ -288,9 +297,10 @@ def prepare(problem: Problem, path: str = "auto") -> tuple[TrainingSet, SplitSta
 
 
 def describe(train: TrainingSet, stats: SplitStatistics | None) -> dict:
-    return {"gradient": path_name(train), "statistics": list(stats.splits) if stats is not None else []}
+    return {"gradient": path_name(train), "statistics": list(stats.splits) if stats is not None else [],
+            "guard": GUARD}
 
 
-__all__ = ["PATHS", "BlockedGradient", "GramGradient", "SplitStatistics", "attach_plan",
-           "choose_gradient_path", "compressed_rows", "gradient_plan", "prepare", "split_statistics", "statistics_splits",
+__all__ = ["PATHS", "GUARD", "BlockedGradient", "GramGradient", "SplitStatistics", "attach_plan",
+           "choose_gradient_path", "compressed_rows", "gradient_plan", "prepare", "row_factor", "split_statistics", "statistics_splits",
            "training_for"]

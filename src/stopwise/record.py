@@ -4,9 +4,11 @@ The recorder owns preallocated columns and scratch buffers; recording an iterate
 one row in place. It never knows which solver produced the iterate.
 
 Squared errors ``||X_s w - y_s||^2`` of the train / validation / test splits come either
-from the rows directly or, for splits with more rows than features, from their compressed
-rows computed once per problem (``||R_s [w; -1]||^2`` with ``[X_s y_s] = Q_s R_s``, one
-stacked product for all such splits, as accurate as the rows; see :mod:`stopwise.fastpath`).
+from the rows directly or, for splits with more rows than features, from sufficient
+statistics computed once per problem (``w^T G_s w - 2 c_s^T w + y_s^T y_s``, one stacked
+product for all such splits); where that form would lose digits to cancellation the split
+is evaluated from its compressed rows ``||R_s [w; -1]||^2`` (QR of ``[X_s y_s]``), which
+are as accurate as the rows. See :mod:`stopwise.fastpath`.
 """
 from __future__ import annotations
 
@@ -53,10 +55,15 @@ class Recorder:
         self._direct_idx = tuple(i for i, s in enumerate(splits)
                                  if s not in used and getattr(p, "X_" + s).shape[0] > 0)
         if used:
+            k = len(used)
+            self._ua = np.empty(k * p.d + k)
+            self._u = self._ua[: k * p.d]
+            self._uk = self._u.reshape(k, p.d)
+            self._l = self._ua[k * p.d:]
+            self._v = np.empty(k)
             self._wa = np.empty(p.d + 1)
             self._wa[p.d] = -1.0
-            self._u = np.empty(statistics.A.shape[0])
-            self._v = np.empty(len(used))
+        self.fallbacks = 0  # Gram-form errors recomputed from compressed rows (cancellation guard)
 
     def _sq_error(self, split: str, w: np.ndarray) -> float:
         X = getattr(self.problem, "X_" + split)
@@ -67,19 +74,29 @@ class Recorder:
         buf -= getattr(self.problem, "y_" + split)
         return float(buf @ buf)
 
+    def _compressed_error(self, split: str, w: np.ndarray) -> float:
+        self.fallbacks += 1
+        R = fastpath.row_factor(self.problem, split)
+        self._wa[:-1] = w
+        r = R @ self._wa
+        return float(r @ r)
+
     def squared_errors(self, w: np.ndarray) -> np.ndarray:
         """``||X_s w - y_s||^2`` for train, val, test (NaN for an empty split), in a
         scratch array that the next call overwrites."""
         sq = self._sq
         if self._stat_idx:
             st = self.statistics
-            self._wa[:-1] = w
-            u = self._u
-            np.dot(st.A, self._wa, out=u)            # R_j [w; -1] for every split j
-            np.multiply(u, u, out=u)
-            np.add.reduceat(u, st.starts, out=self._v)
-            for i, v in zip(self._stat_idx, self._v.tolist()):
-                sq[i] = v
+            np.dot(st.A, w, out=self._ua)      # G_j w and c_j^T w for every split j
+            self._u -= st.C2                   # G_j w - 2 c_j
+            np.dot(self._uk, w, out=self._v)   # w^T G_j w - 2 c_j^T w
+            guard = fastpath.GUARD
+            for i, v, l, yy in zip(self._stat_idx, self._v.tolist(), self._l.tolist(), st.yy):
+                v += yy
+                if v >= guard * (v + 2.0 * l):  # v + 2 l = w^T G_j w + y_j^T y_j, the scale
+                    sq[i] = v
+                else:
+                    sq[i] = self._compressed_error(fastpath.SPLITS[i], w)
         for i in self._direct_idx:
             sq[i] = self._sq_error(fastpath.SPLITS[i], w)
         return sq

@@ -139,7 +139,7 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
                            f"by iteration {state.iteration}")
                 break
     info = _problem_info(problem)
-    info["evaluation"] = dict(fastpath.describe(train, stats), prepare_seconds=t_prep)
+    info["evaluation"] = dict(fastpath.describe(train, stats), prepare_seconds=t_prep, fallbacks=rec.fallbacks)
     return Trace(columns=rec.result(), status=status, message=message, problem_info=info)
 
 
