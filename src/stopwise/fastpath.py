@@ -38,12 +38,13 @@ against the spectral-filter closed form of gradient descent).
 Which path a run takes is a deterministic function of the array shapes (``choose_gradient_path``
 and ``statistics_splits``), so a rerun of a run, on any machine, takes the same path.
 
-Caching: the training Gram matrix lives on the Problem's :class:`~stopwise.problem.TrainingSet`
-(the solver may see it, it is made of training rows only); validation and test statistics
-live on the :class:`~stopwise.problem.Problem` (only the recorder reads them). Both are
-computed once per problem per process, on first use, and shared by every run on that
-problem. Plans are read-only after construction and allocate their scratch per call, so
-concurrent runs in threads may share them.
+Caching: Gram matrices, compressed rows and the stacked statistics are kept on the
+:class:`~stopwise.problem.Problem` (only the recorder reads the validation and test ones);
+the gradient plan is attached to the problem's :class:`~stopwise.problem.TrainingSet` and
+holds the training Gram matrix only, so a solver still sees nothing but training rows.
+Everything is computed once per problem per process, on first use, and shared by every
+run on that problem. Plans and statistics are read-only after construction and plans
+allocate their scratch per call, so concurrent runs in threads may share them.
 """
 from __future__ import annotations
 
@@ -64,7 +65,6 @@ BLOCK_BYTES = 2**20              # one row block fits in a core's L2 cache (meas
 GUARD = 1e-3                     # Gram-form errors below GUARD * scale are recomputed from compressed rows
 
 _PLAN = "_gradient_plan"
-_STATS = "_split_statistics"
 
 
 class PathError(ValueError):
