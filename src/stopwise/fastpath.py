@@ -61,7 +61,7 @@ SPLITS = ("train", "val", "test")
 
 GRAM_MAX_BYTES = 256 * 2**20     # no Gram matrix (of all splits together) above this size
 BLOCKED_MIN_BYTES = 4 * 2**20    # below this X stays in cache and the direct path is as fast
-BLOCK_BYTES = 2**20              # one row block fits in a core's L2 cache (measured best of 256K..2M)
+BLOCK_BYTES = 2**20              # about a core's L2 cache (1 MiB here); measured best of 256 KiB..2 MiB
 GUARD = 1e-3                     # Gram-form errors below GUARD * scale are recomputed from compressed rows
 
 _PLAN = "_gradient_plan"
