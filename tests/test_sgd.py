@@ -51,10 +51,18 @@ def spectral_filter_iterate(X, y, eta, t):
 
 def test_batch_n_with_epoch_sampling_is_full_batch_gradient_descent():
     """Batch size n, epoch sampling: every step uses all rows once, so the iterates equal
-    full-batch gradient descent (the gd solver, and the spectral-filter closed form)."""
+    full-batch gradient descent (the gd solver, and the spectral-filter closed form). The
+    step uses the identity that a batch of all rows in any order is the full gradient:
+    checked here on the rows in a shuffled order (numpy's plain formula on permuted rows)."""
     p = problem("diabetes")
     tr = p.training
     n = p.n_train
+    rng = np.random.default_rng(4)
+    for _ in range(3):
+        w, perm = rng.standard_normal(p.d), rng.permutation(n)
+        Xp, yp = p.X_train[perm], p.y_train[perm]
+        np.testing.assert_allclose(stopwise.minibatch_gradient(tr, w, perm), Xp.T @ (Xp @ w - yp) / n, rtol=1e-13)
+        np.testing.assert_allclose(Xp.T @ (Xp @ w - yp) / n, tr.gradient(w), rtol=1e-12)
     sp = params(batch=float(n), sampling="epochs", step_scale=1.0)
     st, ws = iterates(tr, sp, 40)
     gd = get_solver("gd")
@@ -131,6 +139,23 @@ def test_step_schedules_match_a_plain_numpy_loop(schedule, kw, factor):
     rows = [order[t * b:(t + 1) * b] for t in range(steps)]
     etas = [eta0 * factor(t, b, n) for t in range(steps)]
     np.testing.assert_allclose(st.w, _numpy_sgd(X, y, rows, etas), rtol=1e-12, atol=1e-13)
+
+
+def test_minibatch_gradient_of_a_loss_without_a_specialised_form(monkeypatch):
+    """The generic fall back (the loss's full gradient on the selected rows) gives the
+    textbook minibatch gradient X_B^T (X_B w - y_B) / |B| (numpy), repeated rows counted."""
+    from stopwise import losses
+
+    p = problem("wellposed")
+    w = np.random.default_rng(0).standard_normal(p.d)
+    rows = np.array([3, 7, 7, 100, 5])
+    Xb, yb = p.X_train[rows], p.y_train[rows]
+    ref = Xb.T @ (Xb @ w - yb) / len(rows)
+    np.testing.assert_allclose(stopwise.minibatch_gradient(p.training, w, rows), ref, rtol=1e-13)
+    monkeypatch.delitem(losses.MINIBATCH_GRADIENTS, "squares")
+    np.testing.assert_allclose(stopwise.minibatch_gradient(p.training, w, rows), ref, rtol=1e-13)
+    np.testing.assert_allclose(stopwise.minibatch_gradient(p.training, w, slice(2, 9)),
+                               p.X_train[2:9].T @ (p.X_train[2:9] @ w - p.y_train[2:9]) / 7, rtol=1e-13)
 
 
 def test_epochs_visit_every_row_once_per_pass_and_replacement_draws_are_uniform():

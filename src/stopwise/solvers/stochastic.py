@@ -18,7 +18,9 @@ a sequence of blocks of ``n`` indices, block ``k`` being
 ``replacement``  ``n`` indices drawn uniformly with replacement
 ``cyclic``       ``0, 1, ..., n-1`` in stored row order (no randomness)
 
-so a batch may straddle two blocks and every step takes exactly ``b`` rows. Block ``k``
+so a batch may straddle two blocks and every step takes exactly ``b`` rows. A batch of all
+``n`` rows without replacement is the full gradient whatever the order, and is computed
+as such (through the evaluation paths of :mod:`stopwise.fastpath`). Block ``k``
 is drawn from its own generator seeded with ``(key, k)``, where ``key`` is drawn once from
 the run's generator at ``init`` and kept in the state: the sample order depends only on
 the run's seed and the training-set size (the data spec), not on the step size, the
@@ -204,8 +206,15 @@ def sgd_step(train: TrainingSet, params: SGDParams, state: SGDState) -> SGDState
     """
     n = train.n
     t, b = state.iteration, state.batch
-    rows, blk, k, pos = next_rows(state, n, params.sampling)
-    g = minibatch_gradient(train, state.w, rows)
+    if b == n and params.sampling != "replacement":
+        # every step is one whole pass over the rows: the full gradient, in any order, so it
+        # is evaluated as such (through the training set's fast paths); the stream moves on
+        # by one block without drawing it
+        g = train.gradient(state.w)
+        blk, k, pos = None, state.block_index + 1, n
+    else:
+        rows, blk, k, pos = next_rows(state, n, params.sampling)
+        g = minibatch_gradient(train, state.w, rows)
     g *= -state.eta0 * schedule_factor(params, t, b, n)
     g += state.w
     return SGDState(w=frozen(g), iteration=t + 1, passes=(t + 1) * b / n, key=state.key, block=blk,
