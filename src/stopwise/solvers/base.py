@@ -91,9 +91,14 @@ class Choice:
         return "no-such-choice"
 
 
-def param(default: Any, constraint: Interval | Choice | None = None, doc: str = "") -> Any:
-    """Declare a params field with its constraint and one-line doc, readable by tests."""
-    return field(default=default, metadata={"constraint": constraint, "doc": doc})
+def param(default: Any, constraint: Interval | Choice | None = None, doc: str = "",
+          omit_default: bool = False) -> Any:
+    """Declare a params field with its constraint and one-line doc, readable by tests.
+
+    ``omit_default``: a normalized config leaves the field out while it has its default, so
+    adding the field to an existing params class keeps existing run identities unchanged.
+    """
+    return field(default=default, metadata={"constraint": constraint, "doc": doc, "omit_default": omit_default})
 
 
 class ParamError(ValueError):
@@ -135,7 +140,12 @@ def make_params(cls: type, values: dict[str, Any], owner: str):
 
 @dataclass(frozen=True)
 class SolverDef:
-    """A registered solver: its params class, init and step, and how it spends work."""
+    """A registered solver: its params class, init and step, and how it spends work.
+
+    ``loss`` is the training loss the solver is built for (None: it follows the dataset's
+    loss option or the task's default). ``model(params, train)`` returns the prediction
+    model its iterates parameterize (None: linear scores ``X w``, see stopwise.models).
+    """
 
     name: str
     params: type
@@ -144,6 +154,8 @@ class SolverDef:
     summary: str
     tasks: tuple[str, ...] = ("regression",)
     stochastic: bool = False
+    loss: str | None = None
+    model: Callable[[Any, TrainingSet], Any] | None = None
 
 
 SOLVERS: dict[str, SolverDef] = {}
