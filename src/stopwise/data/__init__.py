@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import json
 from collections import OrderedDict
-from dataclasses import asdict
+from dataclasses import asdict, fields
 from typing import Any
 
 import numpy as np
@@ -25,17 +25,56 @@ def get_source(name: str) -> SourceDef:
         raise DataError(f"unknown dataset source {name!r}; valid: {', '.join(sorted(SOURCES))}") from None
 
 
+def _omitted(params: Any, name: str, value: Any) -> bool:
+    f = next(f for f in fields(params) if f.name == name)
+    return bool(f.metadata.get("omit_default")) and value == f.default
+
+
 def normalize_dataset(cfg: dict[str, Any]) -> dict[str, Any]:
     """Validate a dataset config and return it with typed, defaulted source params."""
     src = get_source(cfg.get("source"))
     try:
         params = make_params(src.params, dict(cfg.get("params") or {}), f"dataset.params ({src.name})")
-    except ParamError as e:
+        task = src.check(params) if src.check is not None else None
+    except ValueError as e:
         raise DataError(str(e)) from None
     out = dict(cfg)
-    out["params"] = asdict(params)
+    out["params"] = {k: v for k, v in asdict(params).items() if not _omitted(params, k, v)}
     out["features"] = list(cfg["features"]) if cfg.get("features") is not None else None
+    # Classification options; left out of the normalized config at their defaults, so the
+    # identity of every run that does not use them is unchanged.
+    loss = out.pop("loss", None)
+    if loss is not None:
+        from ..losses import LOSS_NAMES
+
+        from ..losses import DEFAULT_LOSS, TASK_LOSSES
+
+        if loss not in LOSS_NAMES:
+            raise DataError(f"dataset.loss={loss!r} is invalid: must be one of {', '.join(LOSS_NAMES)} "
+                            "(or null for the task's default)")
+        if task is not None and loss not in TASK_LOSSES[task]:
+            raise DataError(f"dataset.loss={loss!r} does not apply to {cfg.get('name')!r}, a {task} problem; "
+                            f"valid: {', '.join(TASK_LOSSES[task])}")
+        if task is None or loss != DEFAULT_LOSS[task]:  # the task's default is implied
+            out["loss"] = loss
+    add_constant = out.pop("add_constant", False)
+    if add_constant not in (True, False):
+        raise DataError(f"dataset.add_constant={add_constant!r} is invalid: must be true or false")
+    if add_constant:
+        out["add_constant"] = True
     return out
+
+
+def dataset_task(dataset: dict[str, Any]) -> str | None:
+    """The task of a (normalized) dataset config when its source can tell without loading
+    data (regression / binary / multiclass), else None."""
+    src = get_source(dataset.get("source"))
+    if src.check is None:
+        return None
+    try:
+        return src.check(make_params(src.params, dict(dataset.get("params") or {}), "dataset.params"))
+    except ValueError:
+        return None
 
 
 def _noise(raw: RawData, parts: list[np.ndarray]) -> list[np.ndarray]:
@@ -91,17 +130,30 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
         if w_true is not None:
             w_true = w_true * sd_safe
         prep["standardize"] = {"mean": mu.tolist(), "scale": sd_safe.tolist()}
+    if dataset.get("add_constant", False):
+        # a column of ones after standardization: a bias that the solvers treat as a weight
+        Xs = [np.hstack([x, np.ones((x.shape[0], 1))]) for x in Xs]
+        names = tuple(names) + ("const",)
+        if w_true is not None:
+            w_true = np.append(w_true, 0.0)
+        prep["add_constant"] = True
     if raw.task == "regression" and dataset.get("center_target", True):
         ybar = float(ys[0].mean())
         ys = [y - ybar for y in ys]
         prep["center_target"] = {"mean": ybar}
     noise_kind = None if raw.noise == "none" else raw.noise
+    from ..losses import LossError, check_loss
+
+    try:
+        check_loss(raw.task, dataset.get("loss"))
+    except LossError as e:
+        raise DataError(f"dataset {dataset.get('name')!r}: {e}") from None
     return Problem(
         name=str(dataset.get("name") or dataset["source"]), task=raw.task,
         X_train=Xs[0], y_train=ys[0], X_val=Xs[1], y_val=ys[1], X_test=Xs[2], y_test=ys[2],
         w_true=None if w_true is None else np.array(w_true, dtype=np.float64),
         noise_level=None if noise_kind is None else raw.noise_level, noise_kind=noise_kind,
-        feature_names=tuple(names), preprocessing=prep,
+        feature_names=tuple(names), preprocessing=prep, loss=dataset.get("loss"),
         info=dict(raw.info, rows={"train": tr.tolist(), "val": va.tolist(), "test": te.tolist()}),
     )
 
