@@ -21,12 +21,25 @@ METRIC_SETS: list[Callable[[Problem], dict[str, Callable[[np.ndarray], float]]]]
 
 
 class Recorder:
-    def __init__(self, problem: Problem, capacity: int = 256):
+    """Records iterates of one run. Regression problems get squared errors; classification
+    problems (``problem.task`` binary or multiclass) get the columns of
+    :class:`stopwise.classify.ClassificationMetrics` for the run's ``loss`` and ``model``
+    (default: the problem's loss and a linear model)."""
+
+    def __init__(self, problem: Problem, capacity: int = 256, loss: str | None = None, model=None):
         self.problem = problem
+        self._cls = None
+        self.info: dict = {}
+        if problem.task != "regression":
+            from .classify import ClassificationMetrics
+
+            self._cls = ClassificationMetrics(problem, loss or problem.objective, model)
+            self.info = self._cls.info
         self._extras: dict[str, Callable[[np.ndarray], float]] = {}
         for make in METRIC_SETS:
             self._extras.update(make(problem) or {})
-        self.columns = BASE_COLUMNS + tuple(self._extras)
+        cls_cols = self._cls.columns if self._cls is not None else ()
+        self.columns = BASE_COLUMNS + cls_cols + tuple(self._extras)
         self._cap = max(int(capacity), 1)
         self._data = {c: np.empty(self._cap, dtype=np.int64 if c == "iteration" else np.float64)
                       for c in self.columns}
@@ -48,6 +61,8 @@ class Recorder:
         """Write one row for iterate ``w``; returns the training objective."""
         if self.size == self._cap:
             self._grow()
+        if self._cls is not None:
+            return self._record_classification(iteration, passes, seconds, w)
         p, i, col = self.problem, self.size, self._data
         sq = self._sq_error("train", w)
         n = p.n_train
@@ -69,6 +84,23 @@ class Recorder:
             col[name][i] = fn(w)
         self.size += 1
         return sq / (2 * n)
+
+    def _record_classification(self, iteration: int, passes: float, seconds: float, w: np.ndarray) -> float:
+        p, i, col = self.problem, self.size, self._data
+        col["iteration"][i] = iteration
+        col["passes"][i] = passes
+        col["seconds"][i] = seconds
+        loss = self._cls.fill(col, i, w)
+        col["w_norm"][i] = math.sqrt(float(w @ w))
+        if p.w_true is not None and p.w_true.shape == w.shape:
+            d = w - p.w_true
+            col["dist_truth"][i] = math.sqrt(float(d @ d))
+        else:
+            col["dist_truth"][i] = math.nan
+        for name, fn in self._extras.items():
+            col[name][i] = fn(w)
+        self.size += 1
+        return loss
 
     def _grow(self) -> None:
         self._cap *= 2
