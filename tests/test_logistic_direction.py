@@ -98,23 +98,51 @@ def test_generated_problem_direction():
 @pytest.mark.parametrize("make", [iris_setosa_versicolor, separable_gaussian])
 def test_normalized_steps_are_faster(make):
     # Nacson et al. 2019 / Ji and Telgarsky 2021: steps divided by the loss converge in
-    # direction far faster than fixed steps; momentum on them faster still (Ji, Srebro,
-    # Telgarsky 2021). Reference direction and margin from SciPy SLSQP.
+    # direction far faster than fixed steps (rate ~1/t against 1/log t); momentum on them
+    # faster still (Ji, Srebro, Telgarsky 2021). Reference direction and margin: SciPy SLSQP.
     X, y = make()
     w_qp = slsqp_hard_margin(X, y)
     u, gamma = w_qp / np.linalg.norm(w_qp), 1 / np.linalg.norm(w_qp)
     tr = logistic_set(X, y)
-    fixed = checkpoints(tr, "gd", {10**4}, step_scale=1.0)[10**4]
-    norm_loss = checkpoints(tr, "gd_normalized", {1000}, normalize="loss")[1000]
-    norm_grad = checkpoints(tr, "gd_normalized", {1000}, normalize="gradient")[1000]
+    ts = {1000, 10**4}
+    fixed = checkpoints(tr, "gd", ts, step_scale=1.0)
+    norm_loss = checkpoints(tr, "gd_normalized", ts, normalize="loss")
+    norm_grad = checkpoints(tr, "gd_normalized", ts, normalize="gradient")
+    # the rates: a decade of iterations divides the distance by about 10 with normalized
+    # steps, and by far less than 2 with a fixed step
+    assert dist(fixed[10**4], u) > dist(fixed[1000], u) / 2
+    for run in (norm_loss, norm_grad):
+        assert dist(run[10**4], u) < dist(run[1000], u) / 5
+        assert dist(run[10**4], u) < dist(fixed[10**4], u) / 5
     nest = checkpoints(tr, "nesterov_normalized", {1000}, normalize="loss")[1000]
-    assert dist(norm_loss, u) < dist(fixed, u) / 10 and dist(norm_loss, u) < 5e-3
-    assert dist(norm_grad, u) < dist(fixed, u) / 10
-    assert dist(nest, u) < 1e-4
-    assert gamma - normalized_margin(X, y, norm_loss) < 2e-3
-    assert abs(gamma - normalized_margin(X, y, nest)) < 1e-4
+    assert dist(nest, u) < 1e-3
+    fixed, norm_loss = fixed[10**4], norm_loss[10**4]
+    assert gamma - normalized_margin(X, y, norm_loss) < 5e-3
+    assert abs(gamma - normalized_margin(X, y, nest)) < 5e-4
     assert gamma - normalized_margin(X, y, fixed) > 1e-2
-    assert np.all(np.isfinite(nest)) and tr.value(nest) == 0.0  # the loss underflowed; steps stayed exact
+    # momentum drives the loss below what float64 holds; the log-domain steps stay exact
+    late = checkpoints(tr, "nesterov_normalized", {3000}, normalize="loss")[3000]
+    assert tr.value(late) == 0.0 and dist(late, u) < dist(nest, u)
+
+
+def test_loss_normalized_step_descends_log_loss():
+    # normalize = loss is gradient descent on log f, which is R^2-smooth (R = max_i ||x_i||,
+    # since sigma'(q) <= log(1 + e^-q)); with step 1/R^2 the descent lemma (Nesterov 2004,
+    # Thm 2.1.5) gives log f(w_{t+1}) <= log f(w_t) - ||grad log f||^2 / (2 R^2)
+    from stopwise.losses import logistic_log_gradient
+
+    X, y = separable_gaussian()
+    tr = logistic_set(X, y)
+    R2 = float(np.max(np.sum(X * X, axis=1)))
+    sd = get_solver("gd_normalized")
+    p = sd.params(normalize="loss")
+    st = sd.init(tr, p, None)
+    for _ in range(2000):
+        logf, g = logistic_log_gradient(X, y, st.w)
+        nxt = sd.step(tr, p, st)
+        assert np.allclose(nxt.w, st.w - g / R2, rtol=1e-12, atol=1e-12)
+        assert logistic_log_gradient(X, y, nxt.w)[0] <= logf - (g @ g) / (2 * R2) + 1e-9 * abs(logf)
+        st = nxt
 
 
 def test_schedule_special_cases():
@@ -124,9 +152,9 @@ def test_schedule_special_cases():
     a = checkpoints(tr, "gd", {30}, step_scale=0.7)[30]
     b = checkpoints(tr, "gd_normalized", {30}, step_scale=0.7, normalize="none", power=0.0)[30]
     assert np.array_equal(a, b)
-    # normalize = loss: w_{t+1} = w_t - (s/L) (t+1)^p grad f / f, written out in plain numpy
+    # normalize = loss: w_{t+1} = w_t - (s/R^2) (t+1)^p grad f / f, written out in plain numpy
     w = np.zeros(5)
-    eta = 0.5 / tr.L
+    eta = 0.5 / np.max(np.sum(X * X, axis=1))
     for t in range(40):
         q = y * (X @ w)
         f = np.mean(np.log1p(np.exp(-q)))

@@ -6,11 +6,15 @@ Public API::
     load_problem(overrides)           the Problem (arrays, truth, noise, L) a run sees
     load_traces(root, campaign=None, **filters)   every recorded iterate as a DataFrame
     load_runs(root, campaign=None)    one row per stored run
+    hard_margin(X, y)                 separability (LP) and the hard-margin SVM of a binary problem
 """
 from __future__ import annotations
 
 __version__ = "0.1.0"
 
+from .losses import LOSSES, get_loss  # noqa: E402
+from .margins import HardMargin, hard_margin, is_separable, normalized_margin  # noqa: E402
+from .models import LinearModel, TwoLayerReLU  # noqa: E402
 from .problem import Problem, TrainingSet  # noqa: E402
 from .query import load_runs, load_traces  # noqa: E402
 from .runner import RunOutcome, execute, run  # noqa: E402
@@ -32,4 +36,6 @@ def load_problem(overrides: list[str] | None = None) -> Problem:
 
 
 __all__ = ["Problem", "TrainingSet", "RunOutcome", "RunSpec", "SpecError", "SOLVERS", "execute",
-           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides"]
+           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides",
+           "LOSSES", "get_loss", "HardMargin", "hard_margin", "is_separable", "normalized_margin",
+           "LinearModel", "TwoLayerReLU"]

@@ -49,13 +49,14 @@ class ClassificationMetrics:
             self._score[s] = self.model.scorer(X)
             self._y[s] = y
             self._c[s] = class_index(y) if self.multi else None
-        self._q = np.empty(problem.n_train)
+        self._qbuf = {s: np.empty(self._y[s].shape[0]) for s in SPLITS}
         self.ref = None
         self._u = None
         self.info: dict = {"loss": loss}
         if problem.task == "binary" and isinstance(self.model, LinearModel):
             self.ref = reference(problem)
-            self.info.update(separable=self.ref.separable, svm_method=self.ref.method)
+            self.info.update(separable=None if self.ref.info.get("skipped") else self.ref.separable,
+                             svm_method=self.ref.method)
             if self.ref.separable:
                 self._u = self.ref.direction
                 self.info.update(svm_margin=self.ref.margin, svm_norm=float(np.linalg.norm(self.ref.w)),
@@ -63,39 +64,37 @@ class ClassificationMetrics:
                                  svm_w=self.ref.w.tolist())
                 self._v = np.empty(problem.d)
 
-    def _split(self, split: str, w: np.ndarray) -> tuple[float, float, np.ndarray]:
-        """(loss, error, scores) of one split; scores live in the split's buffer."""
+    def _split(self, split: str, w: np.ndarray) -> tuple[float, float, np.ndarray, np.ndarray]:
+        """(loss, error, scores, margins) of one split; binary scores and margins live in
+        preallocated buffers."""
         y = self._y[split]
         if y.shape[0] == 0:
-            return math.nan, math.nan, np.empty(0)
+            return math.nan, math.nan, np.empty(0), np.empty(0)
         s = self._score[split](w)
         loss = value_from_scores(self.loss, s, y, self._c[split])
         if s.ndim == 1:
-            err = float(np.count_nonzero(y * s <= 0.0)) / y.shape[0]
+            q = np.multiply(y, s, out=self._qbuf[split])
         else:
-            err = float(np.count_nonzero(multiclass_margins(s, self._c[split]) <= 0.0)) / y.shape[0]
-        return loss, err, s
+            q = multiclass_margins(s, self._c[split])
+        err = float(np.count_nonzero(q <= 0.0)) / y.shape[0]
+        return loss, err, s, q
 
     def fill(self, col: dict, i: int, w: np.ndarray) -> float:
         """Write row ``i`` of the classification columns for iterate ``w``; returns the
         training objective."""
-        loss, err, s = self._split("train", w)
+        loss, err, s, q = self._split("train", w)
         col["train_loss"][i] = loss
         col["train_error"][i] = err
         nw = math.sqrt(float(w @ w))
-        if s.ndim == 1:
-            q = np.multiply(self._y["train"], s, out=self._q)
-            qmin = float(q.min()) if q.size else math.nan
-        else:
-            qmin = float(multiclass_margins(s, self._c["train"]).min())
+        qmin = float(q.min()) if q.size else math.nan
         col["margin"][i] = qmin / nw ** self.degree if nw > 0 else math.nan
         if self.loss == "squares":
             r = s - self._y["train"]
             col["residual_norm"][i] = math.sqrt(float(r @ r))
         else:
             col["residual_norm"][i] = math.nan
-        col["val_loss"][i], col["val_error"][i], _ = self._split("val", w)
-        col["test_loss"][i], col["test_error"][i], _ = self._split("test", w)
+        col["val_loss"][i], col["val_error"][i], _, _ = self._split("val", w)
+        col["test_loss"][i], col["test_error"][i], _, _ = self._split("test", w)
         angle = dist = math.nan
         if self._u is not None:
             if self.multi:

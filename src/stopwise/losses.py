@@ -36,7 +36,7 @@ from __future__ import annotations
 from typing import Callable, NamedTuple
 
 import numpy as np
-from scipy.special import expit, logsumexp
+from scipy.special import expit
 
 from .problem import TrainingSet
 
@@ -102,14 +102,25 @@ def _log_softplus(r: np.ndarray) -> np.ndarray:
     return out
 
 
+def logsumexp_rows(S: np.ndarray) -> np.ndarray:
+    """``log sum_j exp(S_ij)`` per row (max-shifted; ``-inf`` entries allowed), a new array."""
+    m = S.max(axis=1)
+    T = S - m[:, None]
+    np.exp(T, out=T)
+    out = np.log(T.sum(axis=1))
+    out += m
+    return out
+
+
 def multiclass_margins(S: np.ndarray, c: np.ndarray) -> np.ndarray:
-    """``q_i = S_{i c_i} - max_{j != c_i} S_ij`` (a new array)."""
+    """``q_i = S_{i c_i} - max_{j != c_i} S_ij`` (a new array; ``S`` is restored)."""
     rows = np.arange(S.shape[0])
-    own = S[rows, c].copy()
+    own = S[rows, c]
     S[rows, c] = -np.inf
     other = S.max(axis=1)
     S[rows, c] = own
-    return own - other
+    own -= other
+    return own
 
 
 def value_from_scores(loss: str, s: np.ndarray, y: np.ndarray, c: np.ndarray | None = None) -> float:
@@ -126,7 +137,7 @@ def value_from_scores(loss: str, s: np.ndarray, y: np.ndarray, c: np.ndarray | N
         return float(np.maximum(0.0, 1.0 - y * s).sum()) / n
     if loss == "softmax":
         c = class_index(y) if c is None else c
-        return float((logsumexp(s, axis=1) - s[np.arange(n), c]).sum()) / n
+        return float((logsumexp_rows(s) - s[np.arange(n), c]).sum()) / n
     raise LossError(f"loss {loss!r} is unknown; valid: {', '.join(LOSS_NAMES)}")
 
 
@@ -210,28 +221,46 @@ def softmax_gradient(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 2) ->
 
 # ---------------------------------------------------------------- gradient of log f (normalized steps)
 
+# Below this summed loss the plain formulas would lose the relative accuracy of their
+# smallest terms to underflow; the log-domain formulas take over.
+_TINY_LOSS = 1e-200
+
+
 def logistic_log_gradient(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 1) -> tuple[float, np.ndarray]:
-    """``(log f(w), grad f(w) / f(w))`` computed in the log domain, so that it stays exact
-    when every margin is large and f itself underflows to 0."""
+    """``(log f(w), grad f(w) / f(w))``; exact also when every margin is large and f itself
+    underflows to 0 (then computed in the log domain, with the loss and the gradient
+    weights scaled by the largest row loss)."""
     q = X @ w
     q *= y
+    n = max(X.shape[0], 1)
+    losses_ = np.logaddexp(0.0, -q)      # l_i = softplus(-q_i)
+    total = float(losses_.sum())
+    if total > _TINY_LOSS:
+        np.negative(q, out=q)
+        expit(q, out=q)                  # sigma(-q_i)
+        q *= y
+        g = X.T @ q
+        g *= -1.0 / total
+        return float(np.log(total / n)), g
     log_l = _log_softplus(-q)            # log l_i
     m = float(log_l.max())
-    log_s = -np.logaddexp(0.0, q)        # log sigma(-q_i)
-    coef = np.exp(log_s - m)
+    coef = losses_
+    np.logaddexp(0.0, q, out=coef)       # -log sigma(-q_i)
+    coef += m
+    np.negative(coef, out=coef)
+    np.exp(coef, out=coef)
     coef *= y
     g = X.T @ coef
     f = float(np.exp(log_l - m).sum())
     g *= -1.0 / f
-    return m + float(np.log(f / max(X.shape[0], 1))), g
+    return m + float(np.log(f / n)), g
 
 
 def softmax_log_gradient(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 2) -> tuple[float, np.ndarray]:
-    """``(log f(W), vec(grad f(W)) / f(W))`` in the log domain (see :func:`logistic_log_gradient`).
-
-    With ``d_ij = S_ij - S_{i c_i}`` and ``r_i = log sum_{j != c_i} exp(d_ij)``, the row loss is
-    ``softplus(r_i)`` and its score gradient is ``exp(d_ij - softplus(r_i))`` off the label and
-    ``-exp(r_i - softplus(r_i))`` on it.
+    """``(log f(W), vec(grad f(W)) / f(W))``, exact also when f underflows (see
+    :func:`logistic_log_gradient`). In the log domain, with ``d_ij = S_ij - S_{i c_i}`` and
+    ``r_i = log sum_{j != c_i} exp(d_ij)``, the row loss is ``softplus(r_i)`` and its score
+    gradient is ``exp(d_ij - softplus(r_i))`` off the label and ``-exp(r_i - softplus(r_i))`` on it.
     """
     S = _scores(X, w, k)
     n = S.shape[0]
@@ -239,8 +268,16 @@ def softmax_log_gradient(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 2
     c = class_index(y)
     S -= S[rows, c][:, None]
     S[rows, c] = -np.inf
-    r = logsumexp(S, axis=1)
+    r = logsumexp_rows(S)
     sp = np.logaddexp(0.0, r)
+    total = float(sp.sum())
+    if total > _TINY_LOSS:
+        S -= sp[:, None]
+        np.exp(S, out=S)
+        S[rows, c] = -np.exp(r - sp)
+        G = X.T @ S
+        G /= total
+        return float(np.log(total / max(n, 1))), G.ravel()
     log_l = _log_softplus(r)
     m = float(log_l.max())
     S -= (sp + m)[:, None]

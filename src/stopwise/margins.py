@@ -21,6 +21,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 SVM_C = 1e6
+# Above this many training rows the reference is skipped (SVC's cost grows quadratically or
+# worse in the rows); the trace metadata then says so and the svm_* columns are NaN.
+REFERENCE_MAX_ROWS = 10_000
 
 
 @dataclass(frozen=True)
@@ -91,6 +94,10 @@ def reference(problem) -> HardMargin | None:
     if problem.task != "binary":
         return None
     hit = problem.__dict__.get("_hard_margin")
+    if hit is None and problem.n_train > REFERENCE_MAX_ROWS:
+        hit = HardMargin(separable=False, method=f"skipped: more than {REFERENCE_MAX_ROWS} training rows",
+                         info={"skipped": True})
+        problem.__dict__["_hard_margin"] = hit
     if hit is None:
         hit = hard_margin(problem.X_train, problem.y_train)
         problem.__dict__["_hard_margin"] = hit

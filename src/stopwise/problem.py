@@ -46,6 +46,15 @@ class TrainingSet:
         return value(self, w)
 
     @property
+    def row_norm_max2(self) -> float:
+        """``R^2 = max_i ||x_i||^2`` (computed once per training set)."""
+        hit = self.__dict__.get("_row_norm_max2")
+        if hit is None:
+            hit = float(np.einsum("ij,ij->i", self.X, self.X).max()) if self.X.size else 0.0
+            object.__setattr__(self, "_row_norm_max2", hit)
+        return hit
+
+    @property
     def n(self) -> int:
         return self.X.shape[0]
 

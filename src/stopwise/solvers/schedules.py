@@ -5,7 +5,7 @@ converges to the hard-margin direction only at rate 1 / log t (Soudry, Hoffer, N
 Gunasekar, Srebro, JMLR 19, 2018), because the gradient vanishes like the loss. Steps that
 grow to compensate are much faster in direction:
 
-    w_{t+1} = w_t - (s / L) (t + 1)^p  G_t,
+    w_{t+1} = w_t - (s / L') (t + 1)^p  G_t,
 
     G_t = grad f / f = grad log f      normalize = "loss"      (Nacson, Lee, Gunasekar, Savarese,
                                        Srebro, Soudry, AISTATS 2019, take p = -1/2 and prove
@@ -13,6 +13,12 @@ grow to compensate are much faster in direction:
                                        Ji and Telgarsky, ALT 2021, take p = 0)
     G_t = grad f / ||grad f||          normalize = "gradient"  (normalized gradient descent)
     G_t = grad f                       normalize = "none"      (p > 0: increasing steps)
+
+With normalize = "loss" the step is gradient descent on ``log f``, and the unit ``L'`` is a
+smoothness constant of ``log f``: ``R^2 = max_i ||x_i||^2`` for the logistic loss (``2 R^2`` for
+softmax; see :func:`log_smoothness`), which makes ``s <= 1`` the step that Ji and Telgarsky
+analyse for rows of norm at most 1. normalize = "gradient" uses the same unit; normalize =
+"none" uses the loss's own ``L`` as gradient descent does.
 
 The wrapper hands the base step a training set whose ``gradient`` returns ``(t + 1)^p G_t``
 computed in one pass at the point where the base method evaluates its gradient (for
@@ -59,6 +65,17 @@ class ScheduledTrainingSet(TrainingSet):
         return g
 
 
+def log_smoothness(train: TrainingSet) -> float:
+    """Step unit of the normalized schedules: a smoothness constant of ``log f``.
+
+    For the logistic loss ``grad^2 f <= f R^2`` with ``R = max_i ||x_i||`` (because
+    ``sigma'(q) <= log(1 + exp(-q))``), so ``grad^2 log f <= grad^2 f / f <= R^2``; for softmax the
+    row Hessian is bounded by twice the row loss, giving ``2 R^2``. Other losses use ``R^2``
+    as a scale.
+    """
+    return (2.0 if train.loss == "softmax" else 1.0) * train.row_norm_max2
+
+
 def _schedule_fields() -> list[tuple[str, Any, Any]]:
     return [
         ("normalize", "str", param("loss", Choice(NORMALIZE),
@@ -84,7 +101,8 @@ def scheduled(base_name: str, name: str, summary: str) -> SolverDef:
         return base.init(train, base_params(params), rng)
 
     def step(train: TrainingSet, params, state: State) -> State:
-        st = ScheduledTrainingSet(X=train.X, y=train.y, L=train.L, task=train.task, loss=train.loss, k=train.k,
+        L = train.L if params.normalize == "none" else log_smoothness(train)
+        st = ScheduledTrainingSet(X=train.X, y=train.y, L=L, task=train.task, loss=train.loss, k=train.k,
                                   normalize=params.normalize, power=params.power, t=state.iteration)
         return base.step(st, base_params(params), state)
 
