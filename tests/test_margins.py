@@ -144,3 +144,15 @@ def test_cli_bad_input_writes_nothing(tmp_path, capsys):
     err = capsys.readouterr().err.strip()
     assert rc == 2 and err.startswith("stopwise: error: ") and "\n" not in err
     assert not (tmp_path / "r").exists()
+
+
+def test_reference_skipped_above_the_row_limit(monkeypatch):
+    from stopwise import margins
+
+    X, y = separable_gaussian(n=60)
+    monkeypatch.setattr(margins, "REFERENCE_MAX_ROWS", 20)
+    p = _problem(X, y)
+    rec = Recorder(p)
+    rec.record(0, 0.0, 0.0, np.ones(X.shape[1]))
+    assert rec.info["separable"] is None and "skipped" in rec.info["svm_method"]
+    assert math.isnan(rec.result()["svm_dist"][0]) and not math.isnan(rec.result()["margin"][0])

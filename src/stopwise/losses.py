@@ -57,7 +57,11 @@ class LossError(ValueError):
 
 
 def check_loss(task: str, loss: str | None) -> str:
-    """The loss a problem of ``task`` trains: ``loss`` when given and valid, else the default."""
+    """The loss a problem of ``task`` trains: ``loss`` when given and valid, else the default.
+
+    >>> check_loss("binary", None), check_loss("binary", "hinge")
+    ('logistic', 'hinge')
+    """
     if loss is None:
         return DEFAULT_LOSS[task]
     if loss not in LOSS_NAMES:

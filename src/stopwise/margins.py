@@ -78,7 +78,15 @@ def hard_margin_svm(X: np.ndarray, y: np.ndarray, C: float = SVM_C) -> np.ndarra
 
 
 def hard_margin(X: np.ndarray, y: np.ndarray) -> HardMargin:
-    """Separability by LP, then, when separable, the hard-margin solution by SVC."""
+    """Separability by LP, then, when separable, the hard-margin solution by SVC.
+
+    >>> X = np.array([[2.0, 0.0], [0.0, 1.0], [-1.0, 0.0]]); y = np.array([1.0, 1.0, -1.0])
+    >>> r = hard_margin(X, y)
+    >>> r.separable, np.round(r.w, 4).tolist(), round(r.margin, 4)
+    (True, [1.0, 1.0], 0.7071)
+    >>> hard_margin(np.array([[1.0], [1.0]]), np.array([1.0, -1.0])).separable
+    False
+    """
     if not is_separable(X, y):
         return HardMargin(separable=False, method="linprog (HiGHS) feasibility: infeasible")
     w = hard_margin_svm(X, y)

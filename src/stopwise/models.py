@@ -41,6 +41,14 @@ class LinearModel:
 
 
 class TwoLayerReLU:
+    """``f(x) = sum_j a_j max(0, <u_j, x>)``, homogeneous of degree 2 in theta.
+
+    >>> m = TwoLayerReLU(d=2, width=2)
+    >>> theta = np.array([1.0, 0.0, 0.0, 1.0, 2.0, -1.0])  # u_1 = e_1, u_2 = e_2, a = (2, -1)
+    >>> m.scores(np.array([[3.0, 1.0], [-1.0, 2.0]]), theta).tolist()
+    [5.0, -2.0]
+    """
+
     degree = 2
 
     def __init__(self, d: int, width: int):

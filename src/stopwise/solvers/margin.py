@@ -78,7 +78,18 @@ def hinge_diagonal_init(train: TrainingSet, params: HingeDiagonalParams, rng) ->
 
 def hinge_diagonal_step(train: TrainingSet, params: HingeDiagonalParams,
                         state: HingeDiagonalState) -> HingeDiagonalState:
-    """One step on the lambda_t-regularized hinge problem (see the module docstring)."""
+    """One step on the lambda_t-regularized hinge problem (see the module docstring).
+
+    Two points x = +-1 with labels +-1: the hard-margin solution is w* = 1.
+
+    >>> from stopwise.problem import TrainingSet
+    >>> tr = TrainingSet(np.array([[1.0], [-1.0]]), np.array([1.0, -1.0]), L=1.0, task="binary", loss="hinge")
+    >>> p = HingeDiagonalParams(method="primal_dual", step_scale=0.9)
+    >>> s = hinge_diagonal_init(tr, p, None)
+    >>> for _ in range(200): s = hinge_diagonal_step(tr, p, s)
+    >>> round(float(s.w[0]), 8), s.passes
+    (1.0, 200.0)
+    """
     X, y, t = train.X, train.y, state.iteration
     C = _C(train, params, t)
     nA = state.norm_A

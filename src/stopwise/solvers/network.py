@@ -69,7 +69,17 @@ def relu_net_init(train: TrainingSet, params: ReluNetParams, rng: np.random.Gene
 
 
 def relu_net_step(train: TrainingSet, params: ReluNetParams, state: ReluNetState) -> ReluNetState:
-    """One (minibatch) gradient step on the mean logistic loss of the network (module docstring)."""
+    """One (minibatch) gradient step on the mean logistic loss of the network (module docstring).
+
+    >>> from stopwise.problem import TrainingSet
+    >>> X = np.array([[1.0, 0.5], [-1.0, 0.2], [0.3, -1.0], [-0.2, 1.0]]); y = np.array([1.0, -1.0, 1.0, -1.0])
+    >>> tr = TrainingSet(X, y, L=0.5, task="binary", loss="logistic")
+    >>> p = ReluNetParams(width=3, batch_size=2)
+    >>> s = relu_net_init(tr, p, np.random.default_rng(0))
+    >>> s = relu_net_step(tr, p, relu_net_step(tr, p, s))
+    >>> s.passes, s.epoch, s.w.shape
+    (1.0, 1, (9,))
+    """
     model = TwoLayerReLU(train.d, params.width)
     eta = step_size(train, params.step_scale)
     n = train.n

@@ -85,7 +85,16 @@ def _schedule_fields() -> list[tuple[str, Any, Any]]:
 
 
 def scheduled(base_name: str, name: str, summary: str) -> SolverDef:
-    """Register ``name``: the solver ``base_name`` with the schedule above on its gradient."""
+    """Register ``name``: the solver ``base_name`` with the schedule above on its gradient.
+
+    >>> from stopwise.problem import TrainingSet
+    >>> X = np.array([[1.0, 0.0], [0.0, 1.0]]); y = np.array([1.0, 1.0])
+    >>> tr = TrainingSet(X, y, L=0.125, task="binary", loss="logistic")
+    >>> sd = get_solver("gd_normalized"); p = sd.params(normalize="loss")
+    >>> s = sd.step(tr, p, sd.init(tr, p, None))  # w_1 = -grad f(0) / (R^2 f(0)) = (1/4) / log 2, R = 1
+    >>> np.round(s.w, 6).tolist()
+    [0.360674, 0.360674]
+    """
     base = get_solver(base_name)
     base_fields = dataclasses.fields(base.params)
     fields = [(f.name, f.type, dataclasses.field(default=f.default, metadata=f.metadata)) for f in base_fields]
