@@ -26,7 +26,9 @@ diagonal method: Garrigos, Rosasco, Villa, J. Math. Imaging Vis. 60, 2018). Meth
                        z_{t+1} = clip(z_t + sigma (A wbar_t - 1), -C_t, 0)
                        w_{t+1} = (w_t - tau A^T z_{t+1}) / (1 + tau),  wbar_{t+1} = 2 w_{t+1} - w_t
 
-Every step costs one data pass. The trace's ``train_loss`` is the unregularized hinge loss.
+Every step costs one data pass. The trace's ``train_loss`` is the unregularized hinge loss. On
+non-separable rows the iterates follow the regularized solutions towards the minimum-norm
+minimizer of the hinge loss (Attouch, SIAM J. Optim. 6, 1996).
 ``lambda_power`` p <= 1 keeps sum_t lambda_t infinite; p = 0 fixes lambda = lambda0 (the
 soft-margin SVM with C = 1 / (n lambda0)).
 """
