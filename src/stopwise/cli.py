@@ -60,9 +60,12 @@ def cmd_run(argv: list[str]) -> int:
     bad = [a for a in argv if a.startswith("-")]
     if bad:
         return _fail(f"unknown option {bad[0]!r}; run takes key=value overrides")
+    from .campaign import check_data
+
     try:
         cfg = compose(argv)
         spec = spec_from_config(cfg)
+        check_data([spec])
     except SpecError as e:
         return _fail(str(e))
     out = run_spec(spec, str(cfg.results_root))

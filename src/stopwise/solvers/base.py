@@ -17,6 +17,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from ..errors import SpecError
 from ..problem import TrainingSet
 
 
@@ -96,7 +97,7 @@ def param(default: Any, constraint: Interval | Choice | None = None, doc: str = 
     return field(default=default, metadata={"constraint": constraint, "doc": doc})
 
 
-class ParamError(ValueError):
+class ParamError(SpecError):
     """A parameter outside its valid range; the message is one line."""
 
 
@@ -156,7 +157,7 @@ def register(defn: SolverDef) -> SolverDef:
     return defn
 
 
-class UnknownSolver(ValueError):
+class UnknownSolver(SpecError):
     pass
 
 
