@@ -86,7 +86,8 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
         if not math.isfinite(sq):
             status, message = "diverged", f"non-finite iterate at iteration {state.iteration}"
             break
-        done = state.iteration >= max_it or (max_passes is not None and state.passes >= max_passes - 1e-12)
+        done = (state.converged or state.iteration >= max_it
+                or (max_passes is not None and state.passes >= max_passes - 1e-12))
         if state.iteration % every == 0 or done:
             loss = rec.record(state.iteration, state.passes, elapsed, state.w)
             if not math.isfinite(loss) or loss > limit:
@@ -94,6 +95,9 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
                 message = (f"training objective grew from {loss0:.3g} to {loss:.3g} (over {factor:g} times) "
                            f"by iteration {state.iteration}")
                 break
+        if state.converged:
+            message = f"converged at iteration {state.iteration}: further steps cannot change the iterate"
+            break
     return Trace(columns=rec.result(), status=status, message=message, problem_info=_problem_info(problem))
 
 

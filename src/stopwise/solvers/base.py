@@ -29,11 +29,16 @@ def frozen(a: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class State:
-    """Base iterate record: ``w`` is evaluated, ``passes`` counts data passes."""
+    """Base iterate record: ``w`` is evaluated, ``passes`` counts data passes.
+
+    A solver sets ``converged`` when further steps cannot change ``w`` beyond rounding
+    (for example CGLS at a least-squares solution); the runner then ends the run.
+    """
 
     w: np.ndarray
     iteration: int = 0
     passes: float = 0.0
+    converged: bool = False
 
 
 # ---------------------------------------------------------------- constraints as data
