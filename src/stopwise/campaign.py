@@ -46,16 +46,12 @@ def _compose(overrides: list[str]):
 
 
 def check_data(specs: list[RunSpec]) -> None:
-    """Build each distinct problem once (kept in the in-process cache for the runs), so data
-    errors (unknown feature, bad row indices) are reported before anything is written."""
-    from .data import cached_problem
+    """Build each distinct problem once, so data errors (unknown feature, bad row indices,
+    a missing file, an OpenML id that is not cached) are reported before anything is
+    written; then store them in the processed-problem cache for the runs (in any process)."""
+    from .data import prepare_problems
 
-    seen = set()
-    for s in specs:
-        key = canonical_json([s.dataset, s.split, s.seed])
-        if key not in seen:
-            seen.add(key)
-            cached_problem(s.dataset, s.split, s.seed)
+    prepare_problems(specs)
 
 
 def campaign_file(name: str) -> Path:

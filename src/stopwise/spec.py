@@ -42,6 +42,11 @@ class DatasetConfig:
     features: Optional[List[str]] = None
     standardize: bool = True
     center_target: bool = True
+    drop_features: Optional[List[str]] = None
+    categorical: Optional[List[str]] = None
+    missing: str = "impute"
+    drop_constant: bool = True
+    random_features: Optional[Dict[str, Any]] = None
 
 
 @dataclass
@@ -52,6 +57,8 @@ class SplitConfig:
     train_rows: Optional[List[int]] = None
     val_rows: Optional[List[int]] = None
     test_rows: Optional[List[int]] = None
+    fold: int = 0
+    repeat: int = 0
 
 
 @dataclass
@@ -94,6 +101,8 @@ FIELD_CONSTRAINTS: dict[str, Interval] = {
     "record.every": Interval(1, None, integer=True),
     "split.test": Interval(0.0, None),
     "split.val": Interval(0.0, None),
+    "split.fold": Interval(0, None, integer=True),
+    "split.repeat": Interval(0, None, integer=True),
     "seed": Interval(0, 2**32 - 1, integer=True),
 }
 
@@ -243,6 +252,14 @@ def spec_from_config(cfg: Any) -> RunSpec:
                         "fractions must sum to < 1")
     if split["kind"] != "indices":
         split["train_rows"] = split["val_rows"] = split["test_rows"] = None
+    if split["kind"] != "indices" or split["train_rows"] is not None or split["test_rows"] is not None:
+        # fold and repeat pick a predefined fold (an OpenML task's); elsewhere they change
+        # nothing, so they stay out of the run identity
+        split.pop("fold", None)
+        split.pop("repeat", None)
+    else:
+        split["fold"] = int(_check("split.fold", split["fold"]))
+        split["repeat"] = int(_check("split.repeat", split["repeat"]))
 
     solver_cfg = dict(c["solver"])
     name = solver_cfg.pop("name", None)
