@@ -14,6 +14,9 @@ commands:
   run [overrides]                run one configuration
   rerun ID [--root DIR]          recompute a run or a whole campaign and compare with the stored traces
   ls [--campaign C] [--root DIR] list stored runs
+  datasets                       list every dataset a run can use (rows, columns, task, source)
+  datasets fetch [ID|NAME@VERSION ...] [--task ID ...]
+                                 download OpenML datasets / tasks into openml's cache (needs network)
 """
 
 
@@ -152,7 +155,64 @@ def summary_table(df):
     return pd.DataFrame(rows)
 
 
-COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls}
+def cmd_datasets(argv: list[str]) -> int:
+    """``stopwise datasets`` lists the catalog; ``stopwise datasets fetch ...`` warms openml's cache."""
+    if argv and argv[0] == "fetch":
+        return _datasets_fetch(argv[1:])
+    ap = argparse.ArgumentParser(prog="stopwise datasets",
+                                 description="List every dataset a run can use; 'stopwise datasets fetch ID' warms "
+                                             "the OpenML cache.")
+    ap.parse_args(argv)
+    from .data.catalog import entries, format_table
+
+    items = entries()
+    print(format_table(items))
+    print(f"{len(items)} datasets; OpenML cache: {_openml_cache_dir()}")
+    return 0
+
+
+def _openml_cache_dir() -> str:
+    try:
+        from .data.openml_source import cache_root
+
+        return str(cache_root())
+    except Exception as e:  # noqa: BLE001 - informational only
+        return f"unavailable ({type(e).__name__})"
+
+
+def _datasets_fetch(argv: list[str]) -> int:
+    import re
+
+    ap = argparse.ArgumentParser(prog="stopwise datasets fetch",
+                                 description="Download OpenML datasets (ID or NAME@VERSION) and tasks into openml's "
+                                             "cache, so that runs can read them without network.")
+    ap.add_argument("refs", nargs="*", metavar="ID", help="dataset id, or NAME@VERSION")
+    ap.add_argument("--task", type=str, action="append", default=[], metavar="ID", help="task id (repeatable)")
+    a = ap.parse_args(argv)
+    if not a.refs and not a.task:
+        return _fail("datasets fetch needs at least one dataset id (or NAME@VERSION) or --task ID")
+    for r in a.refs:
+        if not (re.fullmatch(r"[1-9][0-9]*", r) or re.fullmatch(r"[^@\s]+@[1-9][0-9]*", r)):
+            return _fail(f"{r!r} is not an OpenML dataset id or NAME@VERSION (for example 61 or iris@1)")
+    for t in a.task:
+        if not re.fullmatch(r"[1-9][0-9]*", t):
+            return _fail(f"--task {t!r} is not an OpenML task id (a positive integer)")
+    from .data.openml_source import fetch_dataset, fetch_task
+
+    failed = 0
+    jobs = [("dataset", r, fetch_dataset) for r in a.refs] + [("task", t, fetch_task) for t in a.task]
+    for kind, ref, fn in jobs:
+        try:
+            print(f"fetched {fn(ref)}", flush=True)
+        except Exception as e:  # noqa: BLE001 - network and server errors: one line each
+            failed += 1
+            msg = str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
+            print(f"stopwise: could not fetch OpenML {kind} {ref}: {type(e).__name__}: {msg}", file=sys.stderr)
+    print(f"OpenML cache: {_openml_cache_dir()}")
+    return 1 if failed else 0
+
+
+COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls, "datasets": cmd_datasets}
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -35,6 +35,16 @@ from .errors import SpecError  # noqa: E402,F401  (re-exported)
 # ---------------------------------------------------------------- schemas (Hydra ConfigStore)
 
 @dataclass
+class RandomFeaturesConfig:
+    """Optional random-features map (off while ``kind`` is null); see docs/datasets.md."""
+
+    kind: Optional[str] = None
+    n_components: int = 256
+    gamma: Optional[float] = None
+    seed: int = 0
+
+
+@dataclass
 class DatasetConfig:
     name: str = "diabetes"
     source: str = "sklearn"
@@ -46,7 +56,7 @@ class DatasetConfig:
     categorical: Optional[List[str]] = None
     missing: str = "impute"
     drop_constant: bool = True
-    random_features: Optional[Dict[str, Any]] = None
+    random_features: RandomFeaturesConfig = field(default_factory=RandomFeaturesConfig)
 
 
 @dataclass

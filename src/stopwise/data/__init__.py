@@ -57,8 +57,8 @@ def _prep_option(key: str, v: Any) -> Any:
             raise DataError(f"dataset.drop_constant={v!r} is invalid: must be true or false")
         return v
     if key == "random_features":
-        if v is None:
-            return None
+        if v is None or (isinstance(v, dict) and v.get("kind") is None):
+            return None  # off (the schema's default has kind: null)
         if not isinstance(v, dict):
             raise DataError(f"dataset.random_features={v!r} is invalid: must be a mapping (kind, n_components, gamma, seed)")
         try:
