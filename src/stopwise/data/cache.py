@@ -24,6 +24,7 @@ import io
 import json
 import os
 import sys
+import zipfile
 from pathlib import Path
 from typing import Any
 
@@ -107,7 +108,7 @@ def read(key: str, root: Path | None = None) -> Problem | None:
             return None
         with np.load(npz_path, allow_pickle=False) as z:
             arrays = {k: np.array(z[k]) for k in z.files}
-    except (OSError, ValueError, KeyError):
+    except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile):  # damaged: rebuild
         return None
     want = set(ARRAYS) | ({"w_true"} if meta.get("has_truth") else set())
     if set(arrays) != want or any(a.dtype != np.float64 for a in arrays.values()):
