@@ -6,11 +6,15 @@ Public API::
     load_problem(overrides)           the Problem (arrays, truth, noise, L) a run sees
     load_traces(root, campaign=None, **filters)   every recorded iterate as a DataFrame
     load_runs(root, campaign=None)    one row per stored run
+    build_problem(dataset, split, seed) / cached_problem(...)   the data layer (docs/datasets.md)
+    register_source(SourceDef(...))   add a dataset source
 """
 from __future__ import annotations
 
 __version__ = "0.1.0"
 
+from .data import RawData, SourceDef, build_problem, cached_problem  # noqa: E402
+from .data.sources import register_source  # noqa: E402
 from .problem import Problem, TrainingSet  # noqa: E402
 from .query import load_runs, load_traces  # noqa: E402
 from .runner import RunOutcome, execute, run  # noqa: E402
@@ -31,5 +35,6 @@ def load_problem(overrides: list[str] | None = None) -> Problem:
     return build_problem(spec.dataset, spec.split, spec.seed)
 
 
-__all__ = ["Problem", "TrainingSet", "RunOutcome", "RunSpec", "SpecError", "SOLVERS", "execute",
+__all__ = ["RawData", "SourceDef", "build_problem", "cached_problem", "register_source",
+           "Problem", "TrainingSet", "RunOutcome", "RunSpec", "SpecError", "SOLVERS", "execute",
            "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides"]

@@ -62,7 +62,12 @@ class SparseParams:
 
 def load_sparse(p: SparseParams) -> RawData:
     """``X`` with i.i.d. N(0, 1) or Rademacher entries; ``w*`` has exactly ``k`` nonzeros on a
-    uniformly random support, each +-1 (``sign``) or N(0, 1) (``gaussian``); ``y = X w*``."""
+    uniformly random support, each +-1 (``sign``) or N(0, 1) (``gaussian``); ``y = X w*``.
+
+    >>> raw = load_sparse(SparseParams(n=20, d=50, k=3))
+    >>> int((raw.w_true != 0).sum()), raw.X.shape
+    (3, (20, 50))
+    """
     if p.k > p.d:
         raise GeneratorError(f"dataset.params.k={p.k} is invalid: a {p.k}-sparse truth needs k <= d={p.d}")
     rng = _rng(p.seed, 1)
@@ -238,7 +243,12 @@ def load_separable(p: SeparableParams) -> RawData:
     (+1 at 0); the component along ``u`` is moved to ``y_i (gamma + |a_i| - min_j |a_j|)``,
     ``a_i = <u, z_i>``, so that ``min_i y_i <u, x_i> = gamma`` exactly and the hard-margin
     value of the data is at least ``gamma``. Then each label flips with probability
-    ``label_noise`` (the clean labels stay recorded in ``info``)."""
+    ``label_noise`` (the clean labels stay recorded in ``info``).
+
+    >>> raw = load_separable(SeparableParams(n=50, d=3, margin=0.25))
+    >>> round(float(min(raw.y * (raw.X @ np.array(raw.info["separator"])))), 12)
+    0.25
+    """
     if p.n < 2:
         raise GeneratorError("dataset.params.n must be >= 2 for a two-class problem")
     rng = _rng(p.seed, 1)

@@ -179,8 +179,13 @@ def openml_lock(root: Path | None = None) -> Iterator[None]:
     except ImportError:  # pragma: no cover - no POSIX locks: rely on a warm cache
         yield
         return
-    root.mkdir(parents=True, exist_ok=True)
-    with open(root / "stopwise.lock", "a+b") as fh:
+    try:
+        root.mkdir(parents=True, exist_ok=True)
+        fh = open(root / "stopwise.lock", "a+b")
+    except OSError:  # a read-only cache (a shared mount): nothing to serialize against
+        yield
+        return
+    with fh:
         fcntl.flock(fh.fileno(), fcntl.LOCK_EX)
         try:
             yield

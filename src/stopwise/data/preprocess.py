@@ -179,7 +179,13 @@ def encode_labels(ys: list[np.ndarray], task: str, given: list | None, where: st
     """Binary labels -> -1.0 / +1.0 (the second class in sorted order is +1), multiclass
     -> 0.0 .. K-1 (sorted order, as scikit-learn's ``LabelEncoder``), fitted on the
     training labels. A source that already encodes (``info['classes']`` given and labels
-    already in {-1, +1} / {0..K-1}) is kept as it is."""
+    already in {-1, +1} / {0..K-1}) is kept as it is.
+
+    >>> parts = [np.array(["b", "a"], dtype=object), np.array(["a"], dtype=object), np.array(["b"], dtype=object)]
+    >>> ys, classes = encode_labels(parts, "binary", None, "demo")
+    >>> ys[0].tolist(), classes
+    ([1.0, -1.0], ['a', 'b'])
+    """
     if given is not None:
         codes = set(np.unique(np.concatenate([np.asarray(y, dtype=np.float64) for y in ys])).tolist()) \
             if all(_numeric(y) for y in ys) else None
