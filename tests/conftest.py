@@ -136,12 +136,13 @@ def _copy_tree(src, dst):
 
 @pytest.fixture
 def no_network(monkeypatch):
-    """Every socket connection fails at once: the test runs as if offline."""
+    """Every name lookup and socket connection fails at once: the test runs as if offline."""
     import socket
 
     def refuse(*args, **kwargs):
         raise OSError("network disabled in tests")
 
+    monkeypatch.setattr(socket, "getaddrinfo", refuse)
     monkeypatch.setattr(socket.socket, "connect", refuse)
     monkeypatch.setattr(socket, "create_connection", refuse)
 

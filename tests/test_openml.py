@@ -137,3 +137,15 @@ def test_a_run_on_an_openml_task(openml_cache, root):
     out = stopwise.run(["dataset=openml", f"dataset.params.task_id={OML_TASK_DIABETES}", "dataset.name=diab-task",
                         "split.kind=indices", "split.fold=1", "solver=cgls", "budget.iterations=5"], root=root)
     assert out.status == "completed"
+
+
+def test_fetch_without_network_fails_with_one_line_per_id_and_keeps_the_cache(openml_cache, capsys):
+    """Offline, `fetch` of an uncached id reaches openml's download code, which fails at once (sockets are
+    disabled): one line naming the id, exit 1, and the datasets already cached are untouched."""
+    before = sorted(str(p) for p in openml_cache.rglob("*") if "datasets/31" not in str(p))
+    assert main(["datasets", "fetch", "31"]) == 1
+    err = [ln for ln in capsys.readouterr().err.splitlines() if ln.startswith("stopwise:")]
+    assert len(err) == 1 and "could not fetch OpenML dataset 31" in err[0]
+    after = sorted(str(p) for p in openml_cache.rglob("*") if "datasets/31" not in str(p) and "stopwise.lock" not in str(p))
+    assert after == [b for b in before if "stopwise.lock" not in b]
+    assert (openml_cache / "org/openml/www/datasets" / str(OML_IRIS) / "description.xml").exists()
