@@ -14,7 +14,8 @@ __version__ = "0.1.0"
 from .problem import Problem, TrainingSet  # noqa: E402
 from .query import load_runs, load_traces  # noqa: E402
 from .runner import RunOutcome, execute, run  # noqa: E402
-from .solvers import SOLVERS, get_solver  # noqa: E402
+from .solvers import PROX_OPERATORS, SOLVERS, ProxDef, get_solver, register_prox  # noqa: E402
+from . import sparsity  # noqa: E402,F401  (registers the nnz / support columns)
 from .spec import RunSpec, SpecError, spec_from_overrides  # noqa: E402
 
 
@@ -32,4 +33,5 @@ def load_problem(overrides: list[str] | None = None) -> Problem:
 
 
 __all__ = ["Problem", "TrainingSet", "RunOutcome", "RunSpec", "SpecError", "SOLVERS", "execute",
-           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides"]
+           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides",
+           "PROX_OPERATORS", "ProxDef", "register_prox"]
