@@ -1,6 +1,5 @@
 """Biased solvers through the runner and recorder: trace columns, early stopping on noisy
 sparse recovery, bad input."""
-import doctest
 import math
 
 import numpy as np
@@ -158,11 +157,3 @@ def test_bad_params_are_one_line_errors_and_write_nothing(tmp_path, capsys, args
     assert err.startswith("stopwise: error: ") and err.count("\n") == 1 and needle in err
     assert not (tmp_path / "r").exists()
 
-
-def test_docstring_examples_run():
-    from stopwise import sparsity
-    from stopwise.solvers import mirror, primal_dual
-
-    for mod in (mirror, primal_dual, sparsity):
-        res = doctest.testmod(mod)
-        assert res.failed == 0 and res.attempted > 0, mod.__name__
