@@ -50,7 +50,7 @@ def test_run_id_ignores_names_roots_and_post_hoc_rules():
 
 
 @pytest.mark.parametrize("argv,needle", [
-    (["run", "solver=newton"], "unknown solver 'newton'; valid: cgls, gd, heavy_ball, nesterov"),
+    (["run", "solver=newton"], "unknown solver 'newton'; valid: " + ", ".join(sorted(stopwise.SOLVERS))),
     (["run", "dataset=mnist9"], "unknown dataset 'mnist9'; valid:"),
     (["run", "solver.step_scale=0"], "solver.step_scale=0.0 is invalid"),
     (["run", "solver.step_scale=-2"], "must be a number in (0, inf)"),

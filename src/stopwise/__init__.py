@@ -18,7 +18,8 @@ from .data.sources import register_source  # noqa: E402
 from .problem import Problem, TrainingSet  # noqa: E402
 from .query import load_runs, load_traces  # noqa: E402
 from .runner import RunOutcome, execute, run  # noqa: E402
-from .solvers import SOLVERS, get_solver  # noqa: E402
+from .solvers import PROX_OPERATORS, SOLVERS, ProxDef, get_solver, register_prox  # noqa: E402
+from . import sparsity  # noqa: E402,F401  (registers the nnz / support columns)
 from .spec import RunSpec, SpecError, spec_from_overrides  # noqa: E402
 
 
@@ -37,4 +38,5 @@ def load_problem(overrides: list[str] | None = None) -> Problem:
 
 __all__ = ["RawData", "SourceDef", "build_problem", "cached_problem", "register_source",
            "Problem", "TrainingSet", "RunOutcome", "RunSpec", "SpecError", "SOLVERS", "execute",
-           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides"]
+           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides",
+           "PROX_OPERATORS", "ProxDef", "register_prox"]

@@ -65,7 +65,8 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
     params = make_params(sdef.params, spec.params, "solver")
     train = problem.training
     rng = np.random.default_rng([spec.seed, 0x50_17E5])
-    rec = Recorder(problem, capacity=_record_rows(spec))
+    rec = Recorder(problem, capacity=_record_rows(spec),
+                   state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None)
     max_it = spec.budget["iterations"]
     max_passes = spec.budget["passes"]
     every = spec.record["every"]
@@ -76,7 +77,7 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
     t0 = clock()
     state = sdef.init(train, params, rng)
     elapsed = clock() - t0
-    loss0 = rec.record(state.iteration, state.passes, elapsed, state.w)
+    loss0 = rec.record(state.iteration, state.passes, elapsed, state.w, state)
     limit = factor * max(loss0, np.finfo(float).tiny)
     while state.iteration < max_it and (max_passes is None or state.passes < max_passes - 1e-12):
         t0 = clock()
@@ -89,7 +90,7 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
         done = (state.converged or state.iteration >= max_it
                 or (max_passes is not None and state.passes >= max_passes - 1e-12))
         if state.iteration % every == 0 or done:
-            loss = rec.record(state.iteration, state.passes, elapsed, state.w)
+            loss = rec.record(state.iteration, state.passes, elapsed, state.w, state)
             if not math.isfinite(loss) or loss > limit:
                 status = "diverged"
                 message = (f"training objective grew from {loss0:.3g} to {loss:.3g} (over {factor:g} times) "

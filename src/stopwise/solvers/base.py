@@ -141,7 +141,13 @@ def make_params(cls: type, values: dict[str, Any], owner: str):
 
 @dataclass(frozen=True)
 class SolverDef:
-    """A registered solver: its params class, init and step, and how it spends work."""
+    """A registered solver: its params class, init and step, and how it spends work.
+
+    ``metrics``, when given, maps ``(train, params)`` to ``{column: f(state) -> float}``:
+    per-iterate quantities that depend on the solver's params or on more of its state than
+    ``w`` (a bias value, a dual variable's gap). The Recorder evaluates them on recorded
+    iterates only, outside the solver's timed work.
+    """
 
     name: str
     params: type
@@ -150,6 +156,7 @@ class SolverDef:
     summary: str
     tasks: tuple[str, ...] = ("regression",)
     stochastic: bool = False
+    metrics: Callable[[TrainingSet, Any], dict[str, Callable[[State], float]]] | None = None
 
 
 SOLVERS: dict[str, SolverDef] = {}
