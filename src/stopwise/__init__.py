@@ -6,6 +6,7 @@ Public API::
     load_problem(overrides)           the Problem (arrays, truth, noise, L) a run sees
     load_traces(root, campaign=None, **filters)   every recorded iterate as a DataFrame
     load_runs(root, campaign=None)    one row per stored run
+    select(root, campaign, rules=None) every stopping rule on every stored trace (one row per run x rule)
 """
 from __future__ import annotations
 
@@ -16,6 +17,8 @@ from .query import load_runs, load_traces  # noqa: E402
 from .runner import RunOutcome, execute, run  # noqa: E402
 from .solvers import SOLVERS, get_solver  # noqa: E402
 from .spec import RunSpec, SpecError, spec_from_overrides  # noqa: E402
+from .selection import select  # noqa: E402
+from .stopping import RULES, RuleContext, Selection, apply_rule  # noqa: E402
 
 
 def load_problem(overrides: list[str] | None = None) -> Problem:
@@ -32,4 +35,5 @@ def load_problem(overrides: list[str] | None = None) -> Problem:
 
 
 __all__ = ["Problem", "TrainingSet", "RunOutcome", "RunSpec", "SpecError", "SOLVERS", "execute",
-           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides"]
+           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides",
+           "RULES", "RuleContext", "Selection", "apply_rule", "select"]
