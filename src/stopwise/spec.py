@@ -44,6 +44,7 @@ class DatasetConfig:
     features: Optional[List[str]] = None
     standardize: bool = True
     center_target: bool = True
+    center_features: bool = False  # without standardize: subtract training means only
 
 
 @dataclass

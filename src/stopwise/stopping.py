@@ -215,8 +215,11 @@ def holdout(trace: Any, ctx: RuleContext, params: HoldoutParams = HoldoutParams(
     ``min_improvement * best`` when ``relative``). Patience runs out at the first row with
     ``passes_t - passes_last_improvement >= patience``; the rule selects the row of the
     smallest validation error seen up to there (the first of ties) and spends the passes
-    up to the row where patience ran out. This matches scikit-learn's documented SGD early
-    stopping with ``n_iter_no_change`` epochs and ``tol`` when rows are one pass apart.
+    up to the row where patience ran out. With rows one pass apart this is scikit-learn's
+    early stopping on a validation score: its SGD estimators stop after ``n_iter_no_change``
+    epochs not beating ``best - tol`` (patience ``n_iter_no_change``), its MLP estimators
+    after more than ``n_iter_no_change`` such epochs (patience ``n_iter_no_change + 1``)
+    and keep the best epoch's weights, as this rule selects the best row.
     """
     cols = _columns(trace)
     n = _n(cols)
@@ -315,7 +318,7 @@ def monotone_error(trace: Any, ctx: RuleContext, params: MonotoneErrorParams = M
         return _none(cols, "needs two recorded iterates")
     r = cols["residual_norm"][:-1]
     dot = cols["residual_dot_prev"][1:]
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         d = (r * r + dot) / (2 * r)
     d = np.where(r == 0, 0.0, d)
     thr = params.tau * delta
