@@ -170,8 +170,8 @@ class BudgetParams:
 def budget(trace: Any, ctx: RuleContext, params: BudgetParams = BudgetParams()) -> Selection:
     """Last recorded iterate ``t`` with ``t <= iterations`` and ``passes_t <= passes``.
 
-    With no limit it is the last recorded iterate (final only once a later row passes a
-    limit, so without limits the rule cannot halt a run).
+    Final once an iterate reaches or passes a limit; with no limit it is the last
+    recorded iterate and never final (so without limits the rule cannot halt a run).
     """
     cols = _columns(trace)
     n = _n(cols)
@@ -188,6 +188,9 @@ def budget(trace: Any, ctx: RuleContext, params: BudgetParams = BudgetParams()) 
     if inside.size == 0:
         return _none(cols, "no recorded iterate lies within the budget", final, spent_row=0)
     row = int(inside[-1])
+    # an iterate exactly at a limit is the last one the budget allows
+    final = final or (params.iterations is not None and cols["iteration"][row] >= params.iterations) or \
+        (params.passes is not None and cols["passes"][row] >= params.passes - 1e-12)
     what = []
     if params.iterations is not None:
         what.append(f"{params.iterations} iterations")
