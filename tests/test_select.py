@@ -146,3 +146,35 @@ def test_halting_rule_without_noise_information_runs_to_the_budget(tmp_path):
                                         "stopping=discrepancy", "stopping.halt=true"]), tmp_path)
     assert out.status == "completed" and out.iterations == 15 and not out.message
     assert math.isnan(stopwise.select(tmp_path, None, rules=["discrepancy"])["selected_passes"].iloc[0])
+
+
+@pytest.mark.parametrize("patience,expect", [(100, "completed"), (252, "completed"), (253, "diverged"),
+                                             (400, "diverged")])
+def test_halting_next_to_a_divergence(tmp_path, patience, expect):
+    """Gradient descent with step 2.05/L diverges (the objective passes 1e10 times its
+    start at iteration 265). Holdout halting decides at row 12 + patience: a decision on
+    a finite row wins (completed, cut there, also when found only by the final check after
+    the loop broke off), a decision that would need the diverged row does not."""
+    base = ["dataset=wellposed", "solver=gd", "solver.step_scale=2.05", "budget.iterations=1000",
+            "stopping=holdout", f"stopping.params.patience={patience}"]
+    full = execute(spec_from_overrides(base))
+    assert full.status == "diverged" and len(full.columns["iteration"]) == 266
+    out = run_spec(spec_from_overrides(base + ["stopping.halt=true"]), tmp_path)
+    got = pd.read_parquet(out.path)
+    assert out.status == expect
+    if expect == "completed":
+        assert len(got) == 12 + patience + 1 and out.message.startswith("halted by holdout")
+    else:
+        assert len(got) == 266 and "grew" in out.message
+    np.testing.assert_array_equal(got["val_error"].to_numpy(), full.columns["val_error"][:len(got)])
+
+
+def test_halting_decision_deep_in_the_trace_is_exact(tmp_path):
+    """a_priori with c = 10, a = 0.5 on 180 training rows: ceil(10 sqrt(180)) = 135, found by
+    the bisection between two sparse checks; the trace ends exactly at iteration 135."""
+    base = ["dataset=illposed", "solver=gd", "budget.iterations=400", "stopping=a_priori",
+            "stopping.params.c=10", "stopping.params.a=0.5"]
+    out = run_spec(spec_from_overrides(base + ["stopping.halt=true"]), tmp_path)
+    got = pd.read_parquet(out.path)
+    assert got["iteration"].iloc[-1] == 135 == math.ceil(10 * math.sqrt(180))
+    assert out.message.startswith("halted by a_priori at iteration 135")
