@@ -178,3 +178,8 @@ def test_halting_decision_deep_in_the_trace_is_exact(tmp_path):
     got = pd.read_parquet(out.path)
     assert got["iteration"].iloc[-1] == 135 == math.ceil(10 * math.sqrt(180))
     assert out.message.startswith("halted by a_priori at iteration 135")
+    # recomputing the halted run from its stored identity reproduces it
+    from stopwise.rerun import rerun_one
+
+    c = rerun_one(Store(tmp_path), out.run_id)
+    assert c.ok, c.problems

@@ -280,6 +280,8 @@ def discrepancy(trace: Any, ctx: RuleContext, params: DiscrepancyParams = Discre
     if delta is None:
         return _none(cols, NO_DELTA)
     thr = params.tau * delta
+    if "residual_norm" not in cols:
+        return _none(cols, "trace has no residual_norm column")
     res = cols["residual_norm"]
     hit = np.flatnonzero(res <= thr)
     if hit.size:
