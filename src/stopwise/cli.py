@@ -17,6 +17,10 @@ commands:
   datasets                       list every dataset a run can use (rows, columns, task, source)
   datasets fetch [ID|NAME@VERSION ...] [--task ID ...]
                                  download OpenML datasets / tasks into openml's cache (needs network)
+  select CAMPAIGN [--rule NAME[:k=v,...] ...] [--root DIR]
+                                 evaluate stopping rules on a campaign's stored traces
+  baselines CAMPAIGN [--method NAME ...] [--root DIR] [--path]
+                                 fit (or reuse) explicit-regularization baselines on the campaign's splits
 """
 
 
@@ -212,7 +216,74 @@ def _datasets_fetch(argv: list[str]) -> int:
     return 1 if failed else 0
 
 
-COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls, "datasets": cmd_datasets}
+def cmd_select(argv: list[str]) -> int:
+    from .selection import format_table, parse_rule_arg, select
+    from .stopping import RuleError
+    from .store import StoreError
+
+    ap = argparse.ArgumentParser(prog="stopwise select",
+                                 description="selected iterate per run and stopping rule (oracle = reference only)")
+    ap.add_argument("campaign", help="campaign name or id")
+    ap.add_argument("--rule", action="append", default=None, metavar="NAME[:k=v,...]",
+                    help="a stopping rule, repeatable (default: the campaign's rules plus oracle)")
+    ap.add_argument("--root", default="results", help="results root (default: results)")
+    try:
+        a = ap.parse_args(argv)
+    except SystemExit as e:
+        return EXIT_BAD_INPUT if e.code else 0
+    try:
+        rules = [parse_rule_arg(r) for r in a.rule] if a.rule else None
+        df = select(a.root, a.campaign, rules)
+    except (RuleError, StoreError) as e:
+        return _fail(str(e))
+    if df.empty:
+        print(f"campaign {a.campaign} has no runs under {a.root}")
+        return 0
+    print(format_table(df))
+    n_runs = df["run_id"].nunique()
+    n_rules = df["rule"].nunique()
+    print(f"{n_runs} runs x {n_rules} rules (oracle rows are a reference, never a method)  (root {a.root})")
+    return 0
+
+
+def cmd_baselines(argv: list[str]) -> int:
+    import pandas as pd
+
+    from .baselines import BaselineError, ensure_baselines
+    from .spec import SpecError
+    from .store import StoreError
+
+    ap = argparse.ArgumentParser(prog="stopwise baselines",
+                                 description="explicit-regularization baselines selected on validation error")
+    ap.add_argument("campaign", help="campaign name or id")
+    ap.add_argument("--method", action="append", default=None, metavar="NAME",
+                    help="baseline method, repeatable (default: every method for the problem's task)")
+    ap.add_argument("--root", default="results", help="results root (default: results)")
+    ap.add_argument("--path", action="store_true", help="print every penalty, not only the selected one")
+    try:
+        a = ap.parse_args(argv)
+    except SystemExit as e:
+        return EXIT_BAD_INPUT if e.code else 0
+    try:
+        df = ensure_baselines(a.root, a.campaign, a.method)
+    except (BaselineError, StoreError, SpecError) as e:
+        return _fail(str(e))
+    if df.empty:
+        print(f"campaign {a.campaign} has no stored runs under {a.root} to fit baselines on")
+        return 0
+    show = df if a.path else df[df["selected"]]
+    with pd.option_context("display.max_rows", 100000, "display.width", 200, "display.max_columns", 30,
+                           "display.float_format", "{:.4g}".format):
+        print(show.drop(columns=["selected"] if not a.path else []).to_string(index=False))
+    n = df["baseline_id"].nunique()
+    print(f"{n} baseline paths, {len(df)} penalties; selected on validation error  "
+          f"(files in {Path(a.root) / 'baselines'})")
+    return 0
+
+
+COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls, "select": cmd_select,
+            "baselines": cmd_baselines,
+            "datasets": cmd_datasets}
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -27,7 +27,7 @@ from . import generators, openml_source, tabular  # noqa: E402,F401  (register t
 # Preprocessing options added after the first release. A key at its default is left out
 # of the normalized config, so configs that do not use them keep their run ids.
 PREP_DEFAULTS: dict[str, Any] = {"drop_features": None, "categorical": None, "missing": "impute",
-                                 "drop_constant": True, "random_features": None}
+                                 "drop_constant": True, "random_features": None, "center_features": False}
 
 
 def get_source(name: str) -> SourceDef:
@@ -52,9 +52,9 @@ def _prep_option(key: str, v: Any) -> Any:
         if v not in MISSING:
             raise DataError(f"dataset.missing={v!r} is invalid: must be one of {', '.join(MISSING)}")
         return v
-    if key == "drop_constant":
+    if key in ("drop_constant", "center_features"):
         if not isinstance(v, bool):
-            raise DataError(f"dataset.drop_constant={v!r} is invalid: must be true or false")
+            raise DataError(f"dataset.{key}={v!r} is invalid: must be true or false")
         return v
     if key == "random_features":
         if v is None or (isinstance(v, dict) and v.get("kind") is None):
@@ -84,6 +84,9 @@ def normalize_dataset(cfg: dict[str, Any]) -> dict[str, Any]:
         v = _prep_option(key, out.pop(key, default))
         if v != default:
             out[key] = v
+    for key in ("standardize", "center_target"):
+        if key in out and not isinstance(out[key], bool):
+            raise DataError(f"dataset.{key}={out[key]!r} is invalid: must be true or false")
     return out
 
 
@@ -225,6 +228,12 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
     if dataset.get("standardize", True):
         Xs, w_true, rec = standardize(Xs, w_true)
         prep["standardize"] = rec
+    elif dataset.get("center_features", False):
+        # centering alone (features keep their scale): a model without intercept on the
+        # centered data equals the model with an unpenalized intercept on the raw data
+        mu = Xs[0].mean(axis=0)
+        Xs = [x - mu for x in Xs]
+        prep["center_features"] = {"mean": mu.tolist()}
     rf = dataset.get("random_features")
     if rf:
         Xs, names, rec = random_features(Xs, RandomFeaturesParams(**rf))
