@@ -70,7 +70,10 @@ def test_problem_from_config():
     assert set(np.unique(np.concatenate([p.y_train, p.y_val, p.y_test]))) == {-1.0, 1.0}
     assert p.n_train + p.X_val.shape[0] + p.X_test.shape[0] == 100
     m = stopwise.load_problem(["dataset=digits"])
-    assert m.task == "multiclass" and m.n_classes == 10 and m.training.k == 10 and m.training.dim == 640
+    assert m.task == "multiclass" and m.n_classes == 10 and m.training.k == 10
+    # pixels constant on the training rows are dropped (drop_constant), the rest kept
+    raw = datasets.load_digits().data[m.info["rows"]["train"]]
+    assert m.d == int(np.count_nonzero(raw.std(axis=0) > 0)) and m.training.dim == 10 * m.d
     assert m.training.L == pytest.approx(np.linalg.norm(m.X_train, 2) ** 2 / (2 * m.n_train))
     b = stopwise.load_problem(["dataset=digits_0v1"])
     assert b.training.L == pytest.approx(np.linalg.norm(b.X_train, 2) ** 2 / (4 * b.n_train))
@@ -87,9 +90,10 @@ def test_loss_option_and_identity():
     assert hinge.run_id != base.run_id     # another loss changes the numbers and the identity
     assert build_problem(hinge.dataset, hinge.split, 0).objective == "hinge"
     # options left at their defaults stay out of regression identities
-    d = normalize_dataset({"name": "diabetes", "source": "sklearn", "params": {"loader": "diabetes"},
-                           "loss": None, "add_constant": False})
-    assert d == {"name": "diabetes", "source": "sklearn", "params": {"loader": "diabetes"}, "features": None}
+    base_cfg = {"name": "diabetes", "source": "sklearn", "params": {"loader": "diabetes"}}
+    d = normalize_dataset(dict(base_cfg, loss=None, add_constant=False))
+    assert d == normalize_dataset(base_cfg)
+    assert not {"loss", "add_constant"} & set(d) and not {"classes", "positive"} & set(d["params"])
 
 
 @pytest.mark.parametrize("overrides,fragment", [

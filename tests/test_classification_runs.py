@@ -110,19 +110,3 @@ def test_every_classification_solver_runs(root, name, dataset):
     df = pd.read_parquet(out.path)
     assert len(df) == 31 and df["test_error"].between(0, 1).all()
 
-
-def test_docstring_examples():
-    # the examples in the docstrings of the classification modules run as written
-    import doctest
-
-    import stopwise.losses
-    import stopwise.margins
-    import stopwise.models
-    import stopwise.solvers.margin
-    import stopwise.solvers.network
-    import stopwise.solvers.schedules
-
-    for mod in (stopwise.losses, stopwise.margins, stopwise.models, stopwise.solvers.margin,
-                stopwise.solvers.network, stopwise.solvers.schedules):
-        result = doctest.testmod(mod, optionflags=doctest.NORMALIZE_WHITESPACE)
-        assert result.failed == 0 and result.attempted > 0, mod.__name__

@@ -156,3 +156,19 @@ def test_reference_skipped_above_the_row_limit(monkeypatch):
     rec.record(0, 0.0, 0.0, np.ones(X.shape[1]))
     assert rec.info["separable"] is None and "skipped" in rec.info["svm_method"]
     assert math.isnan(rec.result()["svm_dist"][0]) and not math.isnan(rec.result()["margin"][0])
+
+
+def test_reference_on_the_separable_generator(root):
+    # the generator's unit separator u has normalized margin exactly `margin` (0.5) on all
+    # rows by construction, so the hard-margin value of the training rows is >= 0.5 and the
+    # SVM direction is at least as good as u; with 10% flipped labels no separator exists
+    p = stopwise.load_problem(["dataset=separable"])
+    ref = reference(p)
+    u = np.array(p.info["separator"])
+    assert ref.separable and normalized_margin(p.X_train, p.y_train, u) >= 0.5 - 1e-12
+    assert ref.margin >= normalized_margin(p.X_train, p.y_train, u) - 1e-6
+    assert not reference(stopwise.load_problem(["dataset=separable_noisy"])).separable
+    out = stopwise.run(["dataset=separable", "solver=nesterov_normalized", "budget.iterations=300"], root=root)
+    df = pd.read_parquet(out.path)
+    assert df["svm_dist"].iloc[-1] < min(0.05, df["svm_dist"].iloc[1] / 10)
+    assert 0.5 * ref.margin < df["margin"].iloc[-1] <= ref.margin + 1e-9

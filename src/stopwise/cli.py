@@ -14,6 +14,13 @@ commands:
   run [overrides]                run one configuration
   rerun ID [--root DIR]          recompute a run or a whole campaign and compare with the stored traces
   ls [--campaign C] [--root DIR] list stored runs
+  datasets                       list every dataset a run can use (rows, columns, task, source)
+  datasets fetch [ID|NAME@VERSION ...] [--task ID ...]
+                                 download OpenML datasets / tasks into openml's cache (needs network)
+  select CAMPAIGN [--rule NAME[:k=v,...] ...] [--root DIR]
+                                 evaluate stopping rules on a campaign's stored traces
+  baselines CAMPAIGN [--method NAME ...] [--root DIR] [--path]
+                                 fit (or reuse) explicit-regularization baselines on the campaign's splits
 """
 
 
@@ -60,9 +67,12 @@ def cmd_run(argv: list[str]) -> int:
     bad = [a for a in argv if a.startswith("-")]
     if bad:
         return _fail(f"unknown option {bad[0]!r}; run takes key=value overrides")
+    from .campaign import check_data
+
     try:
         cfg = compose(argv)
         spec = spec_from_config(cfg)
+        check_data([spec])
     except SpecError as e:
         return _fail(str(e))
     out = run_spec(spec, str(cfg.results_root))
@@ -112,6 +122,8 @@ def cmd_ls(argv: list[str]) -> int:
     ap = argparse.ArgumentParser(prog="stopwise ls")
     ap.add_argument("--campaign", default=None, help="campaign name or id")
     ap.add_argument("--root", default="results")
+    ap.add_argument("--summary", action="store_true",
+                    help="one row per dataset and solver: the run with the best validation error")
     a = ap.parse_args(argv)
     try:
         df = load_runs(a.root, a.campaign)
@@ -120,7 +132,7 @@ def cmd_ls(argv: list[str]) -> int:
     if df.empty:
         print(f"no runs under {a.root}")
         return 0
-    show = df.drop(columns=["message"])
+    show = summary_table(df) if a.summary else df.drop(columns=["message"])
     with pd.option_context("display.max_rows", 500, "display.width", 200, "display.max_columns", 30,
                            "display.float_format", "{:.4g}".format):
         print(show.to_string(index=False))
@@ -129,7 +141,149 @@ def cmd_ls(argv: list[str]) -> int:
     return 0
 
 
-COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls}
+def summary_table(df):
+    """Per dataset and solver: runs, diverged runs, and the run whose best validation error is lowest."""
+    import pandas as pd
+
+    rows = []
+    for (ds, sv), g in df.groupby(["dataset", "solver"], sort=True):
+        ok = g[g["best_val_error"].notna()]
+        row = {"dataset": ds, "solver": sv, "runs": len(g), "diverged": int((g["status"] == "diverged").sum())}
+        if len(ok):
+            b = ok.loc[ok["best_val_error"].idxmin()]
+            params = {k: b[k] for k in ("step_scale", "momentum") if k in b and pd.notna(b[k])}
+            row.update(best_params=" ".join(f"{k}={v:g}" for k, v in params.items()) or "-",
+                       seed=int(b["seed"]), best_val_error=b["best_val_error"], at_iteration=int(b["best_val_iteration"]),
+                       test_error_there=b["test_at_best_val"], final_test_error=b["final_test_error"])
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def cmd_datasets(argv: list[str]) -> int:
+    """``stopwise datasets`` lists the catalog; ``stopwise datasets fetch ...`` warms openml's cache."""
+    if argv and argv[0] == "fetch":
+        return _datasets_fetch(argv[1:])
+    ap = argparse.ArgumentParser(prog="stopwise datasets",
+                                 description="List every dataset a run can use; 'stopwise datasets fetch ID' warms "
+                                             "the OpenML cache.")
+    ap.parse_args(argv)
+    from .data.catalog import entries, format_table
+
+    items = entries()
+    print(format_table(items))
+    print(f"{len(items)} datasets; OpenML cache: {_openml_cache_dir()}")
+    return 0
+
+
+def _openml_cache_dir() -> str:
+    try:
+        from .data.openml_source import cache_root
+
+        return str(cache_root())
+    except Exception as e:  # noqa: BLE001 - informational only
+        return f"unavailable ({type(e).__name__})"
+
+
+def _datasets_fetch(argv: list[str]) -> int:
+    import re
+
+    ap = argparse.ArgumentParser(prog="stopwise datasets fetch",
+                                 description="Download OpenML datasets (ID or NAME@VERSION) and tasks into openml's "
+                                             "cache, so that runs can read them without network.")
+    ap.add_argument("refs", nargs="*", metavar="ID", help="dataset id, or NAME@VERSION")
+    ap.add_argument("--task", type=str, action="append", default=[], metavar="ID", help="task id (repeatable)")
+    a = ap.parse_args(argv)
+    if not a.refs and not a.task:
+        return _fail("datasets fetch needs at least one dataset id (or NAME@VERSION) or --task ID")
+    for r in a.refs:
+        if not (re.fullmatch(r"[1-9][0-9]*", r) or re.fullmatch(r"[^@\s]+@[1-9][0-9]*", r)):
+            return _fail(f"{r!r} is not an OpenML dataset id or NAME@VERSION (for example 61 or iris@1)")
+    for t in a.task:
+        if not re.fullmatch(r"[1-9][0-9]*", t):
+            return _fail(f"--task {t!r} is not an OpenML task id (a positive integer)")
+    from .data.openml_source import fetch_dataset, fetch_task
+
+    failed = 0
+    jobs = [("dataset", r, fetch_dataset) for r in a.refs] + [("task", t, fetch_task) for t in a.task]
+    for kind, ref, fn in jobs:
+        try:
+            print(f"fetched {fn(ref)}", flush=True)
+        except Exception as e:  # noqa: BLE001 - network and server errors: one line each
+            failed += 1
+            msg = str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
+            print(f"stopwise: could not fetch OpenML {kind} {ref}: {type(e).__name__}: {msg}", file=sys.stderr)
+    print(f"OpenML cache: {_openml_cache_dir()}")
+    return 1 if failed else 0
+
+
+def cmd_select(argv: list[str]) -> int:
+    from .selection import format_table, parse_rule_arg, select
+    from .stopping import RuleError
+    from .store import StoreError
+
+    ap = argparse.ArgumentParser(prog="stopwise select",
+                                 description="selected iterate per run and stopping rule (oracle = reference only)")
+    ap.add_argument("campaign", help="campaign name or id")
+    ap.add_argument("--rule", action="append", default=None, metavar="NAME[:k=v,...]",
+                    help="a stopping rule, repeatable (default: the campaign's rules plus oracle)")
+    ap.add_argument("--root", default="results", help="results root (default: results)")
+    try:
+        a = ap.parse_args(argv)
+    except SystemExit as e:
+        return EXIT_BAD_INPUT if e.code else 0
+    try:
+        rules = [parse_rule_arg(r) for r in a.rule] if a.rule else None
+        df = select(a.root, a.campaign, rules)
+    except (RuleError, StoreError) as e:
+        return _fail(str(e))
+    if df.empty:
+        print(f"campaign {a.campaign} has no runs under {a.root}")
+        return 0
+    print(format_table(df))
+    n_runs = df["run_id"].nunique()
+    n_rules = df["rule"].nunique()
+    print(f"{n_runs} runs x {n_rules} rules (oracle rows are a reference, never a method)  (root {a.root})")
+    return 0
+
+
+def cmd_baselines(argv: list[str]) -> int:
+    import pandas as pd
+
+    from .baselines import BaselineError, ensure_baselines
+    from .spec import SpecError
+    from .store import StoreError
+
+    ap = argparse.ArgumentParser(prog="stopwise baselines",
+                                 description="explicit-regularization baselines selected on validation error")
+    ap.add_argument("campaign", help="campaign name or id")
+    ap.add_argument("--method", action="append", default=None, metavar="NAME",
+                    help="baseline method, repeatable (default: every method for the problem's task)")
+    ap.add_argument("--root", default="results", help="results root (default: results)")
+    ap.add_argument("--path", action="store_true", help="print every penalty, not only the selected one")
+    try:
+        a = ap.parse_args(argv)
+    except SystemExit as e:
+        return EXIT_BAD_INPUT if e.code else 0
+    try:
+        df = ensure_baselines(a.root, a.campaign, a.method)
+    except (BaselineError, StoreError, SpecError) as e:
+        return _fail(str(e))
+    if df.empty:
+        print(f"campaign {a.campaign} has no stored runs under {a.root} to fit baselines on")
+        return 0
+    show = df if a.path else df[df["selected"]]
+    with pd.option_context("display.max_rows", 100000, "display.width", 200, "display.max_columns", 30,
+                           "display.float_format", "{:.4g}".format):
+        print(show.drop(columns=["selected"] if not a.path else []).to_string(index=False))
+    n = df["baseline_id"].nunique()
+    print(f"{n} baseline paths, {len(df)} penalties; selected on validation error  "
+          f"(files in {Path(a.root) / 'baselines'})")
+    return 0
+
+
+COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls, "select": cmd_select,
+            "baselines": cmd_baselines,
+            "datasets": cmd_datasets}
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -38,6 +38,7 @@ from typing import Callable, NamedTuple
 import numpy as np
 from scipy.special import expit
 
+from .errors import SpecError
 from .problem import TrainingSet
 
 LOSS_NAMES = ("squares", "logistic", "softmax", "hinge")
@@ -52,7 +53,7 @@ CURVATURE = {"squares": 1.0, "logistic": 0.25, "softmax": 0.5, "hinge": 1.0}
 SMOOTH = ("squares", "logistic", "softmax")
 
 
-class LossError(ValueError):
+class LossError(SpecError):
     """A loss that does not exist or does not fit the task; the message is one line."""
 
 

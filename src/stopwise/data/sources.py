@@ -11,14 +11,24 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..solvers.base import Choice, Interval, param
+from ..solvers.base import Choice, Flag, Interval, param
 
 NOISE_MODELS = ("none", "gaussian", "norm")
 
 
 @dataclass(frozen=True)
 class RawData:
-    X: np.ndarray
+    """What a source returns, before splitting.
+
+    Numeric sources fill ``X`` (float64). Tabular sources (user files, OpenML) fill
+    ``frame`` instead: a pandas DataFrame of the raw feature columns, which may hold
+    categorical columns and missing values; ``categorical`` names the columns to one-hot
+    encode. ``y`` holds float targets for regression and the original class labels for
+    classification (any dtype; missing targets as NaN / None). ``folds`` maps
+    ``(repeat, fold)`` to predefined ``(train_rows, test_rows)`` (an OpenML task's folds).
+    """
+
+    X: np.ndarray | None
     y: np.ndarray
     task: str = "regression"
     feature_names: tuple[str, ...] = ()
@@ -27,15 +37,28 @@ class RawData:
     noise_level: float = 0.0
     noise_seed: tuple[int, ...] = (0,)  # seed sequence of the noise stream
     info: dict[str, Any] = field(default_factory=dict)
+    frame: Any = None             # pandas.DataFrame of raw feature columns (tabular sources)
+    categorical: tuple[str, ...] = ()
+    folds: dict[tuple[int, int], tuple[np.ndarray, np.ndarray]] | None = None
+
+    @property
+    def n_rows(self) -> int:
+        return int(self.frame.shape[0] if self.frame is not None else self.X.shape[0])
 
 
 @dataclass(frozen=True)
 class SourceDef:
+    """A dataset source. ``fingerprint(params)`` (optional) returns a digest of the
+    underlying data (a file's bytes), so the processed-problem cache is rebuilt when
+    the data changes under an unchanged config; ``check(params)`` (optional) is a cheap
+    validation run when a config is validated (a missing file, a missing option)."""
+
     name: str
     params: type
     load: Callable[[Any], RawData]
     summary: str
-    # optional check of the params at spec time: raises a one-line ValueError, returns the
+    fingerprint: Callable[[Any], str] | None = None
+    # optional check of the params at spec time: raises a one-line ValueError; may return the
     # task the params give when it is known without loading the data (else None)
     check: Callable[[Any], str | None] | None = None
 
@@ -73,6 +96,7 @@ class SklearnParams:
     class -> +1, every other kept class -> -1."""
 
     loader: str = param("diabetes", Choice(SKLEARN_LOADERS), "which scikit-learn bundled dataset")
+    scaled: bool = param(False, Flag(), "diabetes: the loader's own scaling (columns centered, unit norm over all rows)")
     classes: Any = param(None, None, "classification loaders: list of classes to keep, in encoding order",
                          omit_default=True)
     positive: Any = param(None, None, "classification loaders: the +1 class of a one-vs-rest binary task",
@@ -140,10 +164,10 @@ def load_sklearn(p: SklearnParams) -> RawData:
     from sklearn import datasets
 
     if p.loader == "diabetes":
-        bunch = datasets.load_diabetes(scaled=False)
+        bunch = datasets.load_diabetes(scaled=p.scaled)
         return RawData(X=np.asarray(bunch.data, dtype=np.float64), y=np.asarray(bunch.target, dtype=np.float64),
                        feature_names=tuple(bunch.feature_names),
-                       info={"origin": "sklearn.datasets.load_diabetes(scaled=False)"})
+                       info={"origin": f"sklearn.datasets.load_diabetes(scaled={p.scaled})"})
     kept, pos = sklearn_classes(p)
     bunch = getattr(datasets, f"load_{p.loader}")()
     target = np.asarray(bunch.target)
@@ -189,7 +213,7 @@ class SyntheticParams:
     seed: int = param(0, Interval(0, None, integer=True), "generator seed (design, truth and noise)")
     noise: str = param("gaussian", NOISE, "noise model on the targets")
     noise_level: float = param(0.5, Interval(0.0, None), "sigma (gaussian) or exact training noise norm (norm)")
-    width: float = param(0.03, POS, "illposed: width of the Gaussian smoothing kernel")
+    width: float = param(0.05, POS, "illposed: width of the Gaussian smoothing kernel")
 
 
 def _rng(p: SyntheticParams, stream: int) -> np.random.Generator:
