@@ -107,12 +107,31 @@ def _log_softplus(r: np.ndarray) -> np.ndarray:
     return out
 
 
+def _row_reduce(op, S: np.ndarray) -> np.ndarray:
+    """``op.reduce(S, axis=1)`` as a new array; for few columns a loop over the columns, which
+    numpy runs much faster than a reduction along short rows."""
+    if S.shape[1] > 16:
+        return op.reduce(S, axis=1)
+    out = S[:, 0].copy()
+    for j in range(1, S.shape[1]):
+        op(out, S[:, j], out=out)
+    return out
+
+
+def row_max(S: np.ndarray) -> np.ndarray:
+    return _row_reduce(np.maximum, S)
+
+
+def row_sum(S: np.ndarray) -> np.ndarray:
+    return _row_reduce(np.add, S)
+
+
 def logsumexp_rows(S: np.ndarray) -> np.ndarray:
     """``log sum_j exp(S_ij)`` per row (max-shifted; ``-inf`` entries allowed), a new array."""
-    m = S.max(axis=1)
+    m = row_max(S)
     T = S - m[:, None]
     np.exp(T, out=T)
-    out = np.log(T.sum(axis=1))
+    out = np.log(row_sum(T))
     out += m
     return out
 
@@ -122,7 +141,7 @@ def multiclass_margins(S: np.ndarray, c: np.ndarray) -> np.ndarray:
     rows = np.arange(S.shape[0])
     own = S[rows, c]
     S[rows, c] = -np.inf
-    other = S.max(axis=1)
+    other = row_max(S)
     S[rows, c] = own
     own -= other
     return own
@@ -215,9 +234,9 @@ def softmax_value(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 2) -> fl
 def softmax_gradient(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 2) -> np.ndarray:
     """``vec(X^T (P - Y) / n)`` with ``P`` the row-wise softmax of ``X W``, as a new flat array."""
     S = _scores(X, w, k)
-    S -= S.max(axis=1, keepdims=True)
+    S -= row_max(S)[:, None]
     np.exp(S, out=S)
-    S /= S.sum(axis=1, keepdims=True)
+    S /= row_sum(S)[:, None]
     S[np.arange(S.shape[0]), class_index(y)] -= 1.0
     G = X.T @ S
     G /= max(X.shape[0], 1)
