@@ -495,23 +495,23 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
     table["rel_gap"] = table["gap"] / table["reference"]
 
     # ---- ranks and rank tests
-    rankable = table if include_baselines else table[table["kind"] == "iterative"]
+    ranked_kinds = ("iterative",) if (by == "passes_to_target" or not include_baselines) else ("iterative", "explicit")
+    rankable = table[table["kind"].isin(ranked_kinds)]
+    present = rankable.pivot(index="dataset", columns="method", values="seeds").notna()
+    full = present.all(axis=0)
+    if not full.all():
+        notes.append("methods missing on some dataset are not ranked: " + ", ".join(map(str, full.index[~full])))
+    # a method without a valid selection on some seed of a dataset fails on that dataset
+    score = rankable[by].where(rankable["valid"] == rankable["seeds"], np.inf)
     if by == "passes_to_target":
-        rankable = rankable[rankable["kind"] == "iterative"]
-    scores = rankable.pivot(index="dataset", columns="method", values=by)
-    full = scores.notna().all(axis=0) if by == "passes_to_target" else pd.Series(True, index=scores.columns)
+        score = score.where(rankable["target"].notna(), np.nan)
+    scores = rankable.assign(_score=score).pivot(index="dataset", columns="method", values="_score")
+    scores = scores.loc[:, full[full].index]
     if by == "passes_to_target":
         dropped = scores.index[scores.isna().any(axis=1)]
         if len(dropped):
             notes.append(f"datasets without a target are not ranked by passes: {', '.join(map(str, dropped))}")
         scores = scores.dropna(axis=0, how="any")
-    else:
-        present = rankable.pivot(index="dataset", columns="method", values="seeds").notna()
-        full = present.all(axis=0)
-        absent = list(full.index[~full])
-        if absent:
-            notes.append("methods missing on some dataset are not ranked: " + ", ".join(map(str, absent)))
-        scores = scores.loc[:, full]
     ranks = rank_table(scores) if scores.shape[0] and scores.shape[1] else pd.DataFrame()
     test = None
     if ranks.shape[0] >= 2 and ranks.shape[1] >= 2:
