@@ -162,8 +162,11 @@ def implicit_explicit(panels: list[dict]) -> Plot:
         ax.invert_xaxis()
         ax.set_xlabel(r"regularization $\lambda$ (right: weaker, more iterations)")
         ax.set_ylabel("test error")
-        ax.set_title(f"{p['dataset']} (seed {p['seed']}, step {p['eta']:.3g})", fontsize=11)
+        scale = f"step_scale {p['step_scale']:g}, " if p.get("step_scale") is not None else ""
+        ax.set_title(f"{p['dataset']} (seed {p['seed']}, {scale}eta {p['eta']:.3g})", fontsize=11)
         ax.grid(True, alpha=0.3)
+        _plain_log_ticks(ax, "y")
+        ax.tick_params(axis="y", which="minor", labelsize=8)
     _hide_unused(axes, n)
     if n:
         h, lab = axes[0].get_legend_handles_labels()

@@ -25,7 +25,8 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Any, Callable, Iterable, Sequence
+from pathlib import Path
+from typing import Any, Callable, Iterable, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -342,7 +343,7 @@ def _explicit_replicates(baselines: pd.DataFrame | None) -> pd.DataFrame:
     out = pd.DataFrame({"dataset": b["dataset"].to_numpy(), "method": b["method"].astype(str).to_numpy(),
                         "seed": b["seed"].to_numpy(), "val_error": b["val_error"].to_numpy(dtype=float),
                         "test_error": b["test_error"].to_numpy(dtype=float),
-                        "config": ["penalty=" + _fmt_value(v) for v in b["penalty"]] if "penalty" in b else "",
+                        "config": [f"penalty={float(v):.4g}" for v in b["penalty"]] if "penalty" in b else "",
                         "run_id": b["baseline_id"].to_numpy() if "baseline_id" in b else None})
     out["kind"] = "explicit"
     out["valid"] = np.isfinite(out["test_error"].to_numpy())
@@ -541,6 +542,104 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
                    performance=perf, data=dprof, params=tuple(pcols), notes=notes)
 
 
+# ---------------------------------------------------------------- reading a campaign
+
+def read_traces(root: str | Path, run_ids: Iterable[str], columns: Sequence[str] = TRACE_COLUMNS) -> pd.DataFrame:
+    """Only ``columns`` of only the traces of ``run_ids`` (one Parquet column read per column)."""
+    import warnings
+
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from .store import Store
+
+    store = Store(root)
+    tables = []
+    for rid in dict.fromkeys(str(r) for r in run_ids):
+        path = store.run_path(rid)
+        if not path.exists():
+            continue
+        try:
+            names = pq.read_schema(path).names
+            tables.append(pq.read_table(path, columns=[c for c in columns if c in names]))
+        except Exception as e:  # one unreadable file must not sink the ranking
+            warnings.warn(f"skipping unreadable trace {path}: {type(e).__name__}: {e}", stacklevel=2)
+    if not tables:
+        return pd.DataFrame(columns=list(columns))
+    return pa.concat_tables(tables, promote_options="permissive").to_pandas()
+
+
+def rule_spec(rule: str | Mapping[str, Any]) -> dict[str, Any]:
+    """``NAME`` or ``NAME:key=value,...`` (or a stopping config mapping) -> {rule, params, label}."""
+    from .selection import parse_rule_arg
+    from .stopping import RuleError, rule_specs
+
+    try:
+        spec = parse_rule_arg(rule) if isinstance(rule, str) else dict(rule)
+        return rule_specs([spec])[0]
+    except RuleError as e:
+        raise RankError(str(e)) from None
+
+
+@dataclass
+class CampaignData:
+    """What ranking and the report read from a results root for one campaign."""
+
+    root: Path
+    campaign: str
+    rule: str                      # label of the ranked rule
+    selections: pd.DataFrame       # every requested rule
+    baselines: pd.DataFrame | None
+    references: pd.DataFrame | None
+
+
+def gather(root: str | Path, campaign: str, rule: str | Mapping[str, Any] = "holdout",
+           extra_rules: Iterable[Any] = (), baselines: str = "ensure", references: bool = True) -> CampaignData:
+    """Selections (the ranked rule plus ``extra_rules``), explicit baselines and references.
+
+    ``baselines``: ``ensure`` (compute the missing ones for every dataset, split and seed of
+    the campaign, reuse stored ones), ``stored`` (only what is stored) or ``none``.
+    """
+    from .selection import select
+    from .store import Store, StoreError
+
+    if baselines not in ("ensure", "stored", "none"):
+        raise RankError(f"baselines mode {baselines!r} is invalid; valid: ensure, stored, none")
+    try:
+        Store(root).find_campaign(campaign)
+    except StoreError as e:
+        raise RankError(str(e)) from None
+    main = rule_spec(rule)
+    if main["rule"] == "oracle":
+        raise RankError("stopping rule 'oracle' is a reference (it reads test error) and never ranks as a method; "
+                        "choose another rule, e.g. holdout")
+    specs = [main] + [rule_spec(r) for r in extra_rules]
+    sel = select(root, campaign, rules=[{"rule": s["rule"], "params": s["params"]} for s in specs])
+    bl = None
+    if baselines != "none":
+        from .baselines import ensure_baselines, load_baselines
+
+        bl = ensure_baselines(root, campaign) if baselines == "ensure" else load_baselines(root, campaign)
+    refs = None
+    if references:
+        from .references import load_references
+
+        refs = load_references()
+    return CampaignData(Path(root), campaign, main["label"], sel, bl, refs)
+
+
+def rank_campaign(root: str | Path = "results", campaign: str = "", rule: str | Mapping[str, Any] = "holdout", *,
+                  baselines: str = "ensure", data: CampaignData | None = None, **options: Any) -> Ranking:
+    """Rank a stored campaign: select with ``rule`` on every trace, tune on validation
+    error, read only the tuned runs' ``run_id, iteration, passes, test_error`` columns, and
+    aggregate (``options`` go to :func:`rank`)."""
+    data = data or gather(root, campaign, rule, baselines=baselines)
+    include = options.pop("include_baselines", data.baselines is not None)
+    return rank(data.selections, data.rule, traces=lambda ids: read_traces(data.root, ids),
+                baselines=data.baselines, references=data.references, include_baselines=include, **options)
+
+
 __all__ = ["Ranking", "RankError", "Target", "baseline_levels", "config_labels", "param_columns",
            "passes_to_target", "rank", "reference_levels", "summarize", "tune", "StatsError",
-           "performance_ratios"]
+           "performance_ratios", "CampaignData", "gather", "rank_campaign", "read_traces",
+           "rule_spec"]
