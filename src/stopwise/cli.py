@@ -14,6 +14,8 @@ commands:
   run [overrides]                run one configuration
   rerun ID [--root DIR]          recompute a run or a whole campaign and compare with the stored traces
   ls [--campaign C] [--root DIR] list stored runs
+  select CAMPAIGN [--rule NAME[:k=v,...] ...] [--root DIR]
+                                 evaluate stopping rules on a campaign's stored traces
 """
 
 
@@ -129,7 +131,37 @@ def cmd_ls(argv: list[str]) -> int:
     return 0
 
 
-COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls}
+def cmd_select(argv: list[str]) -> int:
+    from .selection import format_table, parse_rule_arg, select
+    from .stopping import RuleError
+    from .store import StoreError
+
+    ap = argparse.ArgumentParser(prog="stopwise select",
+                                 description="selected iterate per run and stopping rule (oracle = reference only)")
+    ap.add_argument("campaign", help="campaign name or id")
+    ap.add_argument("--rule", action="append", default=None, metavar="NAME[:k=v,...]",
+                    help="a stopping rule, repeatable (default: the campaign's rules plus oracle)")
+    ap.add_argument("--root", default="results", help="results root (default: results)")
+    try:
+        a = ap.parse_args(argv)
+    except SystemExit as e:
+        return EXIT_BAD_INPUT if e.code else 0
+    try:
+        rules = [parse_rule_arg(r) for r in a.rule] if a.rule else None
+        df = select(a.root, a.campaign, rules)
+    except (RuleError, StoreError) as e:
+        return _fail(str(e))
+    if df.empty:
+        print(f"campaign {a.campaign} has no runs under {a.root}")
+        return 0
+    print(format_table(df))
+    n_runs = df["run_id"].nunique()
+    n_rules = df["rule"].nunique()
+    print(f"{n_runs} runs x {n_rules} rules (oracle rows are a reference, never a method)  (root {a.root})")
+    return 0
+
+
+COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls, "select": cmd_select}
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -77,5 +77,14 @@ class Recorder:
             b[: self.size] = a[: self.size]
             self._data[c] = b
 
+    def view(self) -> dict[str, np.ndarray]:
+        """The rows recorded so far as read-only views (no copy; valid until the next record)."""
+        out = {}
+        for c, a in self._data.items():
+            v = a[: self.size]
+            v.flags.writeable = False
+            out[c] = v
+        return out
+
     def result(self) -> dict[str, np.ndarray]:
         return {c: a[: self.size].copy() for c, a in self._data.items()}

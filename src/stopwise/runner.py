@@ -72,13 +72,18 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
     factor = spec.budget["diverge_factor"]
     status, message = "completed", ""
 
+    decided = _halting(spec, problem)
+
     clock = time.perf_counter
     t0 = clock()
     state = sdef.init(train, params, rng)
     elapsed = clock() - t0
     loss0 = rec.record(state.iteration, state.passes, elapsed, state.w)
     limit = factor * max(loss0, np.finfo(float).tiny)
-    while state.iteration < max_it and (max_passes is None or state.passes < max_passes - 1e-12):
+    halted = decided(rec) if decided else None
+    if halted:
+        message = halted
+    while not halted and state.iteration < max_it and (max_passes is None or state.passes < max_passes - 1e-12):
         t0 = clock()
         state = sdef.step(train, params, state)
         elapsed += clock() - t0
@@ -94,7 +99,32 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
                 message = (f"training objective grew from {loss0:.3g} to {loss:.3g} (over {factor:g} times) "
                            f"by iteration {state.iteration}")
                 break
+            if decided:
+                halted = decided(rec)
+                if halted:
+                    message = halted
     return Trace(columns=rec.result(), status=status, message=message, problem_info=_problem_info(problem))
+
+
+def _halting(spec: RunSpec, problem: Problem):
+    """For ``stopping.halt: true``: a check ``recorder -> message or None`` run after every
+    recorded iterate; it returns a message once the rule's selection is final (later
+    iterates cannot change it), which ends the loop."""
+    if not spec.stopping.get("halt"):
+        return None
+    from .stopping import RuleContext, get_rule, make_rule_params
+
+    rdef = get_rule(spec.stopping["rule"])
+    rparams = make_rule_params(rdef.name, spec.stopping.get("params"))
+    ctx = RuleContext.from_problem(problem)
+
+    def decided(rec: Recorder) -> str | None:
+        sel = rdef.select(rec.view(), ctx, rparams)
+        if sel.final and sel.iteration is not None:
+            return f"halted by {rdef.name} at iteration {int(rec.view()['iteration'][-1])}: {sel.reason}"
+        return None
+
+    return decided
 
 
 def environment() -> dict[str, Any]:

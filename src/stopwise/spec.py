@@ -20,6 +20,7 @@ from .data import DataError, normalize_dataset, split_rows  # noqa: F401
 from .data.split import SPLIT_KINDS
 from .solvers import SOLVERS, get_solver
 from .solvers.base import Interval, ParamError, UnknownSolver, make_params
+from .stopping import RuleError, normalize_stopping
 
 TRACE_FORMAT = 1
 
@@ -43,6 +44,7 @@ class DatasetConfig:
     features: Optional[List[str]] = None
     standardize: bool = True
     center_target: bool = True
+    center_features: bool = False  # without standardize: subtract training means only
 
 
 @dataclass
@@ -270,7 +272,10 @@ def spec_from_config(cfg: Any) -> RunSpec:
     record = dict(RecordConfig().__dict__, **(c.get("record") or {}))
     record["every"] = int(_check("record.every", record["every"]))
     seed = int(_check("seed", c.get("seed", 0)))
-    stopping = dict(StoppingConfig().__dict__, **(c.get("stopping") or {}))
+    try:
+        stopping = normalize_stopping(dict(StoppingConfig().__dict__, **(c.get("stopping") or {})))
+    except RuleError as e:
+        raise SpecError(str(e)) from None
     return RunSpec(dataset=dataset, split=split, solver=name, params=params, budget=budget,
                    record=record, seed=seed, stopping=stopping)
 

@@ -35,6 +35,11 @@ def normalize_dataset(cfg: dict[str, Any]) -> dict[str, Any]:
     out = dict(cfg)
     out["params"] = asdict(params)
     out["features"] = list(cfg["features"]) if cfg.get("features") is not None else None
+    for key in ("standardize", "center_target", "center_features"):
+        if key in out and not isinstance(out[key], bool):
+            raise DataError(f"dataset.{key}={out[key]!r} is invalid: must be true or false")
+    if not out.get("center_features"):
+        out.pop("center_features", None)  # part of the run identity only when switched on
     return out
 
 
@@ -91,6 +96,12 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
         if w_true is not None:
             w_true = w_true * sd_safe
         prep["standardize"] = {"mean": mu.tolist(), "scale": sd_safe.tolist()}
+    elif dataset.get("center_features", False):
+        # centering alone (features keep their scale): a model without intercept on the
+        # centered data equals the model with an unpenalized intercept on the raw data
+        mu = Xs[0].mean(axis=0)
+        Xs = [x - mu for x in Xs]
+        prep["center_features"] = {"mean": mu.tolist()}
     if raw.task == "regression" and dataset.get("center_target", True):
         ybar = float(ys[0].mean())
         ys = [y - ybar for y in ys]

@@ -11,7 +11,7 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..solvers.base import Choice, Interval, param
+from ..solvers.base import Choice, Flag, Interval, param
 
 NOISE_MODELS = ("none", "gaussian", "norm")
 
@@ -53,16 +53,17 @@ SKLEARN_LOADERS = ("diabetes",)
 @dataclass(frozen=True)
 class SklearnParams:
     loader: str = param("diabetes", Choice(SKLEARN_LOADERS), "which scikit-learn bundled dataset")
+    scaled: bool = param(False, Flag(), "diabetes: the loader's own scaling (columns centered, unit norm over all rows)")
 
 
 def load_sklearn(p: SklearnParams) -> RawData:
     from sklearn import datasets
 
     if p.loader == "diabetes":
-        bunch = datasets.load_diabetes(scaled=False)
+        bunch = datasets.load_diabetes(scaled=p.scaled)
         return RawData(X=np.asarray(bunch.data, dtype=np.float64), y=np.asarray(bunch.target, dtype=np.float64),
                        feature_names=tuple(bunch.feature_names),
-                       info={"origin": "sklearn.datasets.load_diabetes(scaled=False)"})
+                       info={"origin": f"sklearn.datasets.load_diabetes(scaled={p.scaled})"})
     raise ValueError(f"unknown scikit-learn loader {p.loader!r}")  # unreachable after validation
 
 

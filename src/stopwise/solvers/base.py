@@ -91,7 +91,21 @@ class Choice:
         return "no-such-choice"
 
 
-def param(default: Any, constraint: Interval | Choice | None = None, doc: str = "") -> Any:
+@dataclass(frozen=True)
+class Flag:
+    """A true/false switch (YAML booleans only, never strings or numbers)."""
+
+    def contains(self, v: Any) -> bool:
+        return isinstance(v, bool)
+
+    def describe(self) -> str:
+        return "true or false"
+
+    def outside(self) -> Any:
+        return "no-such-flag"
+
+
+def param(default: Any, constraint: Interval | Choice | Flag | None = None, doc: str = "") -> Any:
     """Declare a params field with its constraint and one-line doc, readable by tests."""
     return field(default=default, metadata={"constraint": constraint, "doc": doc})
 
