@@ -247,11 +247,14 @@ def tune(selections: pd.DataFrame, rule: str, method_by: Sequence[str] = ("solve
     for c in ("passes_spent", "selected_passes", "selected_iteration", "train_error"):
         if c not in sel.columns:
             sel[c] = np.nan
-    valid = np.isfinite(sel["val_error"].to_numpy(dtype=float))
-    if "selected_iteration" in sel.columns:
-        valid &= sel["selected_iteration"].notna().to_numpy()
-    cand = sel[valid]
     keys = ["dataset", "method"]
+    # a candidate has a selection and a validation error to compare; a method with a single
+    # configuration needs no comparison, so it stays a candidate without validation rows
+    has_sel = sel["selected_iteration"].notna().to_numpy() if "selected_iteration" in sel.columns \
+        else np.ones(len(sel), dtype=bool)
+    n_cfg = sel.groupby(keys + ["seed"], sort=False)["config"].transform("nunique").to_numpy()
+    valid = has_sel & (np.isfinite(sel["val_error"].to_numpy(dtype=float)) | (n_cfg == 1))
+    cand = sel[valid]
     order = ["val_error", "passes_spent", "config", "run_id"]
     if tuning == "per_seed":
         chosen = (cand.sort_values(order, kind="stable", na_position="last")
@@ -295,12 +298,17 @@ def baseline_levels(baselines: pd.DataFrame | None) -> pd.DataFrame:
 
 def reference_levels(references: pd.DataFrame | None) -> pd.DataFrame:
     """Per dataset: the lowest published score among metrics a trace records (squared
-    error or error rate) -> columns dataset, reference, reference_method, reference_source."""
+    error or error rate) -> columns dataset, reference, reference_method, reference_source.
+
+    When the table has a ``protocol_matches`` column (``gather`` adds it), only rows whose
+    protocol builds the same dataset and split as the campaign's runs are used."""
     cols = ["dataset", "reference", "reference_method", "reference_source"]
     if references is None or references.empty:
         return pd.DataFrame(columns=cols)
     _require(references, ("dataset", "metric", "value"), "the reference table")
     r = references[references["metric"].astype(str).str.lower().isin(TRACE_METRICS)]
+    if "protocol_matches" in r.columns:
+        r = r[r["protocol_matches"].fillna(False).astype(bool)]
     r = r[np.isfinite(r["value"].to_numpy(dtype=float))]
     r = r.sort_values("value", kind="stable").groupby("dataset", sort=False).head(1)
     out = pd.DataFrame({"dataset": r["dataset"].to_numpy(), "reference": r["value"].to_numpy(dtype=float),
@@ -403,6 +411,22 @@ def summarize(rep: pd.DataFrame, confidence: float = 0.95) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS))
 
 
+def check_options(*, target: Target | str | float = "baseline", eps: float = 0.05, tau: float | None = None,
+                  by: str = "test_error", alpha: float = 0.05, confidence: float = 0.95, tuning: str = "per_seed",
+                  unit: str = "dataset", **_: Any) -> Target:
+    """Validate the ranking options (one-line RankError) and return the target."""
+    if by not in RANK_BY:
+        raise RankError(f"rank by {by!r} is invalid; valid: {', '.join(RANK_BY)}")
+    if tuning not in TUNINGS:
+        raise RankError(f"tuning {tuning!r} is invalid; valid: {', '.join(TUNINGS)}")
+    if unit not in UNITS:
+        raise RankError(f"profile unit {unit!r} is invalid; valid: {', '.join(UNITS)}")
+    for name, v in (("alpha", alpha), ("confidence", confidence)):
+        if not (isinstance(v, (int, float)) and 0 < v < 1):
+            raise RankError(f"{name}={v!r} is invalid: must be strictly between 0 and 1")
+    return target if isinstance(target, Target) else Target.parse(str(target), eps=eps, tau=tau)
+
+
 def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFrame | Callable | None = None,
          baselines: pd.DataFrame | None = None, references: pd.DataFrame | None = None,
          target: Target | str | float = "baseline", eps: float = 0.05, tau: float | None = None,
@@ -415,16 +439,8 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
     the tuned runs, or a function ``run_ids -> DataFrame`` that reads only those. Without
     it, passes to target and the profiles are left empty.
     """
-    if by not in RANK_BY:
-        raise RankError(f"rank by {by!r} is invalid; valid: {', '.join(RANK_BY)}")
-    if unit not in UNITS:
-        raise RankError(f"profile unit {unit!r} is invalid; valid: {', '.join(UNITS)}")
-    if not 0 < alpha < 1:
-        raise RankError(f"alpha={alpha!r} is invalid: must be strictly between 0 and 1")
-    if not 0 < confidence < 1:
-        raise RankError(f"confidence={confidence!r} is invalid: must be strictly between 0 and 1")
-    if not isinstance(target, Target):
-        target = Target.parse(str(target), eps=eps, tau=tau)
+    target = check_options(target=target, eps=eps, tau=tau, by=by, alpha=alpha, confidence=confidence,
+                           tuning=tuning, unit=unit)
     notes: list[str] = []
     pcols = param_columns(selections, tuple(method_by), params)
     rep = tune(selections, rule, method_by, pcols, tuning)
@@ -490,6 +506,12 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
 
     # ---- reference gap
     refs = reference_levels(references)
+    if references is not None and "protocol_matches" in references.columns:
+        other = sorted(set(references.loc[~references["protocol_matches"].astype(bool), "dataset"].astype(str))
+                       & set(map(str, rep["dataset"])) - set(map(str, refs["dataset"])))
+        if other:
+            notes.append("published references for " + ", ".join(other) + " use another split or preprocessing "
+                         "than this campaign (see their protocol): no gap to reference computed")
     table = table.merge(refs, on="dataset", how="left") if not refs.empty else table.assign(
         reference=np.nan, reference_method=None, reference_source=None)
     table["gap"] = table["test_error"] - table["reference"]
@@ -594,17 +616,22 @@ class CampaignData:
 
 
 def gather(root: str | Path, campaign: str, rule: str | Mapping[str, Any] = "holdout",
-           extra_rules: Iterable[Any] = (), baselines: str = "ensure", references: bool = True) -> CampaignData:
+           extra_rules: Iterable[Any] = (), baselines: str = "ensure", references: bool = True,
+           method_by: Sequence[str] = ("solver",), params: Iterable[str] | None = None,
+           **options: Any) -> CampaignData:
     """Selections (the ranked rule plus ``extra_rules``), explicit baselines and references.
 
     ``baselines``: ``ensure`` (compute the missing ones for every dataset, split and seed of
-    the campaign, reuse stored ones), ``stored`` (only what is stored) or ``none``.
+    the campaign, reuse stored ones), ``stored`` (only what is stored) or ``none``. Every
+    option is checked (``options`` as :func:`rank` takes them) before anything is computed
+    or written.
     """
     from .selection import select
     from .store import Store, StoreError
 
     if baselines not in ("ensure", "stored", "none"):
         raise RankError(f"baselines mode {baselines!r} is invalid; valid: ensure, stored, none")
+    check_options(**options)
     try:
         Store(root).find_campaign(campaign)
     except StoreError as e:
@@ -615,6 +642,10 @@ def gather(root: str | Path, campaign: str, rule: str | Mapping[str, Any] = "hol
                         "choose another rule, e.g. holdout")
     specs = [main] + [rule_spec(r) for r in extra_rules]
     sel = select(root, campaign, rules=[{"rule": s["rule"], "params": s["params"]} for s in specs])
+    if sel.empty:
+        raise RankError(f"campaign {campaign!r} has no stored runs under {root}; run it first with stopwise sweep")
+    _require(sel, tuple(method_by), "the selection table")
+    param_columns(sel, tuple(method_by), params)
     bl = None
     if baselines != "none":
         from .baselines import ensure_baselines, load_baselines
@@ -624,22 +655,58 @@ def gather(root: str | Path, campaign: str, rule: str | Mapping[str, Any] = "hol
     if references:
         from .references import load_references
 
-        refs = load_references()
+        refs = mark_protocols(load_references(), root, sel)
     return CampaignData(Path(root), campaign, main["label"], sel, bl, refs)
+
+
+def mark_protocols(references: pd.DataFrame, root: str | Path, selections: pd.DataFrame) -> pd.DataFrame:
+    """Add ``protocol_matches``: does the reference's protocol (Hydra overrides) build the
+    same dataset and split as the campaign's runs on that dataset? The seed must match too
+    when the split is random. The first stored run of each dataset stands for all of them."""
+    import shlex
+
+    from .spec import SpecError, spec_from_overrides
+    from .store import Store
+
+    store = Store(root)
+    ours: dict[str, dict] = {}
+    for d, rid in selections.drop_duplicates("dataset")[["dataset", "run_id"]].itertuples(index=False):
+        cfg = (store.run_meta(str(rid)) or {}).get("config") or {}
+        ours[str(d)] = cfg
+    built: dict[str, Any] = {}
+    match = []
+    for d, protocol in zip(references["dataset"].astype(str), references["protocol"].astype(str)):
+        cfg = ours.get(d)
+        if not cfg:
+            match.append(False)
+            continue
+        if protocol not in built:
+            try:
+                built[protocol] = spec_from_overrides(shlex.split(protocol))
+            except (SpecError, ValueError):
+                built[protocol] = None
+        spec = built[protocol]
+        ok = (spec is not None and spec.dataset == cfg.get("dataset") and spec.split == cfg.get("split")
+              and (spec.split.get("kind") != "random" or spec.seed == cfg.get("seed")))
+        match.append(bool(ok))
+    return references.assign(protocol_matches=match)
 
 
 def rank_campaign(root: str | Path = "results", campaign: str = "", rule: str | Mapping[str, Any] = "holdout", *,
                   baselines: str = "ensure", data: CampaignData | None = None, **options: Any) -> Ranking:
     """Rank a stored campaign: select with ``rule`` on every trace, tune on validation
     error, read only the tuned runs' ``run_id, iteration, passes, test_error`` columns, and
-    aggregate (``options`` go to :func:`rank`)."""
-    data = data or gather(root, campaign, rule, baselines=baselines)
+    aggregate (``options`` go to :func:`rank`).
+
+    >>> r = rank_campaign("results", "demo", "holdout", target="baseline")   # doctest: +SKIP
+    >>> print(stopwise.tables.render(r, "markdown"))                          # doctest: +SKIP
+    """
+    data = data or gather(root, campaign, rule, baselines=baselines, **options)
     include = options.pop("include_baselines", data.baselines is not None)
     return rank(data.selections, data.rule, traces=lambda ids: read_traces(data.root, ids),
                 baselines=data.baselines, references=data.references, include_baselines=include, **options)
 
-
 __all__ = ["Ranking", "RankError", "Target", "baseline_levels", "config_labels", "param_columns",
            "passes_to_target", "rank", "reference_levels", "summarize", "tune", "StatsError",
            "performance_ratios", "CampaignData", "gather", "rank_campaign", "read_traces",
-           "rule_spec"]
+           "rule_spec", "check_options", "mark_protocols"]
