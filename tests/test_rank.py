@@ -250,3 +250,12 @@ def test_to_text_aligns_columns():
     lines = to_text(df).splitlines()
     assert lines[0] == "name    value" and lines[2] == "a         1.5" and lines[3] == "longer     12"
     assert to_markdown(df).splitlines()[1] == "|:---|---:|"
+
+
+def test_target_without_traces():
+    """The level (1.05 x best baseline = .42) needs no trace; passes to target does."""
+    r = rank(small_campaign(), "holdout", baselines=small_baselines())
+    t = r.table.set_index(["dataset", "method"])
+    assert t.loc[("A", "cgls"), "target"] == pytest.approx(0.42) and t.loc[("A", "cgls"), "reached_at_stop"] == 2
+    assert math.isnan(t.loc[("A", "cgls"), "passes_to_target"]) and r.performance.empty
+    assert any("no traces" in n for n in r.notes)

@@ -170,3 +170,12 @@ def test_gap_to_a_published_reference_on_its_own_protocol(tmp_path):
     t = stopwise.load_traces(root, cid)
     assert row["passes_to_target"] == t.loc[t.test_error <= 2004.5676, "passes"].min()
     assert row["reached_at_stop"] == 1
+
+
+def test_report_bad_input_writes_nothing_and_help_works(campaign, tmp_path):
+    root, cid = campaign
+    out = tmp_path / "page"
+    code, _, err = cli("report", cid, "--root", str(root), "--out", str(out), "--mark", "nosuch")
+    assert code == 2 and err.count("\n") == 1 and "nosuch" in err and not out.exists()
+    code, stdout, _ = cli("rank", "--help")
+    assert code == 0 and "--target" in stdout

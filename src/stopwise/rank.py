@@ -461,40 +461,42 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
                                             on="dataset", how="left")
     elif target.kind == "value":
         rep["f_l"] = float(target.value)
-    run_ids = rep.loc[rep["valid"], "run_id"].astype(str).unique().tolist()
-    if target.kind != "none" and traces is not None and run_ids:
-        tr = traces(run_ids) if callable(traces) else traces
-        _require(tr, ("run_id", "passes", "test_error"), "the trace table")
-        f0 = tr[tr["run_id"].isin(run_ids)]
-        if "iteration" in f0.columns:
-            f0 = f0.sort_values(["run_id", "iteration"], kind="stable")
-        f0 = f0.groupby("run_id", sort=False)["test_error"].first()
-        valid = rep["valid"].to_numpy()
-        lvl = target.level(rep["f_l"].to_numpy(dtype=float), rep["run_id"].map(f0).to_numpy(dtype=float))
-        rep["target"] = np.where(valid, lvl, np.nan)
-        tg = pd.Series(rep.loc[valid, "target"].to_numpy(), index=rep.loc[valid, "run_id"].astype(str))
-        tg = tg[~tg.index.duplicated()]
-        hit = passes_to_target(tr, tg.dropna())
-        rep["f_0"] = rep["run_id"].map(hit.set_index("run_id")["f_0"])
-        rep["passes_to_target"] = rep["run_id"].map(hit.set_index("run_id")["passes_to_target"]).astype(float)
-        # a seed whose method found no valid selection never reaches the target
-        rep.loc[~rep["valid"] & rep["f_l"].notna(), "passes_to_target"] = math.inf
-        rep["reached_at_stop"] = rep["test_error"].to_numpy(dtype=float) <= rep["target"].to_numpy(dtype=float)
-    else:
-        if target.kind != "none" and traces is None:
+    valid = rep["valid"].to_numpy(bool)
+    run_ids = rep.loc[valid, "run_id"].astype(str).unique().tolist()
+    tr = None
+    if target.kind != "none" and run_ids:
+        if traces is None:
             notes.append("no traces given: passes to target not computed")
-        rep["target"] = np.nan
-        rep["passes_to_target"] = np.nan
-        rep["reached_at_stop"] = False
+        else:
+            tr = traces(run_ids) if callable(traces) else traces
+            _require(tr, ("run_id", "passes", "test_error"), "the trace table")
+    f0 = pd.Series(dtype=float)
+    if tr is not None:
+        t0 = tr[tr["run_id"].isin(run_ids)]
+        if "iteration" in t0.columns:
+            t0 = t0.sort_values(["run_id", "iteration"], kind="stable")
+        f0 = t0.groupby("run_id", sort=False)["test_error"].first()
+    rep["f_0"] = rep["run_id"].map(f0).astype(float)
+    # the level needs f_0 only in the More-Wild form; without traces that form stays undefined
+    rep["target"] = np.where(valid, target.level(rep["f_l"].to_numpy(dtype=float), rep["f_0"].to_numpy()), np.nan) \
+        if target.kind != "none" else np.nan
+    rep["reached_at_stop"] = rep["test_error"].to_numpy(dtype=float) <= rep["target"].to_numpy(dtype=float)
+    rep["passes_to_target"] = np.nan
+    if tr is not None:
+        tg = pd.Series(rep.loc[valid, "target"].to_numpy(), index=rep.loc[valid, "run_id"].astype(str))
+        tg = tg[~tg.index.duplicated()].dropna()
+        hit = passes_to_target(tr, tg).set_index("run_id")["passes_to_target"]
+        rep["passes_to_target"] = rep["run_id"].map(hit).astype(float)
+        # a seed on which the method found no valid selection never reaches the target
+        rep.loc[~rep["valid"] & rep["f_l"].notna(), "passes_to_target"] = math.inf
 
     # ---- explicit baselines as methods of their own (error only; no data passes)
     ex = _explicit_replicates(baselines) if include_baselines else pd.DataFrame()
     if not ex.empty:
         ex = ex[ex["dataset"].isin(rep["dataset"].unique())]
-        if target.kind in ("baseline", "reference", "value"):
-            lv = rep.groupby(["dataset", "seed"])["target"].first()
-            ex["target"] = [lv.get((d, s), np.nan) for d, s in zip(ex["dataset"], ex["seed"])]
-            ex["reached_at_stop"] = ex["test_error"].to_numpy(dtype=float) <= ex["target"].to_numpy(dtype=float)
+        lv = rep.groupby(["dataset", "seed"])["target"].first()
+        ex["target"] = [lv.get((d, s_), np.nan) for d, s_ in zip(ex["dataset"], ex["seed"])]
+        ex["reached_at_stop"] = ex["test_error"].to_numpy(dtype=float) <= ex["target"].to_numpy(dtype=float)
         ex["passes_to_target"] = np.nan
         both = pd.concat([rep, ex], ignore_index=True, sort=False)
     else:
