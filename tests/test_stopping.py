@@ -347,3 +347,32 @@ def test_post_hoc_rules_do_not_change_the_run_identity_but_halting_does():
     c = spec_from_overrides(["stopping=discrepancy", "stopping.halt=true"])
     assert a.run_id == b.run_id != c.run_id
     assert isinstance(apply_rule("budget", trace(val_error=[1.0])), Selection)
+
+
+def _holdout_by_definition(val, passes, patience, m, relative):
+    """The holdout rule written as its definition reads, row by row (plain Python)."""
+    best, best_row, last = math.inf, None, None
+    for i, v in enumerate(val):
+        if math.isfinite(v):
+            margin = m * best if (relative and best_row is not None) else m
+            if best_row is None or v < best - margin:
+                last = i
+            if v < best:
+                best, best_row = v, i
+        if patience is not None and last is not None and passes[i] - passes[last] >= patience - 1e-12:
+            return best_row, i
+    return best_row, len(val) - 1
+
+
+@settings(max_examples=80, deadline=None)
+@given(st.lists(st.one_of(finite, st.just(float("nan"))), min_size=1, max_size=30),
+       st.one_of(st.none(), st.floats(0.25, 6.0)), st.floats(0.0, 1.0), st.booleans())
+def test_holdout_matches_its_row_by_row_definition(val, patience, m, relative):
+    passes = np.arange(len(val)) * 0.5
+    t = pd.DataFrame({"iteration": np.arange(len(val)), "passes": passes, "val_error": val})
+    s = apply_rule("holdout", t, CTX, {"patience": patience, "min_improvement": m, "relative": relative})
+    best_row, spent = _holdout_by_definition(val, passes, patience, m, relative)
+    if best_row is None:
+        assert s.iteration is None
+    else:
+        assert (s.row, s.passes_spent) == (best_row, passes[spent])

@@ -103,6 +103,7 @@ class LassoParams:
     eps: float = param(1e-3, Interval(0.0, 1.0, low_closed=False, high_closed=False),
                        "alpha_min / alpha_max; alpha_max = max|X^T y| / n, the smallest alpha giving w = 0")
     max_iter: int = param(10000, COUNT, "coordinate descent sweeps per alpha")
+    tol: float = param(1e-7, POS, "coordinate descent tolerance (scikit-learn's tol: duality gap relative to ||y||^2)")
 
 
 @dataclass(frozen=True)
@@ -113,6 +114,7 @@ class ElasticNetParams:
                        "alpha_min / alpha_max; alpha_max = max|X^T y| / (n l1_ratio)")
     l1_ratio: float = param(0.5, Interval(0.0, 1.0, low_closed=False), "rho: share of the l1 penalty")
     max_iter: int = param(10000, COUNT, "coordinate descent sweeps per alpha")
+    tol: float = param(1e-7, POS, "coordinate descent tolerance (scikit-learn's tol: duality gap relative to ||y||^2)")
 
 
 @dataclass(frozen=True)
@@ -223,7 +225,8 @@ def _cd_path(problem: Problem, p: LassoParams | ElasticNetParams, l1_ratio: floa
     t0 = time.perf_counter()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ConvergenceWarning)
-        got, coefs, _ = enet_path(np.asfortranarray(X), y, l1_ratio=l1_ratio, alphas=alphas, max_iter=p.max_iter)
+        got, coefs, _ = enet_path(np.asfortranarray(X), y, l1_ratio=l1_ratio, alphas=alphas, max_iter=p.max_iter,
+                                 tol=p.tol)
     sec = time.perf_counter() - t0
     # enet_path returns the alphas it was given, sorted from largest to smallest
     order = np.argsort(-alphas, kind="stable")
@@ -356,10 +359,10 @@ def fit_path(problem: Problem, method: str, params: Mapping[str, Any] | Any = No
     (1, True)
     """
     d = get_baseline(method)
+    p = params if isinstance(params, d.params) else baseline_params(method, params)
     if problem.task not in d.tasks:
         raise BaselineError(f"baseline {method!r} does not handle {problem.task} problems; "
                             f"for {problem.task}: {', '.join(default_methods(problem.task)) or '(none)'}")
-    p = params if isinstance(params, d.params) else baseline_params(method, params)
     return d.fit(problem, p)
 
 

@@ -16,6 +16,8 @@ commands:
   ls [--campaign C] [--root DIR] list stored runs
   select CAMPAIGN [--rule NAME[:k=v,...] ...] [--root DIR]
                                  evaluate stopping rules on a campaign's stored traces
+  baselines CAMPAIGN [--method NAME ...] [--root DIR] [--path]
+                                 fit (or reuse) explicit-regularization baselines on the campaign's splits
   rank CAMPAIGN [--rule R] [--target T] [--by B] [--format text|csv|markdown] ...
                                  tune methods on validation error, rank them across datasets
   report CAMPAIGN [--rule R] [--out DIR] ...
@@ -165,6 +167,41 @@ def cmd_select(argv: list[str]) -> int:
     return 0
 
 
+def cmd_baselines(argv: list[str]) -> int:
+    import pandas as pd
+
+    from .baselines import BaselineError, ensure_baselines
+    from .spec import SpecError
+    from .store import StoreError
+
+    ap = argparse.ArgumentParser(prog="stopwise baselines",
+                                 description="explicit-regularization baselines selected on validation error")
+    ap.add_argument("campaign", help="campaign name or id")
+    ap.add_argument("--method", action="append", default=None, metavar="NAME",
+                    help="baseline method, repeatable (default: every method for the problem's task)")
+    ap.add_argument("--root", default="results", help="results root (default: results)")
+    ap.add_argument("--path", action="store_true", help="print every penalty, not only the selected one")
+    try:
+        a = ap.parse_args(argv)
+    except SystemExit as e:
+        return EXIT_BAD_INPUT if e.code else 0
+    try:
+        df = ensure_baselines(a.root, a.campaign, a.method)
+    except (BaselineError, StoreError, SpecError) as e:
+        return _fail(str(e))
+    if df.empty:
+        print(f"campaign {a.campaign} has no stored runs under {a.root} to fit baselines on")
+        return 0
+    show = df if a.path else df[df["selected"]]
+    with pd.option_context("display.max_rows", 100000, "display.width", 200, "display.max_columns", 30,
+                           "display.float_format", "{:.4g}".format):
+        print(show.drop(columns=["selected"] if not a.path else []).to_string(index=False))
+    n = df["baseline_id"].nunique()
+    print(f"{n} baseline paths, {len(df)} penalties; selected on validation error  "
+          f"(files in {Path(a.root) / 'baselines'})")
+    return 0
+
+
 class _ArgError(Exception):
     pass
 
@@ -267,7 +304,7 @@ def cmd_report(argv: list[str]) -> int:
 
 
 COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls, "select": cmd_select,
-            "rank": cmd_rank, "report": cmd_report}
+            "baselines": cmd_baselines, "rank": cmd_rank, "report": cmd_report}
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -102,8 +102,26 @@ def residual_metrics(problem: Problem) -> dict[str, Callable[[np.ndarray], float
         state["rows"] = k + 1
         return float(prev @ cur) if k else math.nan
 
+    q = X.shape[0] // 2
+    line = np.arange(1, q + 1) / max(q, 1)
+    p, tmp = np.empty(q), np.empty(q)
+
     def distance(w: np.ndarray) -> float:
-        return ncp_distance(bufs[(state["rows"] - 1) % 2])
+        # ncp_distance with preallocated buffers (the FFT output is the only allocation)
+        if q == 0:
+            return math.nan
+        rhat = np.fft.rfft(bufs[(state["rows"] - 1) % 2])[1:q + 1]
+        np.multiply(rhat.real, rhat.real, out=p)
+        np.multiply(rhat.imag, rhat.imag, out=tmp)
+        np.add(p, tmp, out=p)
+        np.cumsum(p, out=tmp)
+        total = tmp[-1]
+        if not total > 0:
+            return math.nan
+        np.divide(tmp, total, out=tmp)
+        np.subtract(tmp, line, out=tmp)
+        np.abs(tmp, out=tmp)
+        return float(tmp.max())
 
     return {"residual_dot_prev": dot_prev, "ncp_distance": distance}
 

@@ -170,8 +170,8 @@ class BudgetParams:
 def budget(trace: Any, ctx: RuleContext, params: BudgetParams = BudgetParams()) -> Selection:
     """Last recorded iterate ``t`` with ``t <= iterations`` and ``passes_t <= passes``.
 
-    With no limit it is the last recorded iterate (final only once a later row passes a
-    limit, so without limits the rule cannot halt a run).
+    Final once an iterate reaches or passes a limit; with no limit it is the last
+    recorded iterate and never final (so without limits the rule cannot halt a run).
     """
     cols = _columns(trace)
     n = _n(cols)
@@ -188,6 +188,9 @@ def budget(trace: Any, ctx: RuleContext, params: BudgetParams = BudgetParams()) 
     if inside.size == 0:
         return _none(cols, "no recorded iterate lies within the budget", final, spent_row=0)
     row = int(inside[-1])
+    # an iterate exactly at a limit is the last one the budget allows
+    final = final or (params.iterations is not None and cols["iteration"][row] >= params.iterations) or \
+        (params.passes is not None and cols["passes"][row] >= params.passes - 1e-12)
     what = []
     if params.iterations is not None:
         what.append(f"{params.iterations} iterations")
@@ -229,20 +232,25 @@ def holdout(trace: Any, ctx: RuleContext, params: HoldoutParams = HoldoutParams(
     if val is None or not np.isfinite(val).any():
         return _none(cols, "no validation error in the trace (the split has no validation rows)")
     passes = cols["passes"]
-    best, best_row, last_imp = math.inf, -1, -1
-    for i in range(n):
-        v = float(val[i])
-        if math.isfinite(v):  # a missing validation error is never an improvement
-            margin = params.min_improvement * (best if params.relative and best_row >= 0 else 1.0)
-            if best_row < 0 or v < best - margin:
-                last_imp = i
-            if v < best:
-                best, best_row = v, i
-        if (params.patience is not None and last_imp >= 0
-                and passes[i] - passes[last_imp] >= params.patience - 1e-12):
+    v = np.where(np.isfinite(val), val, np.inf)  # a missing validation error never improves
+    run_min = np.minimum.accumulate(v)
+    prev = np.concatenate(([np.inf], run_min[:-1]))  # best before each row
+    margin = params.min_improvement * (np.where(np.isfinite(prev), prev, 1.0) if params.relative else 1.0)
+    with np.errstate(invalid="ignore"):
+        imp = np.isfinite(v) & (np.isinf(prev) | (v < prev - margin))
+    idx = np.arange(n)
+    last_imp = np.maximum.accumulate(np.where(imp, idx, -1))
+    if params.patience is not None:
+        since = passes - passes[np.maximum(last_imp, 0)]
+        out = np.flatnonzero((last_imp >= 0) & (since >= params.patience - 1e-12))
+        if out.size:
+            i = int(out[0])
+            best_row = int(np.argmin(v[: i + 1]))
             return _pick(cols, best_row, i,
-                         f"best validation error {_g(best)}; no improvement for {params.patience:g} passes "
+                         f"best validation error {_g(v[best_row])}; no improvement for {params.patience:g} passes "
                          f"by iteration {int(cols['iteration'][i])}", True)
+    best_row = int(np.argmin(v)) if np.isfinite(run_min[-1]) else -1
+    best = float(run_min[-1])
     if best_row < 0:
         return _none(cols, "validation error is never finite")
     reason = (f"best validation error {_g(best)} (patience never ran out)" if params.patience is not None
@@ -272,6 +280,8 @@ def discrepancy(trace: Any, ctx: RuleContext, params: DiscrepancyParams = Discre
     if delta is None:
         return _none(cols, NO_DELTA)
     thr = params.tau * delta
+    if "residual_norm" not in cols:
+        return _none(cols, "trace has no residual_norm column")
     res = cols["residual_norm"]
     hit = np.flatnonzero(res <= thr)
     if hit.size:
