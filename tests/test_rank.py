@@ -101,7 +101,7 @@ def test_tuning_never_uses_test_error():
         assert after.test_error.tolist() == before.test_error.tolist()
 
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=10, deadline=None)
 @given(st.integers(0, 2**31 - 1))
 def test_tuning_is_a_function_of_validation_error_only(seed):
     """Property: redrawing every test error (selected ones included) never changes the chosen runs."""
