@@ -341,10 +341,10 @@ def heatmaps(selections: pd.DataFrame, rule: str, params: Sequence[str], method_
         if np.isfinite(vgrid).any():
             bi, bj = np.unravel_index(np.nanargmin(vgrid), vgrid.shape)
             ax.add_patch(_box(bj, bi))
-        ax.set_xticks(range(len(xs)), [f"{v:g}" for v in xs])
+        ax.set_xticks(range(len(xs)), [_tick(v) for v in xs])
         ax.set_xlabel(x)
         if y:
-            ax.set_yticks(range(len(ys)), [f"{v:g}" for v in ys])
+            ax.set_yticks(range(len(ys)), [_tick(v) for v in ys])
             ax.set_ylabel(y)
         else:
             ax.set_yticks([])
@@ -358,6 +358,15 @@ def heatmaps(selections: pd.DataFrame, rule: str, params: Sequence[str], method_
                "n/a marks combinations without a valid selection." + more)
     alt = "Heat maps: " + "; ".join(f"{m} on {d} over {x}" + (f" and {y}" if y else "") for d, m, x, y, _ in shown) + "."
     return Plot("heatmaps", caption, alt, _png(fig))
+
+
+def _tick(v) -> str:
+    if isinstance(v, (bool, np.bool_, str)):
+        return str(v)
+    try:
+        return f"{float(v):g}"
+    except (TypeError, ValueError):
+        return str(v)
 
 
 def _box(j: int, i: int):

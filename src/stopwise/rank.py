@@ -99,8 +99,8 @@ class Target:
             return "no target"
         if self.kind == "value":
             return f"test error <= {self.value:g}"
-        base = {"baseline": "best explicit baseline's test error f_L (same dataset and seed)",
-                "reference": "published reference score f_L"}[self.kind]
+        base = {"baseline": "the best explicit baseline's test error on the same dataset and seed",
+                "reference": "the published reference score"}[self.kind]
         if self.tau is not None:
             return f"test error <= f_L + {self.tau:g} (f_0 - f_L), f_L = {base}"
         return f"test error <= (1 + {self.eps:g}) f_L, f_L = {base}"
