@@ -1,14 +1,17 @@
-"""The examples in the docstrings of the stopping, baselines and references modules run."""
+"""Every example in a public docstring runs and prints what it says."""
 import doctest
+import importlib
+import pkgutil
 
 import pytest
 
-import stopwise.baselines
-import stopwise.references
-import stopwise.stopping
+import stopwise
+
+MODULES = sorted(m.name for m in pkgutil.walk_packages(stopwise.__path__, "stopwise."))
 
 
-@pytest.mark.parametrize("module", [stopwise.stopping, stopwise.baselines, stopwise.references])
-def test_docstring_examples(module):
-    result = doctest.testmod(module, optionflags=doctest.ELLIPSIS)
-    assert result.attempted > 0 and result.failed == 0
+@pytest.mark.parametrize("name", MODULES)
+def test_docstring_examples(name):
+    mod = importlib.import_module(name)
+    result = doctest.testmod(mod, optionflags=doctest.ELLIPSIS | doctest.NORMALIZE_WHITESPACE, verbose=False)
+    assert result.failed == 0, f"{result.failed} docstring example(s) failed in {name}"

@@ -48,6 +48,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from .errors import SpecError
 from .problem import Problem
 from .solvers.base import Flag, Interval, ParamError, make_params, param
 from .store import META_KEY, Store, StoreError, _atomic_write, _json_default
@@ -57,7 +58,7 @@ BASELINE_COLUMNS = ("baseline_id", "dataset", "seed", "method", "penalty", "val_
                     "selected", "n_fits", "seconds")
 
 
-class BaselineError(ValueError):
+class BaselineError(SpecError):
     """Bad baseline request; ``str(e)`` is one line naming the valid choices."""
 
 

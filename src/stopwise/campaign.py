@@ -45,6 +45,19 @@ def _compose(overrides: list[str]):
         raise SpecError(hydra_error_line(e)) from None
 
 
+def check_data(specs: list[RunSpec]) -> None:
+    """Build each distinct problem once (kept in the in-process cache for the runs), so data
+    errors (unknown feature, bad row indices) are reported before anything is written."""
+    from .data import cached_problem
+
+    seen = set()
+    for s in specs:
+        key = canonical_json([s.dataset, s.split, s.seed])
+        if key not in seen:
+            seen.add(key)
+            cached_problem(s.dataset, s.split, s.seed)
+
+
 def campaign_file(name: str) -> Path:
     if not NAME.match(name or ""):
         raise SpecError(f"campaign name {name!r} is invalid: use letters, digits, '_', '-', '.'")
@@ -106,6 +119,7 @@ def expand(campaign: str | None, overrides: list[str]) -> Expansion:
             roots.add(str(cfg.results_root))
     if len(roots) != 1:
         raise SpecError("results_root must be the same for every job of a sweep")
+    check_data(specs)
     run_ids: list[str] = []
     for s in specs:
         if s.run_id not in run_ids:

@@ -68,9 +68,12 @@ def cmd_run(argv: list[str]) -> int:
     bad = [a for a in argv if a.startswith("-")]
     if bad:
         return _fail(f"unknown option {bad[0]!r}; run takes key=value overrides")
+    from .campaign import check_data
+
     try:
         cfg = compose(argv)
         spec = spec_from_config(cfg)
+        check_data([spec])
     except SpecError as e:
         return _fail(str(e))
     out = run_spec(spec, str(cfg.results_root))
@@ -120,6 +123,8 @@ def cmd_ls(argv: list[str]) -> int:
     ap = argparse.ArgumentParser(prog="stopwise ls")
     ap.add_argument("--campaign", default=None, help="campaign name or id")
     ap.add_argument("--root", default="results")
+    ap.add_argument("--summary", action="store_true",
+                    help="one row per dataset and solver: the run with the best validation error")
     a = ap.parse_args(argv)
     try:
         df = load_runs(a.root, a.campaign)
@@ -128,13 +133,31 @@ def cmd_ls(argv: list[str]) -> int:
     if df.empty:
         print(f"no runs under {a.root}")
         return 0
-    show = df.drop(columns=["message"])
+    show = summary_table(df) if a.summary else df.drop(columns=["message"])
     with pd.option_context("display.max_rows", 500, "display.width", 200, "display.max_columns", 30,
                            "display.float_format", "{:.4g}".format):
         print(show.to_string(index=False))
     print(f"{len(df)} runs: " + ", ".join(f"{n} {s}" for s, n in df["status"].value_counts().items())
           + f"  (root {a.root})")
     return 0
+
+
+def summary_table(df):
+    """Per dataset and solver: runs, diverged runs, and the run whose best validation error is lowest."""
+    import pandas as pd
+
+    rows = []
+    for (ds, sv), g in df.groupby(["dataset", "solver"], sort=True):
+        ok = g[g["best_val_error"].notna()]
+        row = {"dataset": ds, "solver": sv, "runs": len(g), "diverged": int((g["status"] == "diverged").sum())}
+        if len(ok):
+            b = ok.loc[ok["best_val_error"].idxmin()]
+            params = {k: b[k] for k in ("step_scale", "momentum") if k in b and pd.notna(b[k])}
+            row.update(best_params=" ".join(f"{k}={v:g}" for k, v in params.items()) or "-",
+                       seed=int(b["seed"]), best_val_error=b["best_val_error"], at_iteration=int(b["best_val_iteration"]),
+                       test_error_there=b["test_at_best_val"], final_test_error=b["final_test_error"])
+        rows.append(row)
+    return pd.DataFrame(rows)
 
 
 def cmd_select(argv: list[str]) -> int:

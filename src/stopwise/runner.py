@@ -90,7 +90,8 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
         if not math.isfinite(sq):
             status, message = "diverged", f"non-finite iterate at iteration {state.iteration}"
             break
-        done = state.iteration >= max_it or (max_passes is not None and state.passes >= max_passes - 1e-12)
+        done = (state.converged or state.iteration >= max_it
+                or (max_passes is not None and state.passes >= max_passes - 1e-12))
         if state.iteration % every == 0 or done:
             loss = rec.record(state.iteration, state.passes, elapsed, state.w)
             if not math.isfinite(loss) or loss > limit:
@@ -101,6 +102,9 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
                 break
             if decided:
                 halted = decided(rec)
+        if state.converged:
+            message = f"converged at iteration {state.iteration}: further steps cannot change the iterate"
+            break
     if decided and not halted:
         # the last rows may not have been checked yet; a decision before a divergence wins
         halted = decided(rec, force=True, exclude_last=bad_row)

@@ -30,8 +30,7 @@ TRACE_FORMAT = 1
 COMMON_SOLVER_KEYS = ("step_scale",)
 
 
-class SpecError(ValueError):
-    """Invalid configuration; ``str(e)`` is one line naming the problem and the valid choices."""
+from .errors import SpecError  # noqa: E402,F401  (re-exported)
 
 
 # ---------------------------------------------------------------- schemas (Hydra ConfigStore)

@@ -36,6 +36,7 @@ from typing import Any, Callable, Iterable, Mapping
 import numpy as np
 
 from . import residual  # noqa: F401  (registers the residual metric set with the recorder)
+from .errors import SpecError
 from .residual import white_noise_limit
 from .solvers.base import Choice, Flag, Interval, ParamError, make_params, param
 
@@ -43,7 +44,7 @@ POS = Interval(0.0, None, low_closed=False)
 NONNEG = Interval(0.0, None)
 
 
-class RuleError(ValueError):
+class RuleError(SpecError):
     """Bad stopping-rule configuration; ``str(e)`` is one line naming the valid choices."""
 
 

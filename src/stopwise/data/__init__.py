@@ -14,7 +14,10 @@ from .sources import SOURCES, RawData, SourceDef  # noqa: F401
 from .split import SPLIT_KINDS, SplitError, split_rows  # noqa: F401
 
 
-class DataError(ValueError):
+from ..errors import SpecError  # noqa: E402
+
+
+class DataError(SpecError):
     """Bad dataset or split configuration; the message is one line."""
 
 

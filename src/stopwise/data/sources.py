@@ -86,7 +86,7 @@ class SyntheticParams:
     seed: int = param(0, Interval(0, None, integer=True), "generator seed (design, truth and noise)")
     noise: str = param("gaussian", NOISE, "noise model on the targets")
     noise_level: float = param(0.5, Interval(0.0, None), "sigma (gaussian) or exact training noise norm (norm)")
-    width: float = param(0.03, POS, "illposed: width of the Gaussian smoothing kernel")
+    width: float = param(0.05, POS, "illposed: width of the Gaussian smoothing kernel")
 
 
 def _rng(p: SyntheticParams, stream: int) -> np.random.Generator:

@@ -17,6 +17,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from ..errors import SpecError
 from ..problem import TrainingSet
 
 
@@ -28,11 +29,16 @@ def frozen(a: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class State:
-    """Base iterate record: ``w`` is evaluated, ``passes`` counts data passes."""
+    """Base iterate record: ``w`` is evaluated, ``passes`` counts data passes.
+
+    A solver sets ``converged`` when further steps cannot change ``w`` beyond rounding
+    (for example CGLS at a least-squares solution); the runner then ends the run.
+    """
 
     w: np.ndarray
     iteration: int = 0
     passes: float = 0.0
+    converged: bool = False
 
 
 # ---------------------------------------------------------------- constraints as data
@@ -110,7 +116,7 @@ def param(default: Any, constraint: Interval | Choice | Flag | None = None, doc:
     return field(default=default, metadata={"constraint": constraint, "doc": doc})
 
 
-class ParamError(ValueError):
+class ParamError(SpecError):
     """A parameter outside its valid range; the message is one line."""
 
 
@@ -170,7 +176,7 @@ def register(defn: SolverDef) -> SolverDef:
     return defn
 
 
-class UnknownSolver(ValueError):
+class UnknownSolver(SpecError):
     pass
 
 
