@@ -279,8 +279,8 @@ def _parse(ap: _Parser, argv: list[str]):
 
 
 def cmd_rank(argv: list[str]) -> int:
-    from .rank import RankError, rank_campaign
-    from .rankstats import StatsError
+    from .errors import SpecError
+    from .rank import rank_campaign
     from .store import StoreError, atomic_write_bytes
     from .tables import FORMATS, render
 
@@ -293,7 +293,7 @@ def cmd_rank(argv: list[str]) -> int:
         return code
     try:
         r = rank_campaign(a.root, a.campaign, a.rule, baselines=a.baselines, **_ranking_options(a))
-    except (RankError, StatsError, StoreError) as e:
+    except (SpecError, StoreError) as e:
         return _fail(str(e))
     text = render(r, a.format)
     if a.out:
@@ -305,8 +305,7 @@ def cmd_rank(argv: list[str]) -> int:
 
 
 def cmd_report(argv: list[str]) -> int:
-    from .rank import RankError
-    from .rankstats import StatsError
+    from .errors import SpecError
     from .report import MARKED_RULES, report_campaign
     from .store import StoreError
 
@@ -320,7 +319,7 @@ def cmd_report(argv: list[str]) -> int:
     try:
         index = report_campaign(a.root, a.campaign, a.out, rule=a.rule, marked_rules=a.mark,
                                 baselines=a.baselines, **_ranking_options(a))
-    except (RankError, StatsError, StoreError) as e:
+    except (SpecError, StoreError) as e:
         return _fail(str(e))
     print(f"report: {index}")
     return 0

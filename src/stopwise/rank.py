@@ -31,11 +31,12 @@ from typing import Any, Callable, Iterable, Mapping, Sequence
 import numpy as np
 import pandas as pd
 
+from .errors import SpecError
 from .rankstats import (RankTest, StatsError, data_profile, friedman_from_ranks, performance_profile,
                         performance_ratios, rank_table, student_interval)
 
 
-class RankError(ValueError):
+class RankError(SpecError):
     """Bad input to the ranking; ``str(e)`` is one line naming the problem and the valid choices."""
 
 

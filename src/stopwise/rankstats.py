@@ -31,8 +31,10 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .errors import SpecError
 
-class StatsError(ValueError):
+
+class StatsError(SpecError):
     """Bad input to a statistic; ``str(e)`` is one line."""
 
 

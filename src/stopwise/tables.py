@@ -13,12 +13,13 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from .errors import SpecError
 from .rank import Ranking
 
 FORMATS = ("text", "csv", "markdown")
 
 
-class FormatError(ValueError):
+class FormatError(SpecError):
     """Unknown output format; one line."""
 
 
