@@ -13,6 +13,9 @@ Public API::
     ensure_baselines(root, campaign)  explicit-regularization baselines on the campaign's splits
     load_baselines(root, campaign=None) stored baseline paths (one row per penalty)
     load_references()                 published reference scores shipped with the package
+    rank(selections, rule, ...)       tune on validation error, aggregate over seeds, rank across datasets
+    rank_campaign(root, campaign, rule)  the same on a stored campaign (reads only the columns it needs)
+    report_campaign(root, campaign)   static HTML report (tables, PNG figures) of a campaign
 """
 from __future__ import annotations
 
@@ -33,6 +36,19 @@ from .selection import select  # noqa: E402
 from .baselines import BASELINES, ensure_baselines, fit_path, load_baselines  # noqa: E402
 from .references import load_references  # noqa: E402
 from .stopping import RULES, RuleContext, Selection, apply_rule  # noqa: E402
+from .rank import Ranking, RankError, Target, rank, rank_campaign  # noqa: E402
+from .rankstats import (RankTest, critical_difference, data_profile, friedman_from_ranks,  # noqa: E402
+                        friedman_test, nemenyi_q, performance_profile, rank_table, student_interval)
+
+
+def report_campaign(root="results", campaign="", out=None, rule="holdout", **options):
+    """Write the static HTML report of a stored campaign; see :func:`stopwise.report.report_campaign`.
+
+    (Imported on first use: it is the only part of stopwise that needs matplotlib.)
+    """
+    from .report import report_campaign as write
+
+    return write(root, campaign, out, rule=rule, **options)
 
 
 def load_problem(overrides: list[str] | None = None) -> Problem:
@@ -54,5 +70,8 @@ __all__ = ["RawData", "SourceDef", "build_problem", "cached_problem", "register_
            "PROX_OPERATORS", "ProxDef", "register_prox",
            "RULES", "RuleContext", "Selection", "apply_rule", "select",
            "BASELINES", "ensure_baselines", "fit_path", "load_baselines", "load_references",
+           "RankError", "RankTest", "Ranking", "Target", "critical_difference", "data_profile", "friedman_from_ranks",
+           "friedman_test", "nemenyi_q", "performance_profile", "rank", "rank_campaign", "rank_table",
+           "report_campaign", "student_interval",
            "LOSSES", "get_loss", "HardMargin", "hard_margin", "is_separable", "normalized_margin",
            "LinearModel", "TwoLayerReLU"]

@@ -21,6 +21,10 @@ commands:
                                  evaluate stopping rules on a campaign's stored traces
   baselines CAMPAIGN [--method NAME ...] [--root DIR] [--path]
                                  fit (or reuse) explicit-regularization baselines on the campaign's splits
+  rank CAMPAIGN [--rule R] [--target T] [--by B] [--format text|csv|markdown] ...
+                                 tune methods on validation error, rank them across datasets
+  report CAMPAIGN [--rule R] [--out DIR] ...
+                                 write an offline HTML report (tables, PNG figures) of a campaign
 """
 
 
@@ -281,9 +285,108 @@ def cmd_baselines(argv: list[str]) -> int:
     return 0
 
 
+class _ArgError(Exception):
+    pass
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with one-line errors (printed by the caller as ``stopwise: error: ...``)."""
+
+    def error(self, message: str):  # noqa: D401 - argparse API
+        raise _ArgError(f"{self.prog}: {message}")
+
+
+def _ranking_parser(prog: str, description: str) -> _Parser:
+    from .rank import RANK_BY, TUNINGS, UNITS
+
+    ap = _Parser(prog=prog, description=description)
+    ap.add_argument("campaign", help="campaign name or id")
+    ap.add_argument("--root", default="results", help="results root (default: results)")
+    ap.add_argument("--rule", default="holdout", metavar="NAME[:k=v,...]",
+                    help="stopping rule the methods are ranked under (default: holdout; never oracle)")
+    ap.add_argument("--target", default="baseline", metavar="baseline|reference|none|NUMBER",
+                    help="test error to reach: best explicit baseline (default), published reference, none, or a value")
+    ap.add_argument("--eps", type=float, default=0.05, help="target = (1 + eps) f_L (default 0.05)")
+    ap.add_argument("--tau", type=float, default=None,
+                    help="More-Wild target f_L + tau (f_0 - f_L) instead of (1 + eps) f_L")
+    ap.add_argument("--by", default="test_error", choices=RANK_BY, help="quantity to rank (default test_error)")
+    ap.add_argument("--alpha", type=float, default=0.05, help="significance level of the Nemenyi test (default 0.05)")
+    ap.add_argument("--confidence", type=float, default=0.95, help="Student t interval level over seeds (default 0.95)")
+    ap.add_argument("--tuning", default="per_seed", choices=TUNINGS,
+                    help="choose parameters per seed (default) or by mean validation error over seeds")
+    ap.add_argument("--unit", default="dataset", choices=UNITS, help="profile problems: datasets or (dataset, seed)")
+    ap.add_argument("--method-by", default="solver", metavar="COL[,COL]", help="columns naming a method (default solver)")
+    ap.add_argument("--params", default=None, metavar="COL[,COL]",
+                    help="tuned parameter columns (default: every solver parameter in the campaign)")
+    ap.add_argument("--baselines", default="ensure", choices=("ensure", "stored", "none"),
+                    help="explicit baselines: compute missing ones (default), use stored ones only, or none")
+    return ap
+
+
+def _ranking_options(a) -> dict:
+    return dict(target=a.target, eps=a.eps, tau=a.tau, by=a.by, alpha=a.alpha, confidence=a.confidence,
+                tuning=a.tuning, unit=a.unit, method_by=tuple(c for c in a.method_by.split(",") if c),
+                params=None if a.params is None else [c for c in a.params.split(",") if c])
+
+
+def _parse(ap: _Parser, argv: list[str]):
+    try:
+        return ap.parse_args(argv), None
+    except _ArgError as e:
+        return None, _fail(str(e))
+    except SystemExit as e:  # --help
+        return None, (EXIT_BAD_INPUT if e.code else 0)
+
+
+def cmd_rank(argv: list[str]) -> int:
+    from .errors import SpecError
+    from .rank import rank_campaign
+    from .store import StoreError, atomic_write_bytes
+    from .tables import FORMATS, render
+
+    ap = _ranking_parser("stopwise rank", "tune every method on validation error under one stopping rule and "
+                                          "rank the methods across datasets")
+    ap.add_argument("--format", default="text", choices=FORMATS, help="output format (default text)")
+    ap.add_argument("--out", default=None, metavar="FILE", help="write the output to FILE instead of the terminal")
+    a, code = _parse(ap, argv)
+    if a is None:
+        return code
+    try:
+        r = rank_campaign(a.root, a.campaign, a.rule, baselines=a.baselines, **_ranking_options(a))
+    except (SpecError, StoreError) as e:
+        return _fail(str(e))
+    text = render(r, a.format)
+    if a.out:
+        atomic_write_bytes(Path(a.out), text.encode())
+        print(f"wrote {a.out}")
+    else:
+        print(text, end="")
+    return 0
+
+
+def cmd_report(argv: list[str]) -> int:
+    from .errors import SpecError
+    from .report import MARKED_RULES, report_campaign
+    from .store import StoreError
+
+    ap = _ranking_parser("stopwise report", "write a static HTML report of a campaign: tables and PNG figures")
+    ap.add_argument("--out", default=None, metavar="DIR", help="output folder (default: ROOT/reports/CAMPAIGN)")
+    ap.add_argument("--mark", action="append", default=None, metavar="NAME[:k=v,...]",
+                    help=f"rule whose stopping points the curves mark, repeatable (default: {', '.join(MARKED_RULES)})")
+    a, code = _parse(ap, argv)
+    if a is None:
+        return code
+    try:
+        index = report_campaign(a.root, a.campaign, a.out, rule=a.rule, marked_rules=a.mark,
+                                baselines=a.baselines, **_ranking_options(a))
+    except (SpecError, StoreError) as e:
+        return _fail(str(e))
+    print(f"report: {index}")
+    return 0
+
+
 COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls, "select": cmd_select,
-            "baselines": cmd_baselines,
-            "datasets": cmd_datasets}
+            "baselines": cmd_baselines, "datasets": cmd_datasets, "rank": cmd_rank, "report": cmd_report}
 
 
 def main(argv: list[str] | None = None) -> int:
