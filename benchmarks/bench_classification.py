@@ -52,7 +52,7 @@ def main() -> None:
         ("nesterov_normalized (loss), logistic", best(step_timer(lg, "nesterov_normalized"))),
         (f"gd, softmax K={K}", best(step_timer(sm, "gd"))),
         ("hinge_diagonal, dual_accelerated", best(step_timer(hg, "hinge_diagonal"))),
-        ("hinge_diagonal, primal_dual", best(step_timer(hg, "hinge_diagonal", method="primal_dual", step_scale=0.9))),
+        ("hinge_diagonal, primal_dual", best(step_timer(hg, "hinge_diagonal", update="primal_dual", step_scale=0.9))),
         ("relu_net width 32, full batch", best(step_timer(lg, "relu_net", width=32))),
     ]
     print(f"step cost on a {N} x {D} matrix, relative to one least-squares gd step ({peer * 1e6:.0f} us)")

@@ -110,3 +110,19 @@ def test_every_classification_solver_runs(root, name, dataset):
     df = pd.read_parquet(out.path)
     assert len(df) == 31 and df["test_error"].between(0, 1).all()
 
+
+
+def test_error_curves_with_zero_test_error():
+    # separable classification problems reach test error 0: the log-log error curves of the
+    # report must still draw (a panel without positive errors gets a note instead)
+    import pandas as pd
+
+    from stopwise.figures import curves
+
+    traces = pd.DataFrame({"run_id": ["a"] * 3 + ["b"] * 3, "passes": [0.0, 1.0, 2.0] * 2,
+                           "test_error": [1.0, 0.0, 0.0, 1.0, 0.2, 0.1]})
+    tuned = pd.DataFrame({"dataset": ["sep", "other"], "method": ["gd", "gd"], "seed": [0, 0], "run_id": ["a", "b"]})
+    stops = pd.DataFrame({"run_id": ["a", "b"], "rule": ["holdout", "holdout"], "selected_passes": [1.0, 2.0],
+                          "test_error": [0.0, 0.1], "reference": [False, False]})
+    plot = curves(traces, tuned, stops, "holdout")
+    assert plot.png[:8] == b"\x89PNG\r\n\x1a\n"

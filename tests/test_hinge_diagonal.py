@@ -28,9 +28,9 @@ def iterate(train, steps, **params):
 
 @pytest.mark.parametrize("make", [iris_setosa_versicolor, separable_gaussian])
 @pytest.mark.parametrize("params,steps,tol", [
-    (dict(method="dual"), 20000, 2e-3),
-    (dict(method="dual_accelerated"), 5000, 1e-4),
-    (dict(method="primal_dual", step_scale=0.99), 5000, 1e-6),
+    (dict(update="dual"), 20000, 2e-3),
+    (dict(update="dual_accelerated"), 5000, 1e-4),
+    (dict(update="primal_dual", step_scale=0.99), 5000, 1e-6),
 ])
 def test_iterates_converge_to_the_svm(make, params, steps, tol):
     # references: SciPy SLSQP on min ||w||^2 s.t. y_i <x_i, w> >= 1, and scikit-learn's
@@ -59,8 +59,8 @@ def test_fixed_lambda_gives_the_soft_margin_svm():
         C = 1.0 / (n * lam0)
         svc = SVC(kernel="linear", C=C / 2, tol=1e-10).fit(np.vstack([X, -X]), np.concatenate([y, -y]))
         w_soft = svc.coef_.ravel()
-        for method in ("dual_accelerated", "primal_dual"):
-            st = iterate(hinge_set(X, y), 5000, method=method, lambda0=lam0, lambda_power=0.0, step_scale=0.99)
+        for update in ("dual_accelerated", "primal_dual"):
+            st = iterate(hinge_set(X, y), 5000, update=update, lambda0=lam0, lambda_power=0.0, step_scale=0.99)
             assert np.linalg.norm(st.w - w_soft) < 1e-5 * np.linalg.norm(w_soft)
     # lambda0 = 1 is a strongly regularized problem whose solution is not the hard margin
     assert np.linalg.norm(w_soft - slsqp_hard_margin(X, y)) > 0.1
@@ -72,12 +72,12 @@ def test_lambda_schedule_is_validated():
     with pytest.raises(ParamError, match="lambda0=0.0 is invalid"):
         make_params(HingeDiagonalParams, {"lambda0": 0.0}, "solver")
     with pytest.raises(ParamError, match="primal_dual") as e:
-        make_params(HingeDiagonalParams, {"method": "primal_dual"}, "solver")
+        make_params(HingeDiagonalParams, {"update": "primal_dual"}, "solver")
     assert "\n" not in str(e.value)
 
 
 def test_through_the_runner(root):
-    out = stopwise.run(["dataset=iris_setosa_versicolor", "solver=hinge_diagonal", "solver.method=primal_dual",
+    out = stopwise.run(["dataset=iris_setosa_versicolor", "solver=hinge_diagonal", "solver.update=primal_dual",
                         "solver.step_scale=0.9", "budget.iterations=3000", "record.every=500"], root=root)
     df = pd.read_parquet(out.path)
     info = stopwise.store.Store(root).run_meta(out.run_id)["problem"]

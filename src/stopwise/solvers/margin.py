@@ -14,7 +14,7 @@ As C_t grows the box opens; on separable data, once C_t exceeds the largest hard
 variable, the regularized solution *is* the hard-margin solution w* = argmin ||w|| s.t.
 A w >= 1 (Schoelkopf and Smola, Learning with Kernels, 2002, ch. 7), so the iterates
 themselves converge to w*, not only in direction (iterative regularization by a dual
-diagonal method: Garrigos, Rosasco, Villa, J. Math. Imaging Vis. 60, 2018). Methods:
+diagonal method: Garrigos, Rosasco, Villa, J. Math. Imaging Vis. 60, 2018). Updates (param ``update``):
 
     dual               projected gradient ascent on the dual, tau = s / ||A||^2:
                        beta_{t+1} = clip(beta_t + tau (1 - A w_t), 0, C_t),  w_{t+1} = A^T beta_{t+1}
@@ -41,20 +41,20 @@ import numpy as np
 from ..problem import TrainingSet
 from .base import Choice, Interval, ParamError, SolverDef, State, frozen, param, register
 
-METHODS = ("dual", "dual_accelerated", "primal_dual")
+UPDATES = ("dual", "dual_accelerated", "primal_dual")
 
 
 @dataclass(frozen=True)
 class HingeDiagonalParams:
-    method: str = param("dual_accelerated", Choice(METHODS), "dual step, accelerated dual step, or primal-dual step")
+    update: str = param("dual_accelerated", Choice(UPDATES), "dual step, accelerated dual step, or primal-dual step")
     step_scale: float = param(1.0, Interval(0.0, 1.0, low_closed=False),
                               "dual: tau = s/||A||^2; primal_dual: tau = sigma = s/||A|| (needs s < 1)")
     lambda0: float = param(1.0, Interval(0.0, None, low_closed=False), "lambda_t = lambda0 / (1 + t)^p")
     lambda_power: float = param(1.0, Interval(0.0, 1.0), "decay power p of lambda_t (0: fixed lambda0)")
 
     def __post_init__(self) -> None:
-        if self.method == "primal_dual" and self.step_scale == 1.0:
-            raise ParamError("solver.step_scale=1.0 is invalid for method primal_dual: must be < 1 "
+        if self.update == "primal_dual" and self.step_scale == 1.0:
+            raise ParamError("solver.step_scale=1.0 is invalid for update primal_dual: must be < 1 "
                              "(Chambolle-Pock needs tau sigma ||A||^2 < 1)")
 
 
@@ -86,7 +86,7 @@ def hinge_diagonal_step(train: TrainingSet, params: HingeDiagonalParams,
 
     >>> from stopwise.problem import TrainingSet
     >>> tr = TrainingSet(np.array([[1.0], [-1.0]]), np.array([1.0, -1.0]), L=1.0, task="binary", loss="hinge")
-    >>> p = HingeDiagonalParams(method="primal_dual", step_scale=0.9)
+    >>> p = HingeDiagonalParams(update="primal_dual", step_scale=0.9)
     >>> s = hinge_diagonal_init(tr, p, None)
     >>> for _ in range(200): s = hinge_diagonal_step(tr, p, s)
     >>> round(float(s.w[0]), 8), s.passes
@@ -98,7 +98,7 @@ def hinge_diagonal_step(train: TrainingSet, params: HingeDiagonalParams,
     if nA == 0.0:
         return HingeDiagonalState(w=state.w, iteration=t + 1, passes=state.passes + 1.0, dual=state.dual,
                                   dual_prev=state.dual_prev, w_prev=state.w_prev, norm_A=nA)
-    if params.method == "primal_dual":
+    if params.update == "primal_dual":
         tau = sigma = params.step_scale / nA
         q = X @ state.w_prev            # wbar
         q *= y
@@ -115,7 +115,7 @@ def hinge_diagonal_step(train: TrainingSet, params: HingeDiagonalParams,
         return HingeDiagonalState(w=frozen(w), iteration=t + 1, passes=state.passes + 1.0, dual=frozen(z),
                                   dual_prev=state.dual_prev, w_prev=frozen(wbar), norm_A=nA)
     tau = params.step_scale / (nA * nA)
-    if params.method == "dual_accelerated" and t > 0:
+    if params.update == "dual_accelerated" and t > 0:
         theta = (t - 1) / (t + 2)
         beta_v = state.dual + theta * (state.dual - state.dual_prev)
         w_v = state.w + theta * (state.w - state.w_prev)
