@@ -140,7 +140,7 @@ def test_automatic_choice_depends_on_shapes_only():
     assert fastpath.statistics_splits(_problem("dataset=overparam")) == ()
     assert fastpath.statistics_splits(ill, "direct") == ()
     with pytest.raises(fastpath.PathError, match="must be one of auto, direct, blocked, gram"):
-        fastpath.training_for(ill, "fast")
+        fastpath.training_for(ill, path="fast")
 
 
 def test_statistics_are_computed_once_per_problem_and_hidden_from_solvers():
@@ -157,7 +157,7 @@ def test_statistics_are_computed_once_per_problem_and_hidden_from_solvers():
     assert s1.splits == ("train", "val", "test")
     np.testing.assert_allclose(s1.gram(2), p.X_test.T @ p.X_test, rtol=1e-13)
     # an explicit path leaves the shared training set alone
-    fresh = fastpath.training_for(p, "direct")
+    fresh = fastpath.training_for(p, path="direct")
     assert fresh is not p.training and fastpath.gradient_plan(fresh) is None
     assert isinstance(fresh, TrainingSet) and fresh.L == p.training.L
 

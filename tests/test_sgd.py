@@ -13,6 +13,7 @@ from sklearn.linear_model import SGDRegressor
 
 import stopwise
 from stopwise.data import build_problem
+from stopwise.problem import TrainingSet
 from stopwise.runner import execute, run_rng
 from stopwise.solvers import get_solver
 from stopwise.solvers.base import make_params
@@ -141,21 +142,22 @@ def test_step_schedules_match_a_plain_numpy_loop(schedule, kw, factor):
     np.testing.assert_allclose(st.w, _numpy_sgd(X, y, rows, etas), rtol=1e-12, atol=1e-13)
 
 
-def test_minibatch_gradient_of_a_loss_without_a_specialised_form(monkeypatch):
-    """The generic fall back (the loss's full gradient on the selected rows) gives the
-    textbook minibatch gradient X_B^T (X_B w - y_B) / |B| (numpy), repeated rows counted."""
-    from stopwise import losses
-
+def test_minibatch_gradient_is_the_textbook_formula_for_every_loss():
+    """g_B(w) = (1/|B|) sum_{i in B} grad f_i(w), repeated rows counted: least squares
+    X_B^T (X_B w - y_B) / |B| and logistic -X_B^T (y_B sigma(-y_B X_B w)) / |B| (numpy)."""
     p = problem("wellposed")
     w = np.random.default_rng(0).standard_normal(p.d)
     rows = np.array([3, 7, 7, 100, 5])
     Xb, yb = p.X_train[rows], p.y_train[rows]
-    ref = Xb.T @ (Xb @ w - yb) / len(rows)
-    np.testing.assert_allclose(stopwise.minibatch_gradient(p.training, w, rows), ref, rtol=1e-13)
-    monkeypatch.delitem(losses.MINIBATCH_GRADIENTS, "squares")
-    np.testing.assert_allclose(stopwise.minibatch_gradient(p.training, w, rows), ref, rtol=1e-13)
+    np.testing.assert_allclose(stopwise.minibatch_gradient(p.training, w, rows),
+                               Xb.T @ (Xb @ w - yb) / len(rows), rtol=1e-13)
     np.testing.assert_allclose(stopwise.minibatch_gradient(p.training, w, slice(2, 9)),
                                p.X_train[2:9].T @ (p.X_train[2:9] @ w - p.y_train[2:9]) / 7, rtol=1e-13)
+    sign = np.where(p.y_train > 0, 1.0, -1.0)
+    tr = TrainingSet(X=p.X_train, y=sign, L=p.training.L / 4, task="binary", loss="logistic")
+    q = sign[rows] * (Xb @ w)
+    ref = -Xb.T @ (sign[rows] / (1 + np.exp(q))) / len(rows)
+    np.testing.assert_allclose(stopwise.minibatch_gradient(tr, w, rows), ref, rtol=1e-12)
 
 
 def test_epochs_visit_every_row_once_per_pass_and_replacement_draws_are_uniform():

@@ -45,6 +45,15 @@ def _compose(overrides: list[str]):
         raise SpecError(hydra_error_line(e)) from None
 
 
+def check_data(specs: list[RunSpec]) -> None:
+    """Build each distinct problem once, so data errors (unknown feature, bad row indices,
+    a missing file, an OpenML id that is not cached) are reported before anything is
+    written; then store them in the processed-problem cache for the runs (in any process)."""
+    from .data import prepare_problems
+
+    prepare_problems(specs)
+
+
 def campaign_file(name: str) -> Path:
     if not NAME.match(name or ""):
         raise SpecError(f"campaign name {name!r} is invalid: use letters, digits, '_', '-', '.'")
@@ -106,6 +115,7 @@ def expand(campaign: str | None, overrides: list[str]) -> Expansion:
             roots.add(str(cfg.results_root))
     if len(roots) != 1:
         raise SpecError("results_root must be the same for every job of a sweep")
+    check_data(specs)
     run_ids: list[str] = []
     for s in specs:
         if s.run_id not in run_ids:

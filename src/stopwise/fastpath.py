@@ -166,25 +166,27 @@ def _squares(train: TrainingSet) -> bool:
     return getattr(train, "loss", "squares") == "squares"
 
 
-def training_for(problem: Problem, path: str = "auto") -> TrainingSet:
+def training_for(problem: Problem, train: TrainingSet | None = None, path: str = "auto") -> TrainingSet:
     """The training set a solver receives under an evaluation path.
 
-    ``auto`` returns the problem's own cached training set with the chosen plan attached
-    once (shared by every run on the problem); an explicit path returns a fresh copy with
-    that plan (``direct``: none), leaving the cached one untouched.
+    ``train`` is the run's training set (default: ``problem.training``). ``auto`` attaches
+    the chosen plan to it once (it is the problem's cached set, so every run on the problem
+    shares the plan); an explicit path returns a fresh copy with that plan (``direct``:
+    none), leaving the cached one untouched. Losses other than least squares get no plan.
     """
     _check_path(path)
-    train = problem.training
+    train = train if train is not None else problem.training
+    own = train.X is problem.X_train and train.y is problem.y_train
     if path == "auto":
         if _PLAN not in train.__dict__:
             chosen = (choose_gradient_path(train.n, train.d, train.X.nbytes) if _squares(train) and train.n
                       else "direct")
-            gram = _gram(problem, "train") if chosen == "gram" else None
+            gram = _gram(problem, "train") if chosen == "gram" and own else None
             attach_plan(train, _make_plan(train, chosen, gram))
         return train
     fresh = dataclasses.replace(train)
     if path != "direct" and _squares(fresh) and fresh.n:
-        attach_plan(fresh, _make_plan(fresh, path, _gram(problem, "train") if path == "gram" else None))
+        attach_plan(fresh, _make_plan(fresh, path, _gram(problem, "train") if path == "gram" and own else None))
     return fresh
 
 
@@ -290,10 +292,12 @@ def split_statistics(problem: Problem, path: str = "auto") -> SplitStatistics | 
     return st
 
 
-def prepare(problem: Problem, path: str = "auto") -> tuple[TrainingSet, SplitStatistics | None]:
-    """Everything a run on ``problem`` evaluates with: the solver's training set and the
-    recorder's statistics (both computed once per problem for ``auto``)."""
-    return training_for(problem, path), split_statistics(problem, path)
+def prepare(problem: Problem, train: TrainingSet | None = None,
+            path: str = "auto") -> tuple[TrainingSet, SplitStatistics | None]:
+    """Everything a run on ``problem`` evaluates with: the solver's training set (from the
+    run's ``train``, default ``problem.training``) and the recorder's statistics (both
+    computed once per problem for ``auto``)."""
+    return training_for(problem, train, path), split_statistics(problem, path)
 
 
 def describe(train: TrainingSet, stats: SplitStatistics | None) -> dict:

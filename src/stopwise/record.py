@@ -3,8 +3,26 @@
 The recorder owns preallocated columns and scratch buffers; recording an iterate writes
 one row in place. It never knows which solver produced the iterate.
 
-Squared errors ``||X_s w - y_s||^2`` of the train / validation / test splits come either
-from the rows directly or, for splits with more rows than features, from sufficient
+Two extension points add columns after the base ones:
+
+``METRIC_SETS``
+    functions ``problem -> {column: f(w) -> float}``: extras that depend on the problem
+    and the iterate only (sparsity and support against the truth, margins). Every run of
+    a problem gets them; a function may return ``{}`` for problems it does not apply to.
+``state_metrics`` (argument of :class:`Recorder`)
+    ``{column: f(state) -> float}`` supplied by the runner from the solver's own
+    ``SolverDef.metrics(train, params)``: extras that depend on the solver's params or on
+    more of its state than ``w`` (bias value, primal-dual gap). Only runs of that solver
+    have these columns; traces of different solvers concatenate with nulls
+    (:func:`stopwise.load_traces`).
+
+Both are computed here, on recorded iterates only, outside the solver's timed work.
+Classification problems replace the squared-error columns by the task's own
+(misclassification, loss per split, margins; see :mod:`stopwise.classify`), which come
+between the base columns and the extras.
+
+Regression: the squared errors ``||X_s w - y_s||^2`` of the train / validation / test
+splits come either from the rows directly or, for splits with more rows than features, from sufficient
 statistics computed once per problem (``w^T G_s w - 2 c_s^T w + y_s^T y_s``, one stacked
 product for all such splits); where that form would lose digits to cancellation the split
 is evaluated from its compressed rows ``||R_s [w; -1]||^2`` (QR of ``[X_s y_s]``), which
@@ -13,7 +31,7 @@ are as accurate as the rows. See :mod:`stopwise.fastpath`.
 from __future__ import annotations
 
 import math
-from typing import Callable
+from typing import Any, Callable, Mapping
 
 import numpy as np
 
@@ -29,15 +47,35 @@ METRIC_SETS: list[Callable[[Problem], dict[str, Callable[[np.ndarray], float]]]]
 
 
 class Recorder:
+    """Records iterates of one run. Regression problems get squared errors; classification
+    problems (``problem.task`` binary or multiclass) get the columns of
+    :class:`stopwise.classify.ClassificationMetrics` for the run's ``loss`` and ``model``
+    (default: the problem's loss and a linear model)."""
+
     def __init__(self, problem: Problem, capacity: int = 256,
+                 state_metrics: Mapping[str, Callable[[Any], float]] | None = None,
+                 loss: str | None = None, model: Any = None,
                  statistics: "fastpath.SplitStatistics | None | str" = "auto"):
-        """``statistics``: the split statistics to use, None for direct evaluation only, or
-        an evaluation path name (``auto``, ``gram``, ``direct``, ``blocked``)."""
+        """``statistics`` (regression): the split statistics to use, None for direct
+        evaluation only, or an evaluation path name (``auto``, ``gram``, ``direct``,
+        ``blocked``); see :mod:`stopwise.fastpath`."""
         self.problem = problem
+        self._cls = None
+        self.info: dict = {}
+        if problem.task != "regression":
+            from .classify import ClassificationMetrics
+
+            self._cls = ClassificationMetrics(problem, loss or problem.objective, model)
+            self.info = self._cls.info
         self._extras: dict[str, Callable[[np.ndarray], float]] = {}
         for make in METRIC_SETS:
             self._extras.update(make(problem) or {})
-        self.columns = BASE_COLUMNS + tuple(self._extras)
+        cls_cols = self._cls.columns if self._cls is not None else ()
+        self._state_extras = dict(state_metrics or {})
+        clash = sorted(set(self._state_extras) & (set(BASE_COLUMNS) | set(cls_cols) | set(self._extras)))
+        if clash:
+            raise ValueError(f"solver metric column {clash[0]!r} clashes with a recorder column")
+        self.columns = BASE_COLUMNS + cls_cols + tuple(self._extras) + tuple(self._state_extras)
         self._cap = max(int(capacity), 1)
         self._data = {c: np.empty(self._cap, dtype=np.int64 if c == "iteration" else np.float64)
                       for c in self.columns}
@@ -101,10 +139,13 @@ class Recorder:
             sq[i] = self._sq_error(fastpath.SPLITS[i], w)
         return sq
 
-    def record(self, iteration: int, passes: float, seconds: float, w: np.ndarray) -> float:
-        """Write one row for iterate ``w``; returns the training objective."""
+    def record(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
+               state: Any = None) -> float:
+        """Write one row for iterate ``w`` (of solver ``state``); returns the training objective."""
         if self.size == self._cap:
             self._grow()
+        if self._cls is not None:
+            return self._record_classification(iteration, passes, seconds, w, state)
         p, i, col = self.problem, self.size, self._data
         sq_tr, sq_va, sq_te = self.squared_errors(w).tolist()
         n = p.n_train
@@ -124,8 +165,30 @@ class Recorder:
             col["dist_truth"][i] = math.nan
         for name, fn in self._extras.items():
             col[name][i] = fn(w)
+        for name, fn in self._state_extras.items():
+            col[name][i] = fn(state) if state is not None else math.nan
         self.size += 1
         return sq_tr / (2 * n)
+
+    def _record_classification(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
+                               state: Any = None) -> float:
+        p, i, col = self.problem, self.size, self._data
+        col["iteration"][i] = iteration
+        col["passes"][i] = passes
+        col["seconds"][i] = seconds
+        loss = self._cls.fill(col, i, w)
+        col["w_norm"][i] = math.sqrt(float(w @ w))
+        if p.w_true is not None and p.w_true.shape == w.shape:
+            d = w - p.w_true
+            col["dist_truth"][i] = math.sqrt(float(d @ d))
+        else:
+            col["dist_truth"][i] = math.nan
+        for name, fn in self._extras.items():
+            col[name][i] = fn(w)
+        for name, fn in self._state_extras.items():
+            col[name][i] = fn(state) if state is not None else math.nan
+        self.size += 1
+        return loss
 
     def _grow(self) -> None:
         self._cap *= 2
@@ -133,6 +196,15 @@ class Recorder:
             b = np.empty(self._cap, dtype=a.dtype)
             b[: self.size] = a[: self.size]
             self._data[c] = b
+
+    def view(self) -> dict[str, np.ndarray]:
+        """The rows recorded so far as read-only views (no copy; valid until the next record)."""
+        out = {}
+        for c, a in self._data.items():
+            v = a[: self.size]
+            v.flags.writeable = False
+            out[c] = v
+        return out
 
     def result(self) -> dict[str, np.ndarray]:
         return {c: a[: self.size].copy() for c, a in self._data.items()}

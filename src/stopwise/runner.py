@@ -13,6 +13,7 @@ import numpy as np
 
 from . import __version__, fastpath, threads
 from .data import cached_problem
+from .losses import resolve_loss
 from .problem import Problem
 from .record import Recorder
 from .solvers import get_solver
@@ -43,9 +44,11 @@ class RunOutcome:
     seconds: float = 0.0
 
 
-def _problem_info(p: Problem) -> dict[str, Any]:
+def _problem_info(p: Problem, train=None) -> dict[str, Any]:
+    train = train if train is not None else p.training
     return {"n_train": p.n_train, "n_val": int(p.X_val.shape[0]), "n_test": int(p.X_test.shape[0]),
-            "d": p.d, "L": p.L, "task": p.task, "noise_kind": p.noise_kind, "noise_level": p.noise_level,
+            "d": p.d, "L": train.L, "task": p.task, "loss": train.loss, "noise_kind": p.noise_kind,
+            "noise_level": p.noise_level,
             "noise_norm": p.noise_norm, "has_truth": p.w_true is not None,
             "preprocessing": {k: v for k, v in p.preprocessing.items() if k != "standardize"},
             "standardized": "standardize" in p.preprocessing}
@@ -95,27 +98,35 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
     params = make_params(sdef.params, spec.params, "solver")
     clock = time.perf_counter
     t_prep = clock()
-    train, stats = fastpath.prepare(problem, path)
+    train = problem.training_set(resolve_loss(problem.task, problem.loss, sdef.loss))
+    train, stats = fastpath.prepare(problem, train, path)
     if record_path is not None and record_path != path:
         stats = fastpath.split_statistics(problem, record_path)
     t_prep = clock() - t_prep
+    model = sdef.model(params, train) if sdef.model is not None else None
     rng = run_rng(spec)
-    rec = Recorder(problem, capacity=_record_rows(spec), statistics=stats)
+    rec = Recorder(problem, capacity=_record_rows(spec),
+                   state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None,
+                   loss=train.loss, model=model, statistics=stats)
     max_it = spec.budget["iterations"]
     max_passes = spec.budget["passes"]
     every = spec.record["every"]
     per_pass = spec.record.get("per_pass")
     factor = spec.budget["diverge_factor"]
     status, message = "completed", ""
+    bad_row = False  # the last recorded row is the one that diverged
+
+    decided = _halting(spec, problem)
 
     t0 = clock()
     state = sdef.start(train, params, rng, spec.budget)
     elapsed = clock() - t0
-    loss0 = rec.record(state.iteration, state.passes, elapsed, state.w)
+    loss0 = rec.record(state.iteration, state.passes, elapsed, state.w, state)
     limit = factor * max(loss0, np.finfo(float).tiny)
     mark = pass_mark(state.passes, per_pass) if per_pass is not None else 0
     step = sdef.step
-    while state.iteration < max_it and (max_passes is None or state.passes < max_passes - PASS_EPS):
+    halted = decided(rec) if decided else None
+    while not halted and state.iteration < max_it and (max_passes is None or state.passes < max_passes - PASS_EPS):
         t0 = clock()
         state = step(train, params, state)
         elapsed += clock() - t0
@@ -123,7 +134,8 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
         if not math.isfinite(sq):
             status, message = "diverged", f"non-finite iterate at iteration {state.iteration}"
             break
-        done = state.iteration >= max_it or (max_passes is not None and state.passes >= max_passes - PASS_EPS)
+        done = (state.converged or state.iteration >= max_it
+                or (max_passes is not None and state.passes >= max_passes - PASS_EPS))
         if per_pass is None:
             due = state.iteration % every == 0
         else:
@@ -132,15 +144,75 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
             if due:
                 mark = k
         if due or done:
-            loss = rec.record(state.iteration, state.passes, elapsed, state.w)
+            loss = rec.record(state.iteration, state.passes, elapsed, state.w, state)
             if not math.isfinite(loss) or loss > limit:
                 status = "diverged"
                 message = (f"training objective grew from {loss0:.3g} to {loss:.3g} (over {factor:g} times) "
                            f"by iteration {state.iteration}")
+                bad_row = True
                 break
-    info = _problem_info(problem)
+            if decided:
+                halted = decided(rec)
+        if state.converged:
+            message = f"converged at iteration {state.iteration}: further steps cannot change the iterate"
+            break
+    if decided and not halted:
+        # the last rows may not have been checked yet; a decision before a divergence wins
+        halted = decided(rec, force=True, exclude_last=bad_row)
+        if halted:
+            status = "completed"
+    if halted:
+        message = halted
+    info = dict(_problem_info(problem, train), **rec.info)
     info["evaluation"] = dict(fastpath.describe(train, stats), prepare_seconds=t_prep, fallbacks=rec.fallbacks)
     return Trace(columns=rec.result(), status=status, message=message, problem_info=info)
+
+
+def _halting(spec: RunSpec, problem: Problem):
+    """For ``stopping.halt: true``: a check ``(recorder, force) -> message or None``.
+
+    The rule's selection on a prefix of the trace is *final* from some row on and stays
+    so (the rules guarantee it). Checking the whole prefix after every row would cost
+    O(T^2), so the check runs when the trace has grown by 1/16 since the last check (and
+    when forced at the end); once final, a bisection over the unchecked rows finds the
+    first row where the choice became final and the recorder is cut back to it. The
+    stored trace therefore ends exactly where per-row checking would have stopped it; the
+    loop may have computed up to 1/16 more iterates, which are dropped.
+    """
+    if not spec.stopping.get("halt"):
+        return None
+    from .stopping import RuleContext, get_rule, make_rule_params
+
+    rdef = get_rule(spec.stopping["rule"])
+    rparams = make_rule_params(rdef.name, spec.stopping.get("params"))
+    ctx = RuleContext.from_problem(problem)
+    state = {"checked": 0, "next": 1}
+
+    def final_at(view: dict, m: int):
+        sel = rdef.select({c: a[:m] for c, a in view.items()}, ctx, rparams)
+        return sel if sel.final and sel.iteration is not None else None
+
+    def decided(rec: Recorder, force: bool = False, exclude_last: bool = False) -> str | None:
+        n = rec.size - (1 if exclude_last else 0)
+        if n == 0 or (not force and n < state["next"]):
+            return None
+        view = rec.view()
+        sel = final_at(view, n)
+        if sel is None:
+            state["checked"], state["next"] = n, n + max(1, n // 16)
+            return None
+        lo, hi = state["checked"], n  # prefix of length lo is not final, of length hi is
+        while hi - lo > 1:
+            mid = (lo + hi) // 2
+            got = final_at(view, mid)
+            if got is None:
+                lo = mid
+            else:
+                hi, sel = mid, got
+        rec.size = hi  # drop the rows computed after the decision (see the docstring)
+        return f"halted by {rdef.name} at iteration {int(view['iteration'][hi - 1])}: {sel.reason}"
+
+    return decided
 
 
 _ENVIRONMENT: dict[str, Any] = {}
@@ -175,9 +247,9 @@ def _environment() -> dict[str, Any]:
     return {"versions": versions, "threads": threads_, "machine": platform.machine()}
 
 
-def run_level_columns(spec: RunSpec, task: str, status: str) -> dict[str, Any]:
+def run_level_columns(spec: RunSpec, task: str, status: str, loss: str | None = None) -> dict[str, Any]:
     cols: dict[str, Any] = {"run_id": spec.run_id, "dataset": spec.dataset.get("name"), "task": task,
-                            "solver": spec.solver, "seed": spec.seed, "status": status}
+                            "loss": loss, "solver": spec.solver, "seed": spec.seed, "status": status}
     for k, v in spec.params.items():
         cols[k] = v
     return cols
@@ -223,7 +295,8 @@ def save(spec: RunSpec, trace: Trace, store: Store) -> RunOutcome:
     meta = {"run_id": spec.run_id, "digest": spec.digest, "identity": spec.identity(),
             "config": spec.to_dict(), "status": trace.status, "message": trace.message,
             "problem": trace.problem_info, "summary": summary, "created": time.time(), **environment()}
-    path = store.write_run(spec.run_id, trace.columns, run_level_columns(spec, task, trace.status), meta)
+    path = store.write_run(spec.run_id, trace.columns,
+                           run_level_columns(spec, task, trace.status, trace.problem_info.get("loss")), meta)
     return RunOutcome(spec.run_id, trace.status, path, False, trace.message, spec.label(),
                       summary.get("iterations", 0), summary.get("best_val_error", math.nan),
                       summary.get("best_val_iteration", -1), summary.get("seconds", 0.0))

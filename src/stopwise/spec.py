@@ -16,10 +16,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Dict, List, Optional
 
-from .data import DataError, normalize_dataset, split_rows  # noqa: F401
+from .data import DataError, dataset_task, normalize_dataset, split_rows  # noqa: F401
 from .data.split import SPLIT_KINDS
 from .solvers import SOLVERS, get_solver
 from .solvers.base import Interval, ParamError, UnknownSolver, make_params
+from .stopping import RuleError, normalize_stopping
 
 TRACE_FORMAT = 1
 
@@ -29,11 +30,20 @@ TRACE_FORMAT = 1
 COMMON_SOLVER_KEYS = ("step_scale",)
 
 
-class SpecError(ValueError):
-    """Invalid configuration; ``str(e)`` is one line naming the problem and the valid choices."""
+from .errors import SpecError  # noqa: E402,F401  (re-exported)
 
 
 # ---------------------------------------------------------------- schemas (Hydra ConfigStore)
+
+@dataclass
+class RandomFeaturesConfig:
+    """Optional random-features map (off while ``kind`` is null); see docs/datasets.md."""
+
+    kind: Optional[str] = None
+    n_components: int = 256
+    gamma: Optional[float] = None
+    seed: int = 0
+
 
 @dataclass
 class DatasetConfig:
@@ -43,6 +53,14 @@ class DatasetConfig:
     features: Optional[List[str]] = None
     standardize: bool = True
     center_target: bool = True
+    drop_features: Optional[List[str]] = None
+    categorical: Optional[List[str]] = None
+    missing: str = "impute"
+    drop_constant: bool = True
+    random_features: RandomFeaturesConfig = field(default_factory=RandomFeaturesConfig)
+    center_features: bool = False  # without standardize: subtract training means only
+    loss: Optional[str] = None       # classification: logistic | hinge | softmax | squares; null = task default
+    add_constant: bool = False       # append a column of ones after standardization
 
 
 @dataclass
@@ -53,6 +71,8 @@ class SplitConfig:
     train_rows: Optional[List[int]] = None
     val_rows: Optional[List[int]] = None
     test_rows: Optional[List[int]] = None
+    fold: int = 0
+    repeat: int = 0
 
 
 @dataclass
@@ -97,6 +117,8 @@ FIELD_CONSTRAINTS: dict[str, Interval] = {
     "record.per_pass": Interval(0.0, None, low_closed=False),
     "split.test": Interval(0.0, None),
     "split.val": Interval(0.0, None),
+    "split.fold": Interval(0, None, integer=True),
+    "split.repeat": Interval(0, None, integer=True),
     "seed": Interval(0, 2**32 - 1, integer=True),
 }
 
@@ -246,6 +268,14 @@ def spec_from_config(cfg: Any) -> RunSpec:
                         "fractions must sum to < 1")
     if split["kind"] != "indices":
         split["train_rows"] = split["val_rows"] = split["test_rows"] = None
+    if split["kind"] != "indices" or split["train_rows"] is not None or split["test_rows"] is not None:
+        # fold and repeat pick a predefined fold (an OpenML task's); elsewhere they change
+        # nothing, so they stay out of the run identity
+        split.pop("fold", None)
+        split.pop("repeat", None)
+    else:
+        split["fold"] = int(_check("split.fold", split["fold"]))
+        split["repeat"] = int(_check("split.repeat", split["repeat"]))
 
     solver_cfg = dict(c["solver"])
     name = solver_cfg.pop("name", None)
@@ -253,6 +283,14 @@ def spec_from_config(cfg: Any) -> RunSpec:
         sdef = get_solver(name)
     except UnknownSolver as e:
         raise SpecError(str(e)) from None
+    task = dataset_task(dataset)
+    if task is not None and task not in sdef.tasks:
+        raise SpecError(f"solver {name!r} does not handle {task} problems such as dataset {dataset.get('name')!r}; "
+                        f"valid solvers: {', '.join(n for n, d in SOLVERS.items() if task in d.tasks)}")
+    asked = c["dataset"].get("loss")
+    if sdef.loss is not None and asked not in (None, sdef.loss):
+        raise SpecError(f"dataset.loss={asked!r} conflicts with solver {name!r}, which trains the "
+                        f"{sdef.loss} loss; drop dataset.loss or set it to {sdef.loss!r}")
     own = {f.name for f in dataclasses.fields(sdef.params)}
     for key in COMMON_SOLVER_KEYS:
         if key not in own:
@@ -282,7 +320,10 @@ def spec_from_config(cfg: Any) -> RunSpec:
             raise SpecError(f"record.every={record['every']} and record.per_pass={record['per_pass']:g} "
                             "are exclusive: set one of them")
     seed = int(_check("seed", c.get("seed", 0)))
-    stopping = dict(StoppingConfig().__dict__, **(c.get("stopping") or {}))
+    try:
+        stopping = normalize_stopping(dict(StoppingConfig().__dict__, **(c.get("stopping") or {})))
+    except RuleError as e:
+        raise SpecError(str(e)) from None
     return RunSpec(dataset=dataset, split=split, solver=name, params=params, budget=budget,
                    record=record, seed=seed, stopping=stopping)
 

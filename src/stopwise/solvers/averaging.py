@@ -31,7 +31,7 @@ from typing import Any
 import numpy as np
 
 from ..problem import TrainingSet
-from .base import Choice, Interval, SolverDef, State, frozen, param
+from .base import Choice, Interval, SolverDef, State, frozen, param  # noqa: F401
 
 AVERAGES = ("none", "full", "tail", "ema")
 PASS_EPS = 1e-12  # the runner's tolerance on pass budgets
@@ -141,8 +141,8 @@ def averaged(defn: SolverDef, name: str | None = None, summary: str | None = Non
                              horizon_iterations=state.horizon_iterations, horizon_passes=state.horizon_passes)
 
     step.__doc__ = f"{defn.name} step followed by iterate averaging (stopwise.solvers.averaging)."
-    return SolverDef(name or defn.name, params_cls, init, step, summary or defn.summary, defn.tasks,
-                     defn.stochastic, init_budget=init_budget)
+    return dataclasses.replace(defn, name=name or defn.name, params=params_cls, init=init, step=step,
+                               summary=summary or defn.summary, init_budget=init_budget)
 
 
 __all__ = ["AVERAGES", "AveragedState", "AveragingError", "AveragingParams", "averaged", "tail_start"]

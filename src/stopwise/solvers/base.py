@@ -17,6 +17,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from ..errors import SpecError
 from ..problem import TrainingSet
 
 
@@ -28,11 +29,16 @@ def frozen(a: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class State:
-    """Base iterate record: ``w`` is evaluated, ``passes`` counts data passes."""
+    """Base iterate record: ``w`` is evaluated, ``passes`` counts data passes.
+
+    A solver sets ``converged`` when further steps cannot change ``w`` beyond rounding
+    (for example CGLS at a least-squares solution); the runner then ends the run.
+    """
 
     w: np.ndarray
     iteration: int = 0
     passes: float = 0.0
+    converged: bool = False
 
 
 # ---------------------------------------------------------------- constraints as data
@@ -91,12 +97,31 @@ class Choice:
         return "no-such-choice"
 
 
-def param(default: Any, constraint: Interval | Choice | None = None, doc: str = "") -> Any:
-    """Declare a params field with its constraint and one-line doc, readable by tests."""
-    return field(default=default, metadata={"constraint": constraint, "doc": doc})
+@dataclass(frozen=True)
+class Flag:
+    """A true/false switch (YAML booleans only, never strings or numbers)."""
+
+    def contains(self, v: Any) -> bool:
+        return isinstance(v, bool)
+
+    def describe(self) -> str:
+        return "true or false"
+
+    def outside(self) -> Any:
+        return "no-such-flag"
 
 
-class ParamError(ValueError):
+def param(default: Any, constraint: Interval | Choice | Flag | None = None, doc: str = "",
+          omit_default: bool = False) -> Any:
+    """Declare a params field with its constraint and one-line doc, readable by tests.
+
+    ``omit_default``: a normalized config leaves the field out while it has its default, so
+    adding the field to an existing params class keeps existing run identities unchanged.
+    """
+    return field(default=default, metadata={"constraint": constraint, "doc": doc, "omit_default": omit_default})
+
+
+class ParamError(SpecError):
     """A parameter outside its valid range; the message is one line."""
 
 
@@ -135,7 +160,17 @@ def make_params(cls: type, values: dict[str, Any], owner: str):
 
 @dataclass(frozen=True)
 class SolverDef:
-    """A registered solver: its params class, init and step, and how it spends work."""
+    """A registered solver: its params class, init and step, and how it spends work.
+
+    ``metrics``, when given, maps ``(train, params)`` to ``{column: f(state) -> float}``:
+    per-iterate quantities that depend on the solver's params or on more of its state than
+    ``w`` (a bias value, a dual variable's gap). The Recorder evaluates them on recorded
+    iterates only, outside the solver's timed work.
+
+    ``loss`` is the training loss the solver is built for (None: it follows the dataset's
+    loss option or the task's default). ``model(params, train)`` returns the prediction
+    model its iterates parameterize (None: linear scores ``X w``, see stopwise.models).
+    """
 
     name: str
     params: type
@@ -144,6 +179,9 @@ class SolverDef:
     summary: str
     tasks: tuple[str, ...] = ("regression",)
     stochastic: bool = False
+    metrics: Callable[[TrainingSet, Any], dict[str, Callable[[State], float]]] | None = None
+    loss: str | None = None
+    model: Callable[[Any, TrainingSet], Any] | None = None
     # optional init that also receives the run's budget (a dict with ``iterations`` and
     # ``passes``), for solvers whose iterate depends on the horizon (tail averaging);
     # the runner calls it instead of ``init`` when present
@@ -167,7 +205,7 @@ def register(defn: SolverDef) -> SolverDef:
     return defn
 
 
-class UnknownSolver(ValueError):
+class UnknownSolver(SpecError):
     pass
 
 

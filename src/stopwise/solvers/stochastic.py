@@ -36,7 +36,8 @@ Richtarik, "SGD: general analysis and improved rates", ICML 2019)::
     with replacement:                     L_b = L_max / b + (1 - 1 / b) L
 
 where ``L`` is the training objective's smoothness constant and ``L_max`` the largest
-per-sample one (``max_i ||x_i||^2`` for least squares). So ``b = n`` without replacement
+per-sample one (``max_i ||x_i||^2`` for least squares; the loss's curvature bound times
+that for the classification losses). So ``b = n`` without replacement
 gives ``L_b = L`` and ``step_scale`` means what it means for gradient descent.
 
 Schedules ``eta_t = eta_0 * factor(t)``:
@@ -54,7 +55,7 @@ from typing import Any
 
 import numpy as np
 
-from ..losses import minibatch_gradient
+from ..losses import CURVATURE, minibatch_gradient
 from ..problem import TrainingSet
 from .averaging import AveragingParams, averaged
 from .base import Choice, Interval, SolverDef, State, frozen, param, register
@@ -113,22 +114,10 @@ def batch_count(batch: float, n: int) -> int:
 
 
 def sample_smoothness(train: TrainingSet) -> float:
-    """``L_max``: the largest per-sample smoothness constant (cached on the training set).
-
-    Least squares: ``max_i ||x_i||^2``. Other losses whose ``L`` is a curvature bound times
-    ``||X||_2^2 / n`` get the same bound times ``max_i ||x_i||^2``.
-    """
-    cached = train.__dict__.get("_sample_smoothness")
-    if cached is None:
-        X = train.X
-        rmax = float(np.einsum("ij,ij->i", X, X).max()) if X.size else 0.0
-        if train.loss == "squares":
-            cached = rmax
-        else:
-            s2 = float(np.linalg.norm(X, 2)) ** 2 if X.size else 0.0
-            cached = train.L * train.n * rmax / s2 if s2 > 0 else 0.0
-        object.__setattr__(train, "_sample_smoothness", cached)
-    return cached
+    """``L_max``: the largest per-sample smoothness constant, ``c max_i ||x_i||^2`` with the
+    loss's curvature bound ``c`` (the one in ``L = c ||X||_2^2 / n``: 1 for least squares,
+    1/4 logistic, 1/2 softmax, 1 as the scale of the hinge)."""
+    return CURVATURE.get(train.loss, 1.0) * train.row_norm_max2
 
 
 def batch_smoothness(train: TrainingSet, b: int, sampling: str) -> float:
@@ -171,7 +160,7 @@ def sgd_init(train: TrainingSet, params: SGDParams, rng: np.random.Generator) ->
     else:
         Lb = batch_smoothness(train, b, params.sampling)
         eta0 = params.step_scale / Lb if Lb > 0 else 0.0
-    return SGDState(w=frozen(np.zeros(train.d)), iteration=0, passes=0.0, key=key,
+    return SGDState(w=frozen(np.zeros(train.dim)), iteration=0, passes=0.0, key=key,
                     block=sample_block(key, 0, n, params.sampling), block_index=0, pos=0, batch=b, eta0=eta0)
 
 
@@ -224,7 +213,7 @@ def sgd_step(train: TrainingSet, params: SGDParams, state: SGDState) -> SGDState
 SGD = register(averaged(SolverDef(
     "sgd", SGDParams, sgd_init, sgd_step,
     "stochastic gradient descent: minibatches, epoch / replacement / cyclic sampling, step schedules, "
-    "iterate averaging", stochastic=True)))
+    "iterate averaging", tasks=("regression", "binary", "multiclass"), stochastic=True)))
 
 
 __all__ = ["SAMPLINGS", "SCHEDULES", "SGD", "SGDParams", "SGDState", "batch_count", "batch_smoothness",
