@@ -10,7 +10,11 @@ is reported separately. Several cases show where recording is cheap and where it
 * the same problem on the automatic path, where the solver step is itself O(d^2);
 * a wide problem (n < d: no sufficient statistics, every recorded error reads its rows);
 * SGD with batch 1, recording every step against 8 rows per data pass;
-* the small demo problems, where both sides are a few microseconds of Python.
+* the small demo problems, where both sides are a few microseconds of Python;
+
+each with every metric on (``record.residual=true``, the default: the residual statistics
+of the residual-based stopping rules read the training rows at every recorded row) and
+with the residual statistics off.
 
     .venv/bin/python benchmarks/bench_recording.py
 """
@@ -49,24 +53,35 @@ def measure(label, spec, problem, path="auto", record_path=None, repeat=3):
 def main() -> None:
     threads.configure()
     print("machine:\n" + machine())
-    print(f"\n{'case':58s} {'rows':>7s} {'solver ms':>9s} {'record ms':>9s} {'overhead':>9s}   (target <= 15%)")
     tall = spectral_problem(50_000, 300, sigma=3.0)  # 30000 training rows x 300: 69 MiB
-    gd = spec_from_overrides(["solver=gd", "budget.iterations=60"])
+    for residual in ("true", "false"):
+        print(f"\nrecord.residual={residual}"
+              + ("  (every metric, including the residual statistics: one read of X_train per row)"
+                 if residual == "true" else "  (every metric but the residual statistics)"))
+        print(f"{'case':58s} {'rows':>7s} {'solver ms':>9s} {'record ms':>9s} {'overhead':>9s}   (target <= 15%)")
+        cases(tall, [f"record.residual={residual}"])
+
+
+def cases(tall, extra) -> None:
+    def spec_from(overrides):
+        return spec_from_overrides(overrides + extra)
+
+    gd = spec_from(["solver=gd", "budget.iterations=60"])
     measure("tall 30000x300, gd, solver reads X (blocked), stats record", gd, tall, "blocked", "auto")
     measure("tall 30000x300, gd, solver reads X (direct), stats record", gd, tall, "direct", "auto")
-    measure("tall 30000x300, gd, automatic (Gram step, stats record)", spec_from_overrides(
-        ["solver=gd", "budget.iterations=2000"]), tall, "auto")
-    measure("tall 30000x300, cgls (reads X), stats record", spec_from_overrides(
+    measure("tall 30000x300, gd, automatic (Gram step, stats record)", spec_from(
+        ["solver=gd", "budget.iterations=600"]), tall, "auto")
+    measure("tall 30000x300, cgls (reads X), stats record", spec_from(
         ["solver=cgls", "budget.iterations=60"]), tall, "auto")
     wide = spectral_problem(2_000, 4_000, decay=0.5)
     measure("wide 1200x4000, gd, automatic (blocked step, direct record)", gd, wide, "auto")
     sgd = ["solver=sgd", "solver.batch=1", "solver.step_scale=0.5", "budget.iterations=1000000",
            "budget.passes=0.5"]
-    measure("tall 30000x300, sgd b=1, record every step", spec_from_overrides(sgd), tall, "auto")
-    measure("tall 30000x300, sgd b=1, record 8 rows per pass", spec_from_overrides(sgd + ["record.per_pass=8"]),
+    measure("tall 30000x300, sgd b=1, record every step", spec_from(sgd[:-1] + ["budget.passes=0.1"]), tall, "auto")
+    measure("tall 30000x300, sgd b=1, record 8 rows per pass", spec_from(sgd + ["record.per_pass=8"]),
             tall, "auto")
     for ds in ("diabetes", "illposed"):
-        spec = spec_from_overrides([f"dataset={ds}", "solver=gd", "budget.iterations=3000"])
+        spec = spec_from([f"dataset={ds}", "solver=gd", "budget.iterations=3000"])
         measure(f"demo {ds}, gd, automatic", spec, cached_problem(spec.dataset, spec.split, spec.seed), "auto")
 
 

@@ -55,10 +55,13 @@ class Recorder:
     def __init__(self, problem: Problem, capacity: int = 256,
                  state_metrics: Mapping[str, Callable[[Any], float]] | None = None,
                  loss: str | None = None, model: Any = None,
-                 statistics: "fastpath.SplitStatistics | None | str" = "auto"):
+                 statistics: "fastpath.SplitStatistics | None | str" = "auto",
+                 exclude: tuple[str, ...] = ()):
         """``statistics`` (regression): the split statistics to use, None for direct
         evaluation only, or an evaluation path name (``auto``, ``gram``, ``direct``,
-        ``blocked``); see :mod:`stopwise.fastpath`."""
+        ``blocked``); see :mod:`stopwise.fastpath`. ``exclude``: ``METRIC_SETS`` columns
+        not to record (the runner leaves out the residual statistics when
+        ``record.residual`` is false)."""
         self.problem = problem
         self._cls = None
         self.info: dict = {}
@@ -70,6 +73,8 @@ class Recorder:
         self._extras: dict[str, Callable[[np.ndarray], float]] = {}
         for make in METRIC_SETS:
             self._extras.update(make(problem) or {})
+        for name in exclude:
+            self._extras.pop(name, None)
         cls_cols = self._cls.columns if self._cls is not None else ()
         self._state_extras = dict(state_metrics or {})
         clash = sorted(set(self._state_extras) & (set(BASE_COLUMNS) | set(cls_cols) | set(self._extras)))

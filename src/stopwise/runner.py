@@ -16,6 +16,7 @@ from .data import cached_problem
 from .losses import resolve_loss
 from .problem import Problem
 from .record import Recorder
+from .residual import COLUMNS as RESIDUAL_COLUMNS
 from .solvers import get_solver
 from .solvers.base import make_params
 from .spec import RunSpec, spec_from_overrides
@@ -88,7 +89,9 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
 
     Recording: the initial iterate, then every ``record.every``-th iterate, or, when
     ``record.per_pass`` is set, the first iterate at or past each point of the grid
-    ``k / per_pass`` data passes; the last iterate is always recorded.
+    ``k / per_pass`` data passes; the last iterate is always recorded. With
+    ``record.residual: false`` regression traces leave out the residual statistics
+    (``residual_dot_prev``, ``ncp_distance``), whose every row reads the training rows.
     """
     threads.configure()
     problem = problem if problem is not None else cached_problem(spec.dataset, spec.split, spec.seed)
@@ -107,7 +110,8 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
     rng = run_rng(spec)
     rec = Recorder(problem, capacity=_record_rows(spec),
                    state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None,
-                   loss=train.loss, model=model, statistics=stats)
+                   loss=train.loss, model=model, statistics=stats,
+                   exclude=() if spec.record.get("residual", True) else RESIDUAL_COLUMNS)
     max_it = spec.budget["iterations"]
     max_passes = spec.budget["passes"]
     every = spec.record["every"]

@@ -86,6 +86,7 @@ class BudgetConfig:
 class RecordConfig:
     every: int = 1
     per_pass: Optional[float] = None  # rows per data pass; replaces `every` when set
+    residual: bool = True  # regression: record the residual statistics (one read of X_train per row)
 
 
 @dataclass
@@ -107,6 +108,9 @@ class StopwiseConfig:
     results_root: str = "results"
     campaign_id: Optional[str] = None
 
+
+# halting rules that read the residual columns (record.residual)
+RESIDUAL_RULES = ("monotone_error", "ncp")
 
 # numeric constraints of the fixed schemas, as data (read by validation and by tests)
 FIELD_CONSTRAINTS: dict[str, Interval] = {
@@ -312,6 +316,10 @@ def spec_from_config(cfg: Any) -> RunSpec:
     if unknown:
         raise SpecError(f"record has no key {unknown[0]!r}; valid: {', '.join(RecordConfig().__dict__)}")
     record["every"] = int(_check("record.every", record["every"]))
+    if not isinstance(record["residual"], bool):
+        raise SpecError(f"record.residual={record['residual']!r} is invalid: must be true or false")
+    if record["residual"]:
+        del record["residual"]  # the default is absent from the identity (runs keep their ids)
     if record["per_pass"] is None:
         del record["per_pass"]  # absent from the identity, so runs without it keep their ids
     else:
@@ -324,6 +332,9 @@ def spec_from_config(cfg: Any) -> RunSpec:
         stopping = normalize_stopping(dict(StoppingConfig().__dict__, **(c.get("stopping") or {})))
     except RuleError as e:
         raise SpecError(str(e)) from None
+    if stopping.get("halt") and stopping.get("rule") in RESIDUAL_RULES and record.get("residual") is False:
+        raise SpecError(f"stopping.rule={stopping['rule']} with halt needs the residual columns: "
+                        "drop record.residual=false")
     return RunSpec(dataset=dataset, split=split, solver=name, params=params, budget=budget,
                    record=record, seed=seed, stopping=stopping)
 
