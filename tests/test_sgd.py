@@ -323,3 +323,42 @@ def test_docstring_examples_run():
     from stopwise.solvers import stochastic
 
     assert doctest.testmod(stochastic).failed == 0
+
+
+@pytest.mark.parametrize("average", ["none", "full"])
+def test_logistic_sgd_equals_scikit_learn_sgdclassifier(average):
+    """Binary breast-cancer rows (labels -1 / +1), logistic loss: scikit-learn's
+    SGDClassifier(loss="log_loss") takes w -= eta0 * (-y / (1 + exp(y x.w))) x per sample,
+    the gradient of log(1 + exp(-y x.w)); with no penalty, constant rate, no intercept and
+    no shuffling it visits the rows in order. Two epochs, with and without averaging."""
+    from sklearn.linear_model import SGDClassifier
+
+    p = stopwise.load_problem(["dataset=breast_cancer"])
+    assert p.objective == "logistic"
+    n, eta0 = p.n_train, 0.05
+    sp = params(step=eta0, batch=1.0, sampling="cyclic", average=average)
+    st, _ = iterates(p.training, sp, 2 * n)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ref = SGDClassifier(loss="log_loss", penalty=None, learning_rate="constant", eta0=eta0, fit_intercept=False,
+                            shuffle=False, max_iter=2, tol=None, average=average == "full").fit(p.X_train, p.y_train)
+    np.testing.assert_allclose(st.w, ref.coef_.ravel(), rtol=1e-10, atol=1e-10 * np.abs(ref.coef_).max())
+
+
+def test_sgd_runs_on_multiclass_softmax():
+    """Softmax on wine (3 classes): the iterate holds d x K weights; a whole-batch epoch
+    step equals full-batch gradient descent on the same loss."""
+    spec = spec_from_overrides(["dataset=wine", "solver=sgd", "solver.batch=0.25", "budget.iterations=40"])
+    tr = execute(spec)
+    assert tr.status == "completed" and tr.problem_info["loss"] == "softmax"
+    assert tr.columns["train_error"][-1] < tr.columns["train_error"][0]
+    p = stopwise.load_problem(["dataset=wine"])
+    train = p.training
+    sp = params(batch=float(p.n_train))
+    st, ws = iterates(train, sp, 5)
+    gd = get_solver("gd")
+    gp = make_params(gd.params, {"step_scale": 1.0}, "solver")
+    g = gd.init(train, gp, None)
+    for t in range(1, 6):
+        g = gd.step(train, gp, g)
+    np.testing.assert_allclose(ws[5], g.w, rtol=1e-12)
