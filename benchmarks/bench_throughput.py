@@ -27,6 +27,7 @@ from stopwise import threads  # noqa: E402
 from stopwise.campaign import expand  # noqa: E402
 from stopwise.data import cached_problem  # noqa: E402
 from stopwise.runner import execute, save  # noqa: E402
+from stopwise.solvers.krylov import TOL as CGLS_TOL  # noqa: E402
 from stopwise.store import Store  # noqa: E402
 
 
@@ -44,6 +45,7 @@ def hand_loop(problem, solver: str, params: dict, iterations: int, out: Path, fa
     s = X.T @ r
     p = s.copy()
     gamma = s @ s
+    converged = False
     loss0 = None
     t0 = time.perf_counter()
     for t in range(iterations + 1):
@@ -58,15 +60,20 @@ def hand_loop(problem, solver: str, params: dict, iterations: int, out: Path, fa
                 v = w + mom * (w - w_prev)
                 w, w_prev = v - eta * X.T @ (X @ v - y) / n, w
             elif solver == "cgls":
-                if gamma > 0:
-                    q = X @ p
-                    alpha = gamma / (q @ q)
-                    w = w + alpha * p
-                    r = r - alpha * q
-                    s = X.T @ r
-                    gamma_new = s @ s
-                    p = s + gamma_new / gamma * p
-                    gamma = gamma_new
+                if converged:
+                    break
+                q = X @ p
+                alpha = gamma / (q @ q)
+                w = w + alpha * p
+                r = r - alpha * q
+                s = X.T @ r
+                gamma_new = s @ s
+                p = s + gamma_new / gamma * p
+                gamma = gamma_new
+                # stop at a least-squares solution (LSQR's tests, Paige and Saunders 1982)
+                nx, nr = np.sqrt(L * n), np.linalg.norm(r)
+                converged = (np.sqrt(gamma) <= CGLS_TOL * nx * nr
+                             or nr <= CGLS_TOL * (nx * np.linalg.norm(w) + np.linalg.norm(y)))
             if not np.all(np.isfinite(w)):
                 break
         train = mean_squared_error(y, X @ w)
@@ -77,6 +84,8 @@ def hand_loop(problem, solver: str, params: dict, iterations: int, out: Path, fa
                "w_norm": float(np.linalg.norm(w)), "residual_norm": math.sqrt(train * n),
                "dist_truth": float(np.linalg.norm(w - problem.w_true)) if problem.w_true is not None else math.nan}
         rows.append(row)
+        if solver == "cgls" and converged:
+            break
         if loss0 is None:
             loss0 = train / 2
         elif not math.isfinite(train) or train / 2 > factor * loss0:
