@@ -58,6 +58,12 @@ def check_data(specs: list[RunSpec]) -> None:
             cached_problem(s.dataset, s.split, s.seed)
 
 
+def campaign_digest(name: str, run_ids: list[str], stopping: list) -> str:
+    """SHA-256 of a campaign's identity: its name, its run ids (as a set) and its post-hoc rules."""
+    ident = {"name": name, "run_ids": sorted(run_ids), "stopping": stopping}
+    return hashlib.sha256(canonical_json(ident).encode()).hexdigest()
+
+
 def campaign_file(name: str) -> Path:
     if not NAME.match(name or ""):
         raise SpecError(f"campaign name {name!r} is invalid: use letters, digits, '_', '-', '.'")
@@ -100,7 +106,10 @@ def expand(campaign: str | None, overrides: list[str]) -> Expansion:
         if params is not None:
             file_params = {str(k): str(v) for k, v in OmegaConf.to_container(params).items()}
         base.append(f"+campaign={campaign}")
-    user = [o for o in overrides if not o.startswith("campaign_id=")]
+    for o in overrides:
+        if o.lstrip("+~").split("=", 1)[0].strip() == "campaign_id":
+            raise SpecError(f"{o!r} is not allowed: campaign_id is set by stopwise sweep from the campaign's hash")
+    user = list(overrides)
     with hydra_context() as gh:
         parser = OverridesParser.create(config_loader=gh.config_loader())
         try:
@@ -129,8 +138,7 @@ def expand(campaign: str | None, overrides: list[str]) -> Expansion:
         r = s.stopping
         if r not in rules:
             rules.append(r)
-    ident = {"name": name, "run_ids": sorted(run_ids), "stopping": rules}
-    digest = hashlib.sha256(canonical_json(ident).encode()).hexdigest()
+    digest = campaign_digest(name, run_ids, rules)
     manifest = {
         "campaign_id": digest[:16], "digest": digest, "name": name,
         "definition": {"campaign": campaign, "overrides": user, "sweep_params": file_params,
