@@ -10,6 +10,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from .record import BASE_COLUMNS
 from .store import Store
 
 
@@ -45,6 +46,10 @@ def load_traces(root: str | Path = "results", campaign: str | None = None,
                 row = first.to_pylist()[0] if first.num_rows else None
                 if row is None or any(k not in row or not _match(row[k], v) for k, v in filters.items()):
                     continue
+            wrong = [f"{n} is {schema.field(n).type}" for n, ok in EXPECTED_TYPES.items()
+                     if n in schema.names and not ok(schema.field(n).type)]
+            if wrong:
+                raise TypeError("column types differ from the trace schema: " + ", ".join(wrong))
             cols = None if want is None else [c for c in want if c in schema.names]
             table = pq.read_table(path, columns=cols)
             # a file whose column types cannot join the others (e.g. tampered) is skipped by name
@@ -59,6 +64,19 @@ def load_traces(root: str | Path = "results", campaign: str | None = None,
         return pd.DataFrame(columns=want or [])
     table = pa.concat_tables(tables, promote_options="permissive")
     return table.to_pandas()
+
+
+def _numeric(t: pa.DataType) -> bool:
+    return pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_null(t)
+
+
+# Types of the columns every trace has (docs/schema.md); a file that differs is skipped by name.
+EXPECTED_TYPES = {
+    **{c: (pa.types.is_integer if c == "iteration" else _numeric) for c in BASE_COLUMNS},
+    **{c: (lambda t: pa.types.is_string(t) or pa.types.is_large_string(t) or pa.types.is_null(t))
+       for c in ("run_id", "dataset", "task", "solver", "status")},
+    "seed": lambda t: pa.types.is_integer(t) or pa.types.is_null(t),
+}
 
 
 def _one_line(e: BaseException) -> str:
