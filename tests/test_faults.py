@@ -16,7 +16,7 @@ import pytest
 import stopwise
 from stopwise.cli import main
 from stopwise.store import Store
-from stopwise.verify import TEMP_GRACE_SECONDS, check_trace, verify
+from stopwise.verify import TEMP_GRACE_SECONDS, check_trace, verify_root
 
 from sweep_helpers import assert_same_traces, cli, popen
 
@@ -92,7 +92,7 @@ def test_two_sweeps_of_one_campaign_at_once(uninterrupted, tmp_path):
     names = os.listdir(root / "runs")
     assert len(names) == 6 and all(n.endswith(".parquet") and not n.startswith(".") for n in names)
     assert len(os.listdir(root / "campaigns")) == 1
-    rep = verify(root)
+    rep = verify_root(root)
     assert rep.ok and rep.traces == 6 and rep.manifests == 1, rep
     runs = stopwise.load_runs(root)
     assert len(runs) == 6 and runs["run_id"].is_unique

@@ -14,7 +14,7 @@ import pytest
 
 import stopwise
 from stopwise.cli import main
-from stopwise.verify import verify
+from stopwise.verify import verify_root
 
 
 @pytest.fixture(scope="module")
@@ -159,7 +159,7 @@ def test_each_bad_file_is_reported_by_path(root, capsys, corrupt):
 
 def test_all_at_once_then_quarantine_leaves_a_clean_root(root, capsys):
     broken = {corrupt(root)[0] for corrupt in CORRUPTIONS}
-    rep = verify(root)
+    rep = verify_root(root)
     assert {f.path for f in rep.bad} == broken
     assert main(["verify", str(root), "--quarantine"]) == 1
     out = capsys.readouterr().out

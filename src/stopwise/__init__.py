@@ -6,6 +6,7 @@ Public API::
     load_problem(overrides)           the Problem (arrays, truth, noise, L) a run sees
     load_traces(root, campaign=None, **filters)   every recorded iterate as a DataFrame
     load_runs(root, campaign=None)    one row per stored run
+    verify_root(root, quarantine=False)   check every trace and manifest under a results root
 """
 from __future__ import annotations
 
@@ -16,6 +17,7 @@ from .query import load_runs, load_traces  # noqa: E402
 from .runner import RunOutcome, execute, run  # noqa: E402
 from .solvers import SOLVERS, get_solver  # noqa: E402
 from .spec import RunSpec, SpecError, spec_from_overrides  # noqa: E402
+from .verify import verify_root  # noqa: E402
 
 
 def load_problem(overrides: list[str] | None = None) -> Problem:
@@ -32,4 +34,4 @@ def load_problem(overrides: list[str] | None = None) -> Problem:
 
 
 __all__ = ["Problem", "TrainingSet", "RunOutcome", "RunSpec", "SpecError", "SOLVERS", "execute",
-           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides"]
+           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides", "verify_root"]

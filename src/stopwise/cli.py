@@ -197,7 +197,7 @@ def cmd_ls(argv: list[str]) -> int:
 
 def cmd_verify(argv: list[str]) -> int:
     from .spec import SpecError
-    from .verify import QUARANTINE, verify
+    from .verify import QUARANTINE, verify_root
 
     ap = argparse.ArgumentParser(prog="stopwise verify")
     ap.add_argument("root", nargs="?", default="results", help="results root (default: results)")
@@ -205,7 +205,7 @@ def cmd_verify(argv: list[str]) -> int:
                     help=f"move bad files and stale temporary files to ROOT/{QUARANTINE}/")
     a = ap.parse_args(argv)
     try:
-        rep = verify(a.root, quarantine=a.quarantine)
+        rep = verify_root(a.root, quarantine=a.quarantine)
     except SpecError as e:
         return _fail(str(e))
 

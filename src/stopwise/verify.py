@@ -197,7 +197,7 @@ def _move(store: Store, path: Path) -> Path:
     return dest
 
 
-def verify(root: str | os.PathLike, quarantine: bool = False, now: float | None = None) -> VerifyReport:
+def verify_root(root: str | os.PathLike, quarantine: bool = False, now: float | None = None) -> VerifyReport:
     """Check every trace and manifest under ``root`` (see the module docstring)."""
     store = Store(root)
     if not store.root.is_dir():
@@ -236,5 +236,5 @@ def verify(root: str | os.PathLike, quarantine: bool = False, now: float | None 
     return rep
 
 
-__all__ = ["verify", "check_trace", "check_manifest", "VerifyReport", "Finding", "QUARANTINE",
+__all__ = ["verify_root", "check_trace", "check_manifest", "VerifyReport", "Finding", "QUARANTINE",
            "TEMP_GRACE_SECONDS"]
