@@ -144,3 +144,13 @@ def test_deleting_a_field_is_an_error_or_its_schema_default(key, base):
         assert deleted.dataset["params"][key.rsplit(".", 1)[1]] == default
     elif key == "seed":
         assert deleted.seed == StopwiseConfig().seed
+
+
+@pytest.mark.parametrize("command", sorted(__import__("stopwise.cli", fromlist=["COMMANDS"]).COMMANDS))
+def test_an_unknown_option_of_every_command_is_one_line_exit_2(tmp_path, monkeypatch, capsys, command):
+    monkeypatch.chdir(tmp_path)
+    code = main([command, "--no-such-option", "x"])
+    err = capsys.readouterr().err
+    assert code == 2 and err.startswith("stopwise: error: ") and err.count("\n") == 1, err
+    assert "--no-such-option" in err
+    assert list(Path(tmp_path).rglob("*")) == []

@@ -21,6 +21,17 @@ commands:
 """
 
 
+class BadArguments(ValueError):
+    """A subcommand's options could not be parsed (one line)."""
+
+
+class ArgParser(argparse.ArgumentParser):
+    """argparse, but a usage error is one line ``stopwise: error: ...`` and exit code 2."""
+
+    def error(self, message: str):  # type: ignore[override]
+        raise BadArguments(f"{self.prog}: {' '.join(message.split())}; see {self.prog} --help")
+
+
 def _fail(msg: str) -> int:
     print(f"stopwise: error: {msg}", file=sys.stderr)
     return EXIT_BAD_INPUT
@@ -141,7 +152,7 @@ def cmd_rerun(argv: list[str]) -> int:
     from .rerun import rerun_one, resolve
     from .store import Store, StoreError
 
-    ap = argparse.ArgumentParser(prog="stopwise rerun")
+    ap = ArgParser(prog="stopwise rerun")
     ap.add_argument("id", help="run id (or unique prefix) or campaign id / name")
     ap.add_argument("--root", default="results", help="results root (default: results)")
     a = ap.parse_args(argv)
@@ -175,7 +186,7 @@ def cmd_ls(argv: list[str]) -> int:
     from .query import load_runs
     from .store import StoreError
 
-    ap = argparse.ArgumentParser(prog="stopwise ls")
+    ap = ArgParser(prog="stopwise ls")
     ap.add_argument("--campaign", default=None, help="campaign name or id")
     ap.add_argument("--root", default="results")
     a = ap.parse_args(argv)
@@ -199,7 +210,7 @@ def cmd_verify(argv: list[str]) -> int:
     from .spec import SpecError
     from .verify import QUARANTINE, verify_root
 
-    ap = argparse.ArgumentParser(prog="stopwise verify")
+    ap = ArgParser(prog="stopwise verify")
     ap.add_argument("root", nargs="?", default="results", help="results root (default: results)")
     ap.add_argument("--quarantine", action="store_true",
                     help=f"move bad files and stale temporary files to ROOT/{QUARANTINE}/")
@@ -249,7 +260,10 @@ def main(argv: list[str] | None = None) -> int:
     cmd, rest = argv[0], argv[1:]
     if cmd not in COMMANDS:
         return _fail(f"unknown command {cmd!r}; valid: {', '.join(COMMANDS)}")
-    return COMMANDS[cmd](rest)
+    try:
+        return COMMANDS[cmd](rest)
+    except BadArguments as e:
+        return _fail(str(e))
 
 
 if __name__ == "__main__":
