@@ -154,3 +154,13 @@ def test_an_unknown_option_of_every_command_is_one_line_exit_2(tmp_path, monkeyp
     assert code == 2 and err.startswith("stopwise: error: ") and err.count("\n") == 1, err
     assert "--no-such-option" in err
     assert list(Path(tmp_path).rglob("*")) == []
+
+
+def test_a_dataset_too_large_for_memory_is_bad_input(tmp_path, monkeypatch, capsys):
+    """10**15 rows x 40 features is more than any 64-bit address space: refused in one line."""
+    monkeypatch.chdir(tmp_path)
+    code = main(["sweep", "dataset=wellposed", "seed=0,1", "dataset.params.n=1000000000000000",
+                 f"results_root={tmp_path / 'res'}"])
+    err = capsys.readouterr().err
+    assert code == 2 and "does not fit in memory" in err and err.count("\n") == 1, err
+    assert list(Path(tmp_path).rglob("*")) == []

@@ -55,7 +55,11 @@ def check_data(specs: list[RunSpec]) -> None:
         key = canonical_json([s.dataset, s.split, s.seed])
         if key not in seen:
             seen.add(key)
-            cached_problem(s.dataset, s.split, s.seed)
+            try:
+                cached_problem(s.dataset, s.split, s.seed)
+            except MemoryError as e:  # e.g. dataset.params.n=1e11: bad input, not a crash
+                raise SpecError(f"dataset {s.dataset.get('name')!r} does not fit in memory: "
+                                f"{' '.join(str(e).split())}") from None
 
 
 def campaign_digest(name: str, run_ids: list[str], stopping: list) -> str:
