@@ -13,6 +13,7 @@ import pickle
 import subprocess
 import sys
 import textwrap
+import warnings
 
 import pyarrow as pa
 import pyarrow.parquet as pq
@@ -193,3 +194,18 @@ def test_a_trace_linking_outside_the_root_is_not_read(tmp_path):
     # a sweep does not count it as done either: the run is computed again into the root
     again = stopwise.run(["dataset=wellposed", "solver=gd", "budget.iterations=5"], root=root)
     assert not again.skipped and not out.path.is_symlink() and outside.exists()
+
+
+def test_a_results_root_or_runs_folder_that_is_itself_a_link_still_works(tmp_path):
+    """Links the user made for the layout (root or runs/ on another disk) are not hostile."""
+    disk = tmp_path / "disk"
+    out = stopwise.run(["dataset=wellposed", "solver=gd", "budget.iterations=5"], root=disk)
+    (tmp_path / "linked_root").symlink_to(disk)
+    assert len(stopwise.load_runs(tmp_path / "linked_root")) == 1
+    root = tmp_path / "res"
+    root.mkdir()
+    (root / "runs").symlink_to(disk / "runs")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert list(stopwise.load_runs(root)["run_id"]) == [out.run_id]
+    assert stopwise.run(["dataset=wellposed", "solver=gd", "budget.iterations=5"], root=root).skipped

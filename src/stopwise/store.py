@@ -135,9 +135,13 @@ class Store:
         return out
 
     def inside(self, path: Path) -> bool:
-        """Whether ``path`` (links followed) lies inside this results root."""
+        """Whether ``path``, links followed, stays inside this results root (or inside its own
+        folder, so that a root or a ``runs/`` folder that is itself a link keeps working)."""
         try:
-            Path(path).resolve().relative_to(self.root.resolve())
+            real = Path(path).resolve()
+            if real.parent == Path(path).parent.resolve():
+                return True
+            real.relative_to(self.root.resolve())
             return True
         except (ValueError, OSError):
             return False
