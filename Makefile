@@ -15,7 +15,7 @@ $(VENV)/.installed: pyproject.toml | $(BIN)/python
 
 demo: $(VENV)/.installed
 	$(BIN)/stopwise sweep demo
-	$(BIN)/stopwise ls --campaign demo
+	$(BIN)/stopwise ls --campaign demo --summary
 
 test: $(VENV)/.installed
 	$(BIN)/python -m pytest -q

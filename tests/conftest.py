@@ -1,11 +1,175 @@
+import atexit
 import os
+import shutil
+import tempfile
 
 import pytest
 
 os.environ.setdefault("OMP_NUM_THREADS", "1")
+# Tests never touch the user's caches: stopwise's processed-problem cache and openml's
+# cache live in a temporary folder for the whole session (set before openml is imported,
+# which reads OPENML_CACHE_DIR once).
+_SESSION_TMP = tempfile.mkdtemp(prefix="stopwise-tests-")
+atexit.register(shutil.rmtree, _SESSION_TMP, True)
+os.environ["STOPWISE_CACHE"] = os.path.join(_SESSION_TMP, "stopwise-cache")
+os.environ["OPENML_CACHE_DIR"] = os.path.join(_SESSION_TMP, "openml-cache")
 
 
 @pytest.fixture
 def root(tmp_path):
     """A fresh results root."""
     return tmp_path / "results"
+
+
+# ---------------------------------------------------------------- OpenML cache built by the tests
+#
+# openml's cache layout (openml 0.15): <root>/org/openml/www/datasets/<id>/{description.xml,
+# dataset_<id>.pq, features.xml} and <root>/org/openml/www/tasks/<id>/{task.xml,
+# datasplits.arff}. The tests write these files themselves from data that scikit-learn
+# ships, keep them read-only, and copy them into a fresh cache before each use (openml
+# deletes a dataset's cache folder when a call on it fails).
+
+OML_DIABETES, OML_IRIS, OML_TASK_DIABETES, OML_TASK_IRIS = 900001, 900002, 900011, 900012
+
+
+def _description(did, name, target):
+    return (f'<oml:data_set_description xmlns:oml="http://openml.org/openml">'
+            f"<oml:id>{did}</oml:id><oml:name>{name}</oml:name><oml:version>1</oml:version>"
+            f"<oml:format>arff</oml:format><oml:url>http://127.0.0.1:9/{did}.arff</oml:url>"
+            f"<oml:parquet_url>http://127.0.0.1:9/{did}.pq</oml:parquet_url>"
+            f"<oml:default_target_attribute>{target}</oml:default_target_attribute>"
+            f"</oml:data_set_description>")
+
+
+def _features(columns, nominal):
+    parts = []
+    for i, c in enumerate(columns):
+        if c in nominal:
+            vals = "".join(f"<oml:nominal_value>{v}</oml:nominal_value>" for v in nominal[c])
+            kind = "nominal"
+        else:
+            vals, kind = "", "numeric"
+        parts.append(f"<oml:feature><oml:index>{i}</oml:index><oml:name>{c}</oml:name>"
+                     f"<oml:data_type>{kind}</oml:data_type>{vals}"
+                     f"<oml:number_of_missing_values>0</oml:number_of_missing_values></oml:feature>")
+    return f'<oml:data_features xmlns:oml="http://openml.org/openml">{"".join(parts)}</oml:data_features>'
+
+
+def _task(tid, did, target, type_id, type_name, repeats, folds):
+    return (f'<oml:task xmlns:oml="http://openml.org/openml"><oml:task_id>{tid}</oml:task_id>'
+            f"<oml:task_type_id>{type_id}</oml:task_type_id><oml:task_type>{type_name}</oml:task_type>"
+            f'<oml:input name="source_data"><oml:data_set><oml:data_set_id>{did}</oml:data_set_id>'
+            f"<oml:target_feature>{target}</oml:target_feature></oml:data_set></oml:input>"
+            f'<oml:input name="estimation_procedure"><oml:estimation_procedure><oml:id>1</oml:id>'
+            f"<oml:type>crossvalidation</oml:type><oml:data_splits_url>http://127.0.0.1:9/{tid}.arff"
+            f'</oml:data_splits_url><oml:parameter name="number_repeats">{repeats}</oml:parameter>'
+            f'<oml:parameter name="number_folds">{folds}</oml:parameter>'
+            f"</oml:estimation_procedure></oml:input></oml:task>")
+
+
+def _splits_arff(folds):
+    """``folds``: {(repeat, fold): (train_rows, test_rows)} in OpenML's split-file format."""
+    lines = ["@RELATION splits", "@ATTRIBUTE type {TRAIN,TEST}", "@ATTRIBUTE rowid NUMERIC",
+             "@ATTRIBUTE repeat NUMERIC", "@ATTRIBUTE fold NUMERIC", "@DATA"]
+    for (r, f), (tr, te) in sorted(folds.items()):
+        lines += [f"TRAIN,{i},{r},{f}" for i in tr] + [f"TEST,{i},{r},{f}" for i in te]
+    return "\n".join(lines) + "\n"
+
+
+def task_folds():
+    """The folds the tests write: KFold(5) on diabetes, RepeatedKFold(3 folds, 2 repeats) on iris
+    (scikit-learn's splitters, seeded)."""
+    from sklearn.model_selection import KFold, RepeatedKFold
+
+    diab = {(0, f): (tr, te) for f, (tr, te) in enumerate(KFold(5, shuffle=True, random_state=0).split(range(442)))}
+    iris = {}
+    for i, (tr, te) in enumerate(RepeatedKFold(n_splits=3, n_repeats=2, random_state=0).split(range(150))):
+        iris[(i // 3, i % 3)] = (tr, te)
+    return {OML_TASK_DIABETES: diab, OML_TASK_IRIS: iris}
+
+
+def _write(path, text):
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(text)
+
+
+@pytest.fixture(scope="session")
+def openml_fixture(tmp_path_factory):
+    """A read-only OpenML cache root holding diabetes and iris (datasets and tasks)."""
+    import pandas as pd
+    from sklearn import datasets
+
+    root = tmp_path_factory.mktemp("openml-fixture")
+    www = root / "org" / "openml" / "www"
+    diab = datasets.load_diabetes(scaled=False, as_frame=True).frame
+    iris_b = datasets.load_iris(as_frame=True)
+    iris = iris_b.data.copy()
+    iris["class"] = pd.Categorical([iris_b.target_names[i] for i in iris_b.target], categories=list(iris_b.target_names))
+    for did, name, df, target, nominal in [
+            (OML_DIABETES, "diabetes-copy", diab, "target", {}),
+            (OML_IRIS, "iris-copy", iris, "class", {"class": list(iris_b.target_names)})]:
+        d = www / "datasets" / str(did)
+        d.mkdir(parents=True)
+        df.to_parquet(d / f"dataset_{did}.pq")
+        _write(d / "description.xml", _description(did, name, target))
+        _write(d / "features.xml", _features(list(df.columns), nominal))
+    folds = task_folds()
+    _write(www / "tasks" / str(OML_TASK_DIABETES) / "task.xml",
+           _task(OML_TASK_DIABETES, OML_DIABETES, "target", 2, "Supervised Regression", 1, 5))
+    _write(www / "tasks" / str(OML_TASK_DIABETES) / "datasplits.arff", _splits_arff(folds[OML_TASK_DIABETES]))
+    _write(www / "tasks" / str(OML_TASK_IRIS) / "task.xml",
+           _task(OML_TASK_IRIS, OML_IRIS, "class", 1, "Supervised Classification", 2, 3))
+    _write(www / "tasks" / str(OML_TASK_IRIS) / "datasplits.arff", _splits_arff(folds[OML_TASK_IRIS]))
+    for p in sorted(root.rglob("*"), reverse=True):
+        p.chmod(0o555 if p.is_dir() else 0o444)
+    return root
+
+
+def _copy_tree(src, dst):
+    """Copy files without their read-only modes (so openml can add its own derived files)."""
+    for dirpath, _, files in os.walk(src):
+        rel = os.path.relpath(dirpath, src)
+        os.makedirs(os.path.join(dst, rel), exist_ok=True)
+        for f in files:
+            shutil.copyfile(os.path.join(dirpath, f), os.path.join(dst, rel, f))
+
+
+@pytest.fixture
+def no_network(monkeypatch):
+    """Every name lookup and socket connection fails at once: the test runs as if offline."""
+    import socket
+
+    def refuse(*args, **kwargs):
+        raise OSError("network disabled in tests")
+
+    monkeypatch.setattr(socket, "getaddrinfo", refuse)
+    monkeypatch.setattr(socket.socket, "connect", refuse)
+    monkeypatch.setattr(socket, "create_connection", refuse)
+
+
+@pytest.fixture
+def openml_cache(openml_fixture, tmp_path, monkeypatch, no_network):
+    """A fresh copy of the test-built OpenML cache, configured as openml's cache
+    (``openml.config.set_root_cache_directory`` and ``OPENML_CACHE_DIR`` for subprocesses)."""
+    import openml
+
+    root = tmp_path / "openml-cache"
+    _copy_tree(openml_fixture, root)
+    old = openml.config._root_cache_directory
+    openml.config.set_root_cache_directory(root)
+    monkeypatch.setattr(openml.config, "connection_n_retries", 1)
+    monkeypatch.setenv("OPENML_CACHE_DIR", str(root))
+    yield root
+    openml.config.set_root_cache_directory(old)
+
+
+@pytest.fixture
+def problem_cache(tmp_path, monkeypatch):
+    """A fresh, empty processed-problem cache for this test (and no in-process memo)."""
+    from stopwise import data
+
+    d = tmp_path / "problem-cache"
+    monkeypatch.setenv("STOPWISE_CACHE", str(d))
+    data._CACHE.clear()
+    yield d
+    data._CACHE.clear()

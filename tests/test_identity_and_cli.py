@@ -29,7 +29,7 @@ def test_run_id_is_stable_under_key_order_and_number_spelling():
 @pytest.mark.parametrize("change", [
     "seed=1", "solver.step_scale=0.9", "solver.momentum=0.6", "budget.iterations=501", "record.every=2",
     "split.test=0.3", "split.kind=tail", "dataset=wellposed", "dataset.params.loader=diabetes solver=gd",
-    "dataset.standardize=false", "budget.passes=100", "stopping.halt=true",
+    "dataset.standardize=false", "budget.passes=100", "stopping=discrepancy stopping.halt=true",
 ])
 def test_run_id_changes_with_every_identity_field(change):
     base = ["solver=heavy_ball"]
@@ -43,14 +43,14 @@ def test_run_id_changes_with_every_identity_field(change):
 def test_run_id_ignores_names_roots_and_post_hoc_rules():
     a = spec_from_overrides(["solver=gd"])
     assert spec_from_overrides(["solver=gd", "results_root=elsewhere", "campaign_id=abc"]).run_id == a.run_id
-    assert spec_from_overrides(["solver=gd", "+stopping.params.patience=3"]).run_id == a.run_id
+    assert spec_from_overrides(["solver=gd", "stopping=holdout", "stopping.params.patience=3"]).run_id == a.run_id
     # CGLS has no step size: the common key is accepted and ignored
     assert (spec_from_overrides(["solver=cgls", "solver.step_scale=0.5"]).run_id
             == spec_from_overrides(["solver=cgls"]).run_id)
 
 
 @pytest.mark.parametrize("argv,needle", [
-    (["run", "solver=newton"], "unknown solver 'newton'; valid: cgls, gd, heavy_ball, nesterov"),
+    (["run", "solver=newton"], "unknown solver 'newton'; valid: " + ", ".join(sorted(stopwise.SOLVERS))),
     (["run", "dataset=mnist9"], "unknown dataset 'mnist9'; valid:"),
     (["run", "solver.step_scale=0"], "solver.step_scale=0.0 is invalid"),
     (["run", "solver.step_scale=-2"], "must be a number in (0, inf)"),

@@ -180,3 +180,16 @@ def _bad_values():
 def test_out_of_range_params_are_rejected(name, field, value):
     with pytest.raises(ParamError, match=field):
         make_params(SOLVERS[name].params, {field: value}, "solver")
+
+
+def test_cgls_stops_at_the_least_squares_solution_instead_of_amplifying_rounding():
+    """Past the least-squares solution plain CGLS recursions amplify rounding errors (seen on the
+    wellposed generator, seed 1: ||w|| reached 5e22 by iteration 300). LSQR's stopping tests
+    (Paige and Saunders 1982) end the run at numpy.linalg.lstsq's solution instead."""
+    spec = spec_from_overrides(["dataset=wellposed", "seed=1", "solver=cgls", "budget.iterations=300"])
+    tr = execute(spec)
+    p = stopwise.load_problem(["dataset=wellposed", "seed=1"])
+    ref = np.linalg.lstsq(p.X_train, p.y_train, rcond=None)[0]
+    assert tr.status == "completed" and "converged" in tr.message
+    assert tr.columns["iteration"][-1] < 100
+    assert tr.columns["w_norm"][-1] == pytest.approx(np.linalg.norm(ref), rel=1e-10)

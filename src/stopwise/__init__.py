@@ -6,17 +6,48 @@ Public API::
     load_problem(overrides)           the Problem (arrays, truth, noise, L) a run sees
     load_traces(root, campaign=None, **filters)   every recorded iterate as a DataFrame
     load_runs(root, campaign=None)    one row per stored run
+    build_problem(dataset, split, seed) / cached_problem(...)   the data layer (docs/datasets.md)
+    register_source(SourceDef(...))   add a dataset source
+    select(root, campaign, rules=None) every stopping rule on every stored trace (one row per run x rule)
+    ensure_baselines(root, campaign)  explicit-regularization baselines on the campaign's splits
+    load_baselines(root, campaign=None) stored baseline paths (one row per penalty)
+    load_references()                 published reference scores shipped with the package
+    rank(selections, rule, ...)       tune on validation error, aggregate over seeds, rank across datasets
+    rank_campaign(root, campaign, rule)  the same on a stored campaign (reads only the columns it needs)
+    report_campaign(root, campaign)   static HTML report (tables, PNG figures) of a campaign
     verify_root(root, quarantine=False)   check every trace and manifest under a results root
 """
 from __future__ import annotations
 
 __version__ = "0.1.0"
 
+from .data import RawData, SourceDef, build_problem, cached_problem  # noqa: E402
+from .data.sources import register_source  # noqa: E402
 from .problem import Problem, TrainingSet  # noqa: E402
 from .query import load_runs, load_traces  # noqa: E402
 from .runner import RunOutcome, execute, run  # noqa: E402
-from .solvers import SOLVERS, get_solver  # noqa: E402
+from .solvers import PROX_OPERATORS, SOLVERS, ProxDef, get_solver, register_prox  # noqa: E402
+from . import sparsity  # noqa: E402,F401  (registers the nnz / support columns)
 from .spec import RunSpec, SpecError, spec_from_overrides  # noqa: E402
+from .selection import select  # noqa: E402
+from .baselines import BASELINES, ensure_baselines, fit_path, load_baselines  # noqa: E402
+from .references import load_references  # noqa: E402
+from .stopping import RULES, RuleContext, Selection, apply_rule  # noqa: E402
+from .rank import Ranking, RankError, Target, rank, rank_campaign  # noqa: E402
+from .rankstats import (RankTest, critical_difference, data_profile, friedman_from_ranks,  # noqa: E402
+                        friedman_test, nemenyi_q, performance_profile, rank_table, student_interval)
+
+
+def report_campaign(root="results", campaign="", out=None, rule="holdout", **options):
+    """Write the static HTML report of a stored campaign; see :func:`stopwise.report.report_campaign`.
+
+    (Imported on first use: it is the only part of stopwise that needs matplotlib.)
+    """
+    from .report import report_campaign as write
+
+    return write(root, campaign, out, rule=rule, **options)
+
+
 from .verify import verify_root  # noqa: E402
 
 
@@ -33,5 +64,12 @@ def load_problem(overrides: list[str] | None = None) -> Problem:
     return build_problem(spec.dataset, spec.split, spec.seed)
 
 
-__all__ = ["Problem", "TrainingSet", "RunOutcome", "RunSpec", "SpecError", "SOLVERS", "execute",
-           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides", "verify_root"]
+__all__ = ["RawData", "SourceDef", "build_problem", "cached_problem", "register_source",
+           "Problem", "TrainingSet", "RunOutcome", "RunSpec", "SpecError", "SOLVERS", "execute",
+           "get_solver", "load_problem", "load_runs", "load_traces", "run", "spec_from_overrides",
+           "PROX_OPERATORS", "ProxDef", "register_prox",
+           "RULES", "RuleContext", "Selection", "apply_rule", "select",
+           "BASELINES", "ensure_baselines", "fit_path", "load_baselines", "load_references",
+           "RankError", "RankTest", "Ranking", "Target", "critical_difference", "data_profile", "friedman_from_ranks",
+           "friedman_test", "nemenyi_q", "performance_profile", "rank", "rank_campaign", "rank_table",
+           "report_campaign", "student_interval", "verify_root"]

@@ -46,20 +46,15 @@ def _compose(overrides: list[str]):
 
 
 def check_data(specs: list[RunSpec]) -> None:
-    """Build each distinct problem once (kept in the in-process cache for the runs), so data
-    errors (unknown feature, bad row indices) are reported before anything is written."""
-    from .data import cached_problem
+    """Build each distinct problem once, so data errors (unknown feature, bad row indices,
+    a missing file, an OpenML id that is not cached) are reported before anything is
+    written; then store them in the processed-problem cache for the runs (in any process)."""
+    from .data import prepare_problems
 
-    seen = set()
-    for s in specs:
-        key = canonical_json([s.dataset, s.split, s.seed])
-        if key not in seen:
-            seen.add(key)
-            try:
-                cached_problem(s.dataset, s.split, s.seed)
-            except MemoryError as e:  # e.g. dataset.params.n=1e11: bad input, not a crash
-                raise SpecError(f"dataset {s.dataset.get('name')!r} does not fit in memory: "
-                                f"{' '.join(str(e).split())}") from None
+    try:
+        prepare_problems(specs)
+    except MemoryError as e:  # e.g. dataset.params.n=1e15: bad input, not a crash
+        raise SpecError(f"a dataset of this sweep does not fit in memory: {' '.join(str(e).split())}") from None
 
 
 def campaign_digest(name: str, run_ids: list[str], stopping: list) -> str:

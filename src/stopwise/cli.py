@@ -17,6 +17,17 @@ commands:
   run [overrides]                run one configuration
   rerun ID [--root DIR]          recompute a run or a whole campaign and compare with the stored traces
   ls [--campaign C] [--root DIR] list stored runs
+  datasets                       list every dataset a run can use (rows, columns, task, source)
+  datasets fetch [ID|NAME@VERSION ...] [--task ID ...]
+                                 download OpenML datasets / tasks into openml's cache (needs network)
+  select CAMPAIGN [--rule NAME[:k=v,...] ...] [--root DIR]
+                                 evaluate stopping rules on a campaign's stored traces
+  baselines CAMPAIGN [--method NAME ...] [--root DIR] [--path]
+                                 fit (or reuse) explicit-regularization baselines on the campaign's splits
+  rank CAMPAIGN [--rule R] [--target T] [--by B] [--format text|csv|markdown] ...
+                                 tune methods on validation error, rank them across datasets
+  report CAMPAIGN [--rule R] [--out DIR] ...
+                                 write an offline HTML report (tables, PNG figures) of a campaign
   verify [ROOT] [--quarantine]   check every trace and manifest; move bad files to ROOT/quarantine/
 """
 
@@ -189,6 +200,8 @@ def cmd_ls(argv: list[str]) -> int:
     ap = ArgParser(prog="stopwise ls")
     ap.add_argument("--campaign", default=None, help="campaign name or id")
     ap.add_argument("--root", default="results")
+    ap.add_argument("--summary", action="store_true",
+                    help="one row per dataset and solver: the run with the best validation error")
     a = ap.parse_args(argv)
     try:
         df = load_runs(a.root, a.campaign)
@@ -197,7 +210,7 @@ def cmd_ls(argv: list[str]) -> int:
     if df.empty:
         print(f"no runs under {a.root}")
         return 0
-    show = df.drop(columns=["message"])
+    show = summary_table(df) if a.summary else df.drop(columns=["message"])
     with pd.option_context("display.max_rows", 500, "display.width", 200, "display.max_columns", 30,
                            "display.float_format", "{:.4g}".format):
         print(show.to_string(index=False))
@@ -249,7 +262,249 @@ def cmd_verify(argv: list[str]) -> int:
     return 1
 
 
-COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls, "verify": cmd_verify}
+def summary_table(df):
+    """Per dataset and solver: runs, diverged runs, and the run whose best validation error is lowest."""
+    import pandas as pd
+
+    rows = []
+    for (ds, sv), g in df.groupby(["dataset", "solver"], sort=True):
+        ok = g[g["best_val_error"].notna()]
+        row = {"dataset": ds, "solver": sv, "runs": len(g), "diverged": int((g["status"] == "diverged").sum())}
+        if len(ok):
+            b = ok.loc[ok["best_val_error"].idxmin()]
+            params = {k: b[k] for k in ("step_scale", "momentum") if k in b and pd.notna(b[k])}
+            row.update(best_params=" ".join(f"{k}={v:g}" for k, v in params.items()) or "-",
+                       seed=int(b["seed"]), best_val_error=b["best_val_error"], at_iteration=int(b["best_val_iteration"]),
+                       test_error_there=b["test_at_best_val"], final_test_error=b["final_test_error"])
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def cmd_datasets(argv: list[str]) -> int:
+    """``stopwise datasets`` lists the catalog; ``stopwise datasets fetch ...`` warms openml's cache."""
+    if argv and argv[0] == "fetch":
+        return _datasets_fetch(argv[1:])
+    ap = ArgParser(prog="stopwise datasets",
+                                 description="List every dataset a run can use; 'stopwise datasets fetch ID' warms "
+                                             "the OpenML cache.")
+    ap.parse_args(argv)
+    from .data.catalog import entries, format_table
+
+    items = entries()
+    print(format_table(items))
+    print(f"{len(items)} datasets; OpenML cache: {_openml_cache_dir()}")
+    return 0
+
+
+def _openml_cache_dir() -> str:
+    try:
+        from .data.openml_source import cache_root
+
+        return str(cache_root())
+    except Exception as e:  # noqa: BLE001 - informational only
+        return f"unavailable ({type(e).__name__})"
+
+
+def _datasets_fetch(argv: list[str]) -> int:
+    import re
+
+    ap = ArgParser(prog="stopwise datasets fetch",
+                                 description="Download OpenML datasets (ID or NAME@VERSION) and tasks into openml's "
+                                             "cache, so that runs can read them without network.")
+    ap.add_argument("refs", nargs="*", metavar="ID", help="dataset id, or NAME@VERSION")
+    ap.add_argument("--task", type=str, action="append", default=[], metavar="ID", help="task id (repeatable)")
+    a = ap.parse_args(argv)
+    if not a.refs and not a.task:
+        return _fail("datasets fetch needs at least one dataset id (or NAME@VERSION) or --task ID")
+    for r in a.refs:
+        if not (re.fullmatch(r"[1-9][0-9]*", r) or re.fullmatch(r"[^@\s]+@[1-9][0-9]*", r)):
+            return _fail(f"{r!r} is not an OpenML dataset id or NAME@VERSION (for example 61 or iris@1)")
+    for t in a.task:
+        if not re.fullmatch(r"[1-9][0-9]*", t):
+            return _fail(f"--task {t!r} is not an OpenML task id (a positive integer)")
+    from .data.openml_source import fetch_dataset, fetch_task
+
+    failed = 0
+    jobs = [("dataset", r, fetch_dataset) for r in a.refs] + [("task", t, fetch_task) for t in a.task]
+    for kind, ref, fn in jobs:
+        try:
+            print(f"fetched {fn(ref)}", flush=True)
+        except Exception as e:  # noqa: BLE001 - network and server errors: one line each
+            failed += 1
+            msg = str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
+            print(f"stopwise: could not fetch OpenML {kind} {ref}: {type(e).__name__}: {msg}", file=sys.stderr)
+    print(f"OpenML cache: {_openml_cache_dir()}")
+    return 1 if failed else 0
+
+
+def cmd_select(argv: list[str]) -> int:
+    from .selection import format_table, parse_rule_arg, select
+    from .stopping import RuleError
+    from .store import StoreError
+
+    ap = ArgParser(prog="stopwise select",
+                                 description="selected iterate per run and stopping rule (oracle = reference only)")
+    ap.add_argument("campaign", help="campaign name or id")
+    ap.add_argument("--rule", action="append", default=None, metavar="NAME[:k=v,...]",
+                    help="a stopping rule, repeatable (default: the campaign's rules plus oracle)")
+    ap.add_argument("--root", default="results", help="results root (default: results)")
+    try:
+        a = ap.parse_args(argv)
+    except SystemExit as e:
+        return EXIT_BAD_INPUT if e.code else 0
+    try:
+        rules = [parse_rule_arg(r) for r in a.rule] if a.rule else None
+        df = select(a.root, a.campaign, rules)
+    except (RuleError, StoreError) as e:
+        return _fail(str(e))
+    if df.empty:
+        print(f"campaign {a.campaign} has no runs under {a.root}")
+        return 0
+    print(format_table(df))
+    n_runs = df["run_id"].nunique()
+    n_rules = df["rule"].nunique()
+    print(f"{n_runs} runs x {n_rules} rules (oracle rows are a reference, never a method)  (root {a.root})")
+    return 0
+
+
+def cmd_baselines(argv: list[str]) -> int:
+    import pandas as pd
+
+    from .baselines import BaselineError, ensure_baselines
+    from .spec import SpecError
+    from .store import StoreError
+
+    ap = ArgParser(prog="stopwise baselines",
+                                 description="explicit-regularization baselines selected on validation error")
+    ap.add_argument("campaign", help="campaign name or id")
+    ap.add_argument("--method", action="append", default=None, metavar="NAME",
+                    help="baseline method, repeatable (default: every method for the problem's task)")
+    ap.add_argument("--root", default="results", help="results root (default: results)")
+    ap.add_argument("--path", action="store_true", help="print every penalty, not only the selected one")
+    try:
+        a = ap.parse_args(argv)
+    except SystemExit as e:
+        return EXIT_BAD_INPUT if e.code else 0
+    try:
+        df = ensure_baselines(a.root, a.campaign, a.method)
+    except (BaselineError, StoreError, SpecError) as e:
+        return _fail(str(e))
+    if df.empty:
+        print(f"campaign {a.campaign} has no stored runs under {a.root} to fit baselines on")
+        return 0
+    show = df if a.path else df[df["selected"]]
+    with pd.option_context("display.max_rows", 100000, "display.width", 200, "display.max_columns", 30,
+                           "display.float_format", "{:.4g}".format):
+        print(show.drop(columns=["selected"] if not a.path else []).to_string(index=False))
+    n = df["baseline_id"].nunique()
+    print(f"{n} baseline paths, {len(df)} penalties; selected on validation error  "
+          f"(files in {Path(a.root) / 'baselines'})")
+    return 0
+
+
+class _ArgError(Exception):
+    pass
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with one-line errors (printed by the caller as ``stopwise: error: ...``)."""
+
+    def error(self, message: str):  # noqa: D401 - argparse API
+        raise _ArgError(f"{self.prog}: {message}")
+
+
+def _ranking_parser(prog: str, description: str) -> _Parser:
+    from .rank import RANK_BY, TUNINGS, UNITS
+
+    ap = _Parser(prog=prog, description=description)
+    ap.add_argument("campaign", help="campaign name or id")
+    ap.add_argument("--root", default="results", help="results root (default: results)")
+    ap.add_argument("--rule", default="holdout", metavar="NAME[:k=v,...]",
+                    help="stopping rule the methods are ranked under (default: holdout; never oracle)")
+    ap.add_argument("--target", default="baseline", metavar="baseline|reference|none|NUMBER",
+                    help="test error to reach: best explicit baseline (default), published reference, none, or a value")
+    ap.add_argument("--eps", type=float, default=0.05, help="target = (1 + eps) f_L (default 0.05)")
+    ap.add_argument("--tau", type=float, default=None,
+                    help="More-Wild target f_L + tau (f_0 - f_L) instead of (1 + eps) f_L")
+    ap.add_argument("--by", default="test_error", choices=RANK_BY, help="quantity to rank (default test_error)")
+    ap.add_argument("--alpha", type=float, default=0.05, help="significance level of the Nemenyi test (default 0.05)")
+    ap.add_argument("--confidence", type=float, default=0.95, help="Student t interval level over seeds (default 0.95)")
+    ap.add_argument("--tuning", default="per_seed", choices=TUNINGS,
+                    help="choose parameters per seed (default) or by mean validation error over seeds")
+    ap.add_argument("--unit", default="dataset", choices=UNITS, help="profile problems: datasets or (dataset, seed)")
+    ap.add_argument("--method-by", default="solver", metavar="COL[,COL]", help="columns naming a method (default solver)")
+    ap.add_argument("--params", default=None, metavar="COL[,COL]",
+                    help="tuned parameter columns (default: every solver parameter in the campaign)")
+    ap.add_argument("--baselines", default="ensure", choices=("ensure", "stored", "none"),
+                    help="explicit baselines: compute missing ones (default), use stored ones only, or none")
+    return ap
+
+
+def _ranking_options(a) -> dict:
+    return dict(target=a.target, eps=a.eps, tau=a.tau, by=a.by, alpha=a.alpha, confidence=a.confidence,
+                tuning=a.tuning, unit=a.unit, method_by=tuple(c for c in a.method_by.split(",") if c),
+                params=None if a.params is None else [c for c in a.params.split(",") if c])
+
+
+def _parse(ap: _Parser, argv: list[str]):
+    try:
+        return ap.parse_args(argv), None
+    except _ArgError as e:
+        return None, _fail(str(e))
+    except SystemExit as e:  # --help
+        return None, (EXIT_BAD_INPUT if e.code else 0)
+
+
+def cmd_rank(argv: list[str]) -> int:
+    from .errors import SpecError
+    from .rank import rank_campaign
+    from .store import StoreError, atomic_write_bytes
+    from .tables import FORMATS, render
+
+    ap = _ranking_parser("stopwise rank", "tune every method on validation error under one stopping rule and "
+                                          "rank the methods across datasets")
+    ap.add_argument("--format", default="text", choices=FORMATS, help="output format (default text)")
+    ap.add_argument("--out", default=None, metavar="FILE", help="write the output to FILE instead of the terminal")
+    a, code = _parse(ap, argv)
+    if a is None:
+        return code
+    try:
+        r = rank_campaign(a.root, a.campaign, a.rule, baselines=a.baselines, **_ranking_options(a))
+    except (SpecError, StoreError) as e:
+        return _fail(str(e))
+    text = render(r, a.format)
+    if a.out:
+        atomic_write_bytes(Path(a.out), text.encode())
+        print(f"wrote {a.out}")
+    else:
+        print(text, end="")
+    return 0
+
+
+def cmd_report(argv: list[str]) -> int:
+    from .errors import SpecError
+    from .report import MARKED_RULES, report_campaign
+    from .store import StoreError
+
+    ap = _ranking_parser("stopwise report", "write a static HTML report of a campaign: tables and PNG figures")
+    ap.add_argument("--out", default=None, metavar="DIR", help="output folder (default: ROOT/reports/CAMPAIGN)")
+    ap.add_argument("--mark", action="append", default=None, metavar="NAME[:k=v,...]",
+                    help=f"rule whose stopping points the curves mark, repeatable (default: {', '.join(MARKED_RULES)})")
+    a, code = _parse(ap, argv)
+    if a is None:
+        return code
+    try:
+        index = report_campaign(a.root, a.campaign, a.out, rule=a.rule, marked_rules=a.mark,
+                                baselines=a.baselines, **_ranking_options(a))
+    except (SpecError, StoreError) as e:
+        return _fail(str(e))
+    print(f"report: {index}")
+    return 0
+
+
+COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls, "select": cmd_select,
+            "baselines": cmd_baselines, "datasets": cmd_datasets, "rank": cmd_rank, "report": cmd_report,
+            "verify": cmd_verify}
 
 
 def main(argv: list[str] | None = None) -> int:

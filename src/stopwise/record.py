@@ -2,11 +2,26 @@
 
 The recorder owns preallocated columns and scratch buffers; recording an iterate writes
 one row in place. It never knows which solver produced the iterate.
+
+Two extension points add columns after the base ones:
+
+``METRIC_SETS``
+    functions ``problem -> {column: f(w) -> float}``: extras that depend on the problem
+    and the iterate only (sparsity and support against the truth, margins). Every run of
+    a problem gets them; a function may return ``{}`` for problems it does not apply to.
+``state_metrics`` (argument of :class:`Recorder`)
+    ``{column: f(state) -> float}`` supplied by the runner from the solver's own
+    ``SolverDef.metrics(train, params)``: extras that depend on the solver's params or on
+    more of its state than ``w`` (bias value, primal-dual gap). Only runs of that solver
+    have these columns; traces of different solvers concatenate with nulls
+    (:func:`stopwise.load_traces`).
+
+Both are computed here, on recorded iterates only, outside the solver's timed work.
 """
 from __future__ import annotations
 
 import math
-from typing import Callable
+from typing import Any, Callable, Mapping
 
 import numpy as np
 
@@ -21,12 +36,17 @@ METRIC_SETS: list[Callable[[Problem], dict[str, Callable[[np.ndarray], float]]]]
 
 
 class Recorder:
-    def __init__(self, problem: Problem, capacity: int = 256):
+    def __init__(self, problem: Problem, capacity: int = 256,
+                 state_metrics: Mapping[str, Callable[[Any], float]] | None = None):
         self.problem = problem
         self._extras: dict[str, Callable[[np.ndarray], float]] = {}
         for make in METRIC_SETS:
             self._extras.update(make(problem) or {})
-        self.columns = BASE_COLUMNS + tuple(self._extras)
+        self._state_extras = dict(state_metrics or {})
+        clash = sorted(set(self._state_extras) & (set(BASE_COLUMNS) | set(self._extras)))
+        if clash:
+            raise ValueError(f"solver metric column {clash[0]!r} clashes with a recorder column")
+        self.columns = BASE_COLUMNS + tuple(self._extras) + tuple(self._state_extras)
         self._cap = max(int(capacity), 1)
         self._data = {c: np.empty(self._cap, dtype=np.int64 if c == "iteration" else np.float64)
                       for c in self.columns}
@@ -44,8 +64,9 @@ class Recorder:
         buf -= getattr(self.problem, "y_" + split)
         return float(buf @ buf)
 
-    def record(self, iteration: int, passes: float, seconds: float, w: np.ndarray) -> float:
-        """Write one row for iterate ``w``; returns the training objective."""
+    def record(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
+               state: Any = None) -> float:
+        """Write one row for iterate ``w`` (of solver ``state``); returns the training objective."""
         if self.size == self._cap:
             self._grow()
         p, i, col = self.problem, self.size, self._data
@@ -67,6 +88,8 @@ class Recorder:
             col["dist_truth"][i] = math.nan
         for name, fn in self._extras.items():
             col[name][i] = fn(w)
+        for name, fn in self._state_extras.items():
+            col[name][i] = fn(state) if state is not None else math.nan
         self.size += 1
         return sq / (2 * n)
 
@@ -76,6 +99,15 @@ class Recorder:
             b = np.empty(self._cap, dtype=a.dtype)
             b[: self.size] = a[: self.size]
             self._data[c] = b
+
+    def view(self) -> dict[str, np.ndarray]:
+        """The rows recorded so far as read-only views (no copy; valid until the next record)."""
+        out = {}
+        for c, a in self._data.items():
+            v = a[: self.size]
+            v.flags.writeable = False
+            out[c] = v
+        return out
 
     def result(self) -> dict[str, np.ndarray]:
         return {c: a[: self.size].copy() for c, a in self._data.items()}

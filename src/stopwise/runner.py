@@ -65,20 +65,25 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
     params = make_params(sdef.params, spec.params, "solver")
     train = problem.training
     rng = np.random.default_rng([spec.seed, 0x50_17E5])
-    rec = Recorder(problem, capacity=_record_rows(spec))
+    rec = Recorder(problem, capacity=_record_rows(spec),
+                   state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None)
     max_it = spec.budget["iterations"]
     max_passes = spec.budget["passes"]
     every = spec.record["every"]
     factor = spec.budget["diverge_factor"]
     status, message = "completed", ""
+    bad_row = False  # the last recorded row is the one that diverged
+
+    decided = _halting(spec, problem)
 
     clock = time.perf_counter
     t0 = clock()
     state = sdef.init(train, params, rng)
     elapsed = clock() - t0
-    loss0 = rec.record(state.iteration, state.passes, elapsed, state.w)
+    loss0 = rec.record(state.iteration, state.passes, elapsed, state.w, state)
     limit = factor * max(loss0, np.finfo(float).tiny)
-    while state.iteration < max_it and (max_passes is None or state.passes < max_passes - 1e-12):
+    halted = decided(rec) if decided else None
+    while not halted and state.iteration < max_it and (max_passes is None or state.passes < max_passes - 1e-12):
         t0 = clock()
         state = sdef.step(train, params, state)
         elapsed += clock() - t0
@@ -86,15 +91,76 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
         if not math.isfinite(sq):
             status, message = "diverged", f"non-finite iterate at iteration {state.iteration}"
             break
-        done = state.iteration >= max_it or (max_passes is not None and state.passes >= max_passes - 1e-12)
+        done = (state.converged or state.iteration >= max_it
+                or (max_passes is not None and state.passes >= max_passes - 1e-12))
         if state.iteration % every == 0 or done:
-            loss = rec.record(state.iteration, state.passes, elapsed, state.w)
+            loss = rec.record(state.iteration, state.passes, elapsed, state.w, state)
             if not math.isfinite(loss) or loss > limit:
                 status = "diverged"
                 message = (f"training objective grew from {loss0:.3g} to {loss:.3g} (over {factor:g} times) "
                            f"by iteration {state.iteration}")
+                bad_row = True
                 break
+            if decided:
+                halted = decided(rec)
+        if state.converged:
+            message = f"converged at iteration {state.iteration}: further steps cannot change the iterate"
+            break
+    if decided and not halted:
+        # the last rows may not have been checked yet; a decision before a divergence wins
+        halted = decided(rec, force=True, exclude_last=bad_row)
+        if halted:
+            status = "completed"
+    if halted:
+        message = halted
     return Trace(columns=rec.result(), status=status, message=message, problem_info=_problem_info(problem))
+
+
+def _halting(spec: RunSpec, problem: Problem):
+    """For ``stopping.halt: true``: a check ``(recorder, force) -> message or None``.
+
+    The rule's selection on a prefix of the trace is *final* from some row on and stays
+    so (the rules guarantee it). Checking the whole prefix after every row would cost
+    O(T^2), so the check runs when the trace has grown by 1/16 since the last check (and
+    when forced at the end); once final, a bisection over the unchecked rows finds the
+    first row where the choice became final and the recorder is cut back to it. The
+    stored trace therefore ends exactly where per-row checking would have stopped it; the
+    loop may have computed up to 1/16 more iterates, which are dropped.
+    """
+    if not spec.stopping.get("halt"):
+        return None
+    from .stopping import RuleContext, get_rule, make_rule_params
+
+    rdef = get_rule(spec.stopping["rule"])
+    rparams = make_rule_params(rdef.name, spec.stopping.get("params"))
+    ctx = RuleContext.from_problem(problem)
+    state = {"checked": 0, "next": 1}
+
+    def final_at(view: dict, m: int):
+        sel = rdef.select({c: a[:m] for c, a in view.items()}, ctx, rparams)
+        return sel if sel.final and sel.iteration is not None else None
+
+    def decided(rec: Recorder, force: bool = False, exclude_last: bool = False) -> str | None:
+        n = rec.size - (1 if exclude_last else 0)
+        if n == 0 or (not force and n < state["next"]):
+            return None
+        view = rec.view()
+        sel = final_at(view, n)
+        if sel is None:
+            state["checked"], state["next"] = n, n + max(1, n // 16)
+            return None
+        lo, hi = state["checked"], n  # prefix of length lo is not final, of length hi is
+        while hi - lo > 1:
+            mid = (lo + hi) // 2
+            got = final_at(view, mid)
+            if got is None:
+                lo = mid
+            else:
+                hi, sel = mid, got
+        rec.size = hi  # drop the rows computed after the decision (see the docstring)
+        return f"halted by {rdef.name} at iteration {int(view['iteration'][hi - 1])}: {sel.reason}"
+
+    return decided
 
 
 def environment() -> dict[str, Any]:

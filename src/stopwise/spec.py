@@ -20,6 +20,7 @@ from .data import DataError, normalize_dataset, split_rows  # noqa: F401
 from .data.split import SPLIT_KINDS
 from .solvers import SOLVERS, get_solver
 from .solvers.base import Choice, Interval, ParamError, UnknownSolver, make_params
+from .stopping import RuleError, normalize_stopping
 
 TRACE_FORMAT = 1
 
@@ -35,6 +36,16 @@ from .errors import SpecError  # noqa: E402,F401  (re-exported)
 # ---------------------------------------------------------------- schemas (Hydra ConfigStore)
 
 @dataclass
+class RandomFeaturesConfig:
+    """Optional random-features map (off while ``kind`` is null); see docs/datasets.md."""
+
+    kind: Optional[str] = None
+    n_components: int = 256
+    gamma: Optional[float] = None
+    seed: int = 0
+
+
+@dataclass
 class DatasetConfig:
     name: str = "diabetes"
     source: str = "sklearn"
@@ -42,6 +53,12 @@ class DatasetConfig:
     features: Optional[List[str]] = None
     standardize: bool = True
     center_target: bool = True
+    drop_features: Optional[List[str]] = None
+    categorical: Optional[List[str]] = None
+    missing: str = "impute"
+    drop_constant: bool = True
+    random_features: RandomFeaturesConfig = field(default_factory=RandomFeaturesConfig)
+    center_features: bool = False  # without standardize: subtract training means only
 
 
 @dataclass
@@ -52,6 +69,8 @@ class SplitConfig:
     train_rows: Optional[List[int]] = None
     val_rows: Optional[List[int]] = None
     test_rows: Optional[List[int]] = None
+    fold: int = 0
+    repeat: int = 0
 
 
 @dataclass
@@ -96,6 +115,8 @@ FIELD_CONSTRAINTS: dict[str, Interval | Choice] = {
     "record.every": Interval(1, None, integer=True),
     "split.test": Interval(0.0, None),
     "split.val": Interval(0.0, None),
+    "split.fold": Interval(0, None, integer=True),
+    "split.repeat": Interval(0, None, integer=True),
     "seed": Interval(0, 2**32 - 1, integer=True),
     "threads": Interval(1, None, integer=True),
 }
@@ -267,6 +288,16 @@ def spec_from_config(cfg: Any) -> RunSpec:
                         "fractions must sum to < 1")
     if split["kind"] != "indices":
         split["train_rows"] = split["val_rows"] = split["test_rows"] = None
+    # a bad value is refused even where the key is unused (one line, exit 2), never ignored
+    fold = int(_check("split.fold", split.get("fold", 0)))
+    repeat = int(_check("split.repeat", split.get("repeat", 0)))
+    if split["kind"] != "indices" or split["train_rows"] is not None or split["test_rows"] is not None:
+        # fold and repeat pick a predefined fold (an OpenML task's); elsewhere they change
+        # nothing, so they stay out of the run identity
+        split.pop("fold", None)
+        split.pop("repeat", None)
+    else:
+        split["fold"], split["repeat"] = fold, repeat
 
     solver_cfg = dict(c["solver"])
     name = solver_cfg.pop("name", None)
@@ -298,7 +329,10 @@ def spec_from_config(cfg: Any) -> RunSpec:
     if "results_root" in c:
         check_results_root(c["results_root"])
     check_campaign_id(c.get("campaign_id"))
-    stopping = dict(StoppingConfig().__dict__, **(c.get("stopping") or {}))
+    try:
+        stopping = normalize_stopping(dict(StoppingConfig().__dict__, **(c.get("stopping") or {})))
+    except RuleError as e:
+        raise SpecError(str(e)) from None
     return RunSpec(dataset=dataset, split=split, solver=name, params=params, budget=budget,
                    record=record, seed=seed, stopping=stopping)
 

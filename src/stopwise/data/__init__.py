@@ -1,24 +1,33 @@
-"""Data: sources -> split -> noise -> preprocessing (fitted on training rows) -> Problem."""
+"""Data: sources -> split -> noise -> row filter -> preprocessing (fitted on training rows) -> Problem.
+
+:func:`build_problem` makes the Problem a run sees; :func:`cached_problem` returns the same
+Problem from an in-process memo or from the processed-problem cache on disk
+(:mod:`stopwise.data.cache`), building and storing it on a miss; :func:`prepare_problems`
+builds every distinct data spec of a sweep up front, so bad data input is reported as one
+line before any file is written, and later jobs (in any process) read the cached copy.
+"""
 from __future__ import annotations
 
-import json
 from collections import OrderedDict
 from dataclasses import asdict
-from typing import Any
+from typing import Any, Iterable
 
 import numpy as np
 
 from ..problem import Problem
 from ..solvers.base import ParamError, make_params
+from . import cache as _cache
+from .errors import DataError
+from .preprocess import (MISSING, RandomFeaturesParams, drop_constant, encode_labels, random_features,
+                         standardize, table_to_numeric)
 from .sources import SOURCES, RawData, SourceDef  # noqa: F401
-from .split import SPLIT_KINDS, SplitError, split_rows  # noqa: F401
+from .split import SPLIT_KINDS, SplitError, carve_validation, split_rows  # noqa: F401
+from . import generators, openml_source, tabular  # noqa: E402,F401  (register their sources)
 
-
-from ..errors import SpecError  # noqa: E402
-
-
-class DataError(SpecError):
-    """Bad dataset or split configuration; the message is one line."""
+# Preprocessing options added after the first release. A key at its default is left out
+# of the normalized config, so configs that do not use them keep their run ids.
+PREP_DEFAULTS: dict[str, Any] = {"drop_features": None, "categorical": None, "missing": "impute",
+                                 "drop_constant": True, "random_features": None, "center_features": False}
 
 
 def get_source(name: str) -> SourceDef:
@@ -28,6 +37,37 @@ def get_source(name: str) -> SourceDef:
         raise DataError(f"unknown dataset source {name!r}; valid: {', '.join(sorted(SOURCES))}") from None
 
 
+def _names_option(key: str, v: Any) -> list[str] | None:
+    if v is None:
+        return None
+    if isinstance(v, str) or not isinstance(v, (list, tuple)) or not all(isinstance(x, str) for x in v):
+        raise DataError(f"dataset.{key}={v!r} is invalid: must be a list of column names")
+    return list(v)
+
+
+def _prep_option(key: str, v: Any) -> Any:
+    if key in ("drop_features", "categorical"):
+        return _names_option(key, v)
+    if key == "missing":
+        if v not in MISSING:
+            raise DataError(f"dataset.missing={v!r} is invalid: must be one of {', '.join(MISSING)}")
+        return v
+    if key in ("drop_constant", "center_features"):
+        if not isinstance(v, bool):
+            raise DataError(f"dataset.{key}={v!r} is invalid: must be true or false")
+        return v
+    if key == "random_features":
+        if v is None or (isinstance(v, dict) and v.get("kind") is None):
+            return None  # off (the schema's default has kind: null)
+        if not isinstance(v, dict):
+            raise DataError(f"dataset.random_features={v!r} is invalid: must be a mapping (kind, n_components, gamma, seed)")
+        try:
+            return asdict(make_params(RandomFeaturesParams, dict(v), "dataset.random_features"))
+        except ParamError as e:
+            raise DataError(str(e)) from None
+    raise DataError(f"unknown dataset option {key!r}")  # pragma: no cover
+
+
 def normalize_dataset(cfg: dict[str, Any]) -> dict[str, Any]:
     """Validate a dataset config and return it with typed, defaulted source params."""
     src = get_source(cfg.get("source"))
@@ -35,9 +75,18 @@ def normalize_dataset(cfg: dict[str, Any]) -> dict[str, Any]:
         params = make_params(src.params, dict(cfg.get("params") or {}), f"dataset.params ({src.name})")
     except ParamError as e:
         raise DataError(str(e)) from None
+    if src.check is not None:
+        src.check(params)
     out = dict(cfg)
     out["params"] = asdict(params)
-    out["features"] = list(cfg["features"]) if cfg.get("features") is not None else None
+    out["features"] = _names_option("features", cfg.get("features"))
+    for key, default in PREP_DEFAULTS.items():
+        v = _prep_option(key, out.pop(key, default))
+        if v != default:
+            out[key] = v
+    for key in ("standardize", "center_target"):
+        if key in out and not isinstance(out[key], bool):
+            raise DataError(f"dataset.{key}={out[key]!r} is invalid: must be true or false")
     return out
 
 
@@ -47,7 +96,7 @@ def _noise(raw: RawData, parts: list[np.ndarray]) -> list[np.ndarray]:
     if raw.noise == "none" or raw.noise_level == 0.0:
         return [np.zeros(p.size) for p in parts]
     rng = np.random.default_rng(list(raw.noise_seed))
-    e = rng.standard_normal(raw.X.shape[0])
+    e = rng.standard_normal(raw.n_rows)
     out = [e[p] for p in parts]
     if raw.noise == "gaussian":
         return [raw.noise_level * x for x in out]
@@ -60,68 +109,212 @@ def _noise(raw: RawData, parts: list[np.ndarray]) -> list[np.ndarray]:
     return scaled
 
 
+def _select(raw: RawData, dataset: dict[str, Any], where: str):
+    """Apply ``features`` (keep, in that order) and ``drop_features``."""
+    names = list(raw.feature_names)
+    keep = list(range(len(names)))
+    feats, drops = dataset.get("features"), dataset.get("drop_features")
+    shown = ", ".join(names[:12]) + (f", ... ({len(names)} in all)" if len(names) > 12 else "")
+    if feats:
+        keep = []
+        for f in feats:
+            if f not in names:
+                raise DataError(f"{where} has no feature {f!r}; valid: {shown}")
+            keep.append(names.index(f))
+    if drops:
+        for f in drops:
+            if f not in names:
+                raise DataError(f"{where} has no feature {f!r} to drop; valid: {shown}")
+        keep = [j for j in keep if names[j] not in drops]
+    if keep == list(range(len(names))):
+        return raw.X, raw.frame, tuple(names), raw.w_true
+    if not keep:
+        raise DataError(f"{where}: no feature columns left after dataset.features / dataset.drop_features")
+    sel = tuple(names[j] for j in keep)
+    if raw.frame is not None:
+        return None, raw.frame[list(sel)], sel, None
+    w = raw.w_true[keep] if raw.w_true is not None else None
+    return raw.X[:, keep], None, sel, w
+
+
+def _split(raw: RawData, split: dict[str, Any], seed: int):
+    kind = split.get("kind", "random")
+    rows = (split.get("train_rows"), split.get("val_rows"), split.get("test_rows"))
+    val = float(split.get("val", 0.2))
+    if kind == "indices" and rows[0] is None and rows[2] is None:
+        if raw.folds is None:
+            raise SplitError("split.kind=indices needs split.train_rows and split.test_rows, or an OpenML task "
+                             "(dataset.params.task_id) whose predefined folds it uses")
+        key = (int(split.get("repeat", 0)), int(split.get("fold", 0)))
+        if key not in raw.folds:
+            reps = sorted({r for r, _ in raw.folds})
+            folds = sorted({f for _, f in raw.folds})
+            raise SplitError(f"split.repeat={key[0]}, split.fold={key[1]} is not a fold of this task; valid: repeat in "
+                             f"{reps[0]}..{reps[-1]}, fold in {folds[0]}..{folds[-1]}")
+        train, test = raw.folds[key]
+        return carve_validation(np.asarray(train), np.asarray(test), val, int(seed), raw.n_rows)
+    return split_rows(raw.n_rows, kind, float(split.get("test", 0.2)), val, int(seed), rows)
+
+
+def _missing_target(y: np.ndarray) -> np.ndarray:
+    if y.dtype == object:
+        return np.array([v is None or (isinstance(v, float) and v != v) for v in y.tolist()], dtype=bool)
+    return np.isnan(y)
+
+
 def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> Problem:
     """Build the Problem a run sees. Identical inputs give identical arrays."""
     dataset = normalize_dataset(dataset)
     src = get_source(dataset["source"])
+    name = str(dataset.get("name") or dataset["source"])
+    where = f"dataset {name!r}"
     raw = src.load(make_params(src.params, dataset["params"], "dataset.params"))
-    X, names, w_true = raw.X, raw.feature_names, raw.w_true
-    feats = dataset.get("features")
-    if feats:
-        cols = []
-        for f in feats:
-            if f not in names:
-                raise DataError(f"dataset {dataset.get('name')!r} has no feature {f!r}; valid: {', '.join(names)}")
-            cols.append(names.index(f))
-        X, names = X[:, cols], tuple(names[c] for c in cols)
-        w_true = w_true[cols] if w_true is not None else None
+    X, frame, names, w_true = _select(raw, dataset, where)
     try:
-        tr, va, te = split_rows(X.shape[0], split.get("kind", "random"), float(split.get("test", 0.2)),
-                                float(split.get("val", 0.2)), int(seed),
-                                (split.get("train_rows"), split.get("val_rows"), split.get("test_rows")))
+        parts = list(_split(raw, split, seed))
     except SplitError as e:
         raise DataError(str(e)) from None
-    noise = _noise(raw, [tr, va, te])
-    ys = [raw.y[idx] + e for idx, e in zip((tr, va, te), noise)]
-    Xs = [np.array(X[idx], dtype=np.float64) for idx in (tr, va, te)]
+    classify = raw.task in ("binary", "multiclass")
+    if classify:
+        ys = [np.asarray(raw.y, dtype=object)[idx] for idx in parts]
+    else:
+        noise = _noise(raw, parts)
+        ys = [np.asarray(raw.y, dtype=np.float64)[idx] + e for idx, e in zip(parts, noise)]
+
+    # row filter: rows without a target; rows with a missing feature when missing=drop
+    missing = dataset.get("missing", "impute")
+    dropped: dict[str, dict[str, int]] = {}
+    labels = ("train", "val", "test")
+    for i, idx in enumerate(parts):
+        bad = _missing_target(ys[i])
+        n_target = int(bad.sum())
+        n_feat = 0
+        if missing == "drop":
+            fbad = frame.iloc[idx].isna().any(axis=1).to_numpy() if frame is not None else np.isnan(X[idx]).any(axis=1)
+            n_feat = int((fbad & ~bad).sum())
+            bad = bad | fbad
+        if bad.any():
+            parts[i], ys[i] = idx[~bad], ys[i][~bad]  # a dropped row takes its noise with it
+            dropped[labels[i]] = {"missing_target": n_target, "missing_features": n_feat}
+    if parts[0].size == 0:
+        raise DataError(f"{where}: no training rows left after dropping rows with missing values")
+    if parts[2].size == 0:
+        raise DataError(f"{where}: no test rows left after dropping rows with missing values")
+    if parts[1].size == 0 and "val" in dropped:
+        raise DataError(f"{where}: no validation rows left after dropping rows with missing values")
+    tr, va, te = parts
+
     prep: dict[str, Any] = {"fitted_on": "training rows", "n_train": int(tr.size),
                             "n_val": int(va.size), "n_test": int(te.size)}
+    if dropped:
+        prep["dropped_rows"] = dropped
+    if frame is not None:
+        cats = set(raw.categorical) | set(dataset.get("categorical") or [])
+        unknown = sorted(c for c in cats if c not in frame.columns and c in (dataset.get("categorical") or []))
+        if unknown:
+            raise DataError(f"{where} has no column {unknown[0]!r} to treat as categorical; valid: "
+                            + ", ".join(list(frame.columns)[:12]))
+        Xs, names, rec = table_to_numeric([frame.iloc[idx] for idx in (tr, va, te)],
+                                          tuple(c for c in frame.columns if c in cats), missing, where)
+        prep.update(rec)
+    else:
+        Xs = [np.array(X[idx], dtype=np.float64) for idx in (tr, va, te)]
+    if dataset.get("drop_constant", True):
+        Xs, names, w_true, gone = drop_constant(Xs, names, w_true)
+        if gone:
+            prep["constant_removed"] = gone
+        if Xs[0].shape[1] == 0:
+            raise DataError(f"{where}: every feature column is constant on the training rows")
     if dataset.get("standardize", True):
+        Xs, w_true, rec = standardize(Xs, w_true)
+        prep["standardize"] = rec
+    elif dataset.get("center_features", False):
+        # centering alone (features keep their scale): a model without intercept on the
+        # centered data equals the model with an unpenalized intercept on the raw data
         mu = Xs[0].mean(axis=0)
-        sd = Xs[0].std(axis=0)
-        sd_safe = np.where(sd > 0, sd, 1.0)
-        Xs = [(x - mu) / sd_safe for x in Xs]
-        if w_true is not None:
-            w_true = w_true * sd_safe
-        prep["standardize"] = {"mean": mu.tolist(), "scale": sd_safe.tolist()}
-    if raw.task == "regression" and dataset.get("center_target", True):
+        Xs = [x - mu for x in Xs]
+        prep["center_features"] = {"mean": mu.tolist()}
+    rf = dataset.get("random_features")
+    if rf:
+        Xs, names, rec = random_features(Xs, RandomFeaturesParams(**rf))
+        prep["random_features"] = rec
+        w_true = None
+    info = dict(raw.info, rows={"train": tr.tolist(), "val": va.tolist(), "test": te.tolist()})
+    if classify:
+        ys, classes = encode_labels(ys, raw.task, raw.info.get("classes"), where)
+        info["classes"] = classes
+        prep["labels"] = {"classes": classes,
+                          "encoding": "-1/+1 (second class +1)" if raw.task == "binary" else "0..K-1 (sorted)"}
+    elif dataset.get("center_target", True):
         ybar = float(ys[0].mean())
         ys = [y - ybar for y in ys]
         prep["center_target"] = {"mean": ybar}
     noise_kind = None if raw.noise == "none" else raw.noise
     return Problem(
-        name=str(dataset.get("name") or dataset["source"]), task=raw.task,
+        name=name, task=raw.task,
         X_train=Xs[0], y_train=ys[0], X_val=Xs[1], y_val=ys[1], X_test=Xs[2], y_test=ys[2],
         w_true=None if w_true is None else np.array(w_true, dtype=np.float64),
         noise_level=None if noise_kind is None else raw.noise_level, noise_kind=noise_kind,
-        feature_names=tuple(names), preprocessing=prep,
-        info=dict(raw.info, rows={"train": tr.tolist(), "val": va.tolist(), "test": te.tolist()}),
+        feature_names=tuple(names), preprocessing=_cache.jsonable(prep), info=_cache.jsonable(info),
     )
+
+
+def problem_key(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> str:
+    """Content address of the Problem a data spec produces (see :mod:`stopwise.data.cache`)."""
+    dataset = normalize_dataset(dataset)
+    src = get_source(dataset["source"])
+    fp = None
+    if src.fingerprint is not None:
+        fp = src.fingerprint(make_params(src.params, dataset["params"], "dataset.params"))
+    return _cache.spec_key(dataset, dict(split), int(seed), fp)
 
 
 _CACHE: "OrderedDict[str, Problem]" = OrderedDict()
 _CACHE_SIZE = 8
 
 
+def _remember(key: str, prob: Problem) -> Problem:
+    _CACHE[key] = prob
+    _CACHE.move_to_end(key)
+    if len(_CACHE) > _CACHE_SIZE:
+        _CACHE.popitem(last=False)
+    return prob
+
+
 def cached_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> Problem:
-    """:func:`build_problem` memoized in this process on the canonical data spec."""
-    key = json.dumps([dataset, split, int(seed)], sort_keys=True, default=str)
+    """:func:`build_problem` through the in-process memo and the on-disk problem cache."""
+    key = problem_key(dataset, split, seed)
     hit = _CACHE.get(key)
     if hit is not None:
         _CACHE.move_to_end(key)
         return hit
-    prob = build_problem(dataset, split, seed)
-    _CACHE[key] = prob
-    if len(_CACHE) > _CACHE_SIZE:
-        _CACHE.popitem(last=False)
-    return prob
+    prob = _cache.read(key)
+    if prob is None:
+        prob = build_problem(dataset, split, seed)
+        _cache.write(key, prob)
+    return _remember(key, prob)
+
+
+def prepare_problems(specs: Iterable[Any]) -> int:
+    """Build every distinct data spec of ``specs`` (RunSpecs) that is not cached yet, then
+    store them all. Raises :class:`DataError` on the first bad one, before anything is
+    written. Returns the number of distinct data specs."""
+    todo: list[tuple[str, Problem]] = []
+    seen: set[str] = set()
+    for s in specs:
+        key = problem_key(s.dataset, s.split, s.seed)
+        if key in seen:
+            continue
+        seen.add(key)
+        if key in _CACHE or _cache.read(key) is not None:
+            continue
+        todo.append((key, build_problem(s.dataset, s.split, s.seed)))
+    for key, prob in todo:
+        _cache.write(key, prob)
+        _remember(key, prob)
+    return len(seen)
+
+
+__all__ = ["DataError", "RawData", "SourceDef", "SOURCES", "build_problem", "cached_problem", "get_source",
+           "normalize_dataset", "prepare_problems", "problem_key", "split_rows"]
+

@@ -11,14 +11,24 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..solvers.base import Choice, Interval, param
+from ..solvers.base import Choice, Flag, Interval, param
 
 NOISE_MODELS = ("none", "gaussian", "norm")
 
 
 @dataclass(frozen=True)
 class RawData:
-    X: np.ndarray
+    """What a source returns, before splitting.
+
+    Numeric sources fill ``X`` (float64). Tabular sources (user files, OpenML) fill
+    ``frame`` instead: a pandas DataFrame of the raw feature columns, which may hold
+    categorical columns and missing values; ``categorical`` names the columns to one-hot
+    encode. ``y`` holds float targets for regression and the original class labels for
+    classification (any dtype; missing targets as NaN / None). ``folds`` maps
+    ``(repeat, fold)`` to predefined ``(train_rows, test_rows)`` (an OpenML task's folds).
+    """
+
+    X: np.ndarray | None
     y: np.ndarray
     task: str = "regression"
     feature_names: tuple[str, ...] = ()
@@ -27,14 +37,28 @@ class RawData:
     noise_level: float = 0.0
     noise_seed: tuple[int, ...] = (0,)  # seed sequence of the noise stream
     info: dict[str, Any] = field(default_factory=dict)
+    frame: Any = None             # pandas.DataFrame of raw feature columns (tabular sources)
+    categorical: tuple[str, ...] = ()
+    folds: dict[tuple[int, int], tuple[np.ndarray, np.ndarray]] | None = None
+
+    @property
+    def n_rows(self) -> int:
+        return int(self.frame.shape[0] if self.frame is not None else self.X.shape[0])
 
 
 @dataclass(frozen=True)
 class SourceDef:
+    """A dataset source. ``fingerprint(params)`` (optional) returns a digest of the
+    underlying data (a file's bytes), so the processed-problem cache is rebuilt when
+    the data changes under an unchanged config; ``check(params)`` (optional) is a cheap
+    validation run when a config is validated (a missing file, a missing option)."""
+
     name: str
     params: type
     load: Callable[[Any], RawData]
     summary: str
+    fingerprint: Callable[[Any], str] | None = None
+    check: Callable[[Any], None] | None = None
 
 
 SOURCES: dict[str, SourceDef] = {}
@@ -53,16 +77,17 @@ SKLEARN_LOADERS = ("diabetes",)
 @dataclass(frozen=True)
 class SklearnParams:
     loader: str = param("diabetes", Choice(SKLEARN_LOADERS), "which scikit-learn bundled dataset")
+    scaled: bool = param(False, Flag(), "diabetes: the loader's own scaling (columns centered, unit norm over all rows)")
 
 
 def load_sklearn(p: SklearnParams) -> RawData:
     from sklearn import datasets
 
     if p.loader == "diabetes":
-        bunch = datasets.load_diabetes(scaled=False)
+        bunch = datasets.load_diabetes(scaled=p.scaled)
         return RawData(X=np.asarray(bunch.data, dtype=np.float64), y=np.asarray(bunch.target, dtype=np.float64),
                        feature_names=tuple(bunch.feature_names),
-                       info={"origin": "sklearn.datasets.load_diabetes(scaled=False)"})
+                       info={"origin": f"sklearn.datasets.load_diabetes(scaled={p.scaled})"})
     raise ValueError(f"unknown scikit-learn loader {p.loader!r}")  # unreachable after validation
 
 

@@ -46,6 +46,9 @@ def split_rows(n: int, kind: str, test: float, val: float, seed: int,
             raise SplitError(f"split.test + split.val = {test + val:g} leaves no training rows: the fractions must sum to < 1")
         k_te = part_size(n, test, "test")
         k_va = part_size(n, val, "val")
+        if val > 0 and k_va == 0:
+            raise SplitError(f"split.val={val:g} gives no validation rows of {n} rows: the dataset is too small "
+                             "for a validation part (use a row count, split.val >= 1, or split.val=0)")
         if k_te + k_va >= n:
             raise SplitError(f"split leaves no training rows: {k_te} test + {k_va} validation of {n} rows")
         if kind == "random":
@@ -62,3 +65,29 @@ def split_rows(n: int, kind: str, test: float, val: float, seed: int,
     if te.size == 0:
         raise SplitError(f"split has no test rows: use split.test >= 1 row (of {n})")
     return tr, va, te
+
+
+def carve_validation(train: np.ndarray, test: np.ndarray, val: float, seed: int,
+                     n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Predefined (train, test) rows (an OpenML task's fold): the test rows are kept as
+    they are and a validation part of size ``val`` (a fraction of the training fold, or a
+    row count) is drawn from the training fold by a seeded permutation."""
+    train = np.sort(np.asarray(train, dtype=np.int64))
+    test = np.sort(np.asarray(test, dtype=np.int64))
+    both = np.concatenate([train, test])
+    if both.size and (both.min() < 0 or both.max() >= n):
+        raise SplitError(f"the predefined fold has row indices outside [0, {n - 1}]")
+    if np.intersect1d(train, test).size:
+        raise SplitError("the predefined fold puts a row in both its training and test parts")
+    if test.size == 0:
+        raise SplitError("the predefined fold has no test rows")
+    k_va = part_size(train.size, val, "val")
+    if val > 0 and k_va == 0:
+        raise SplitError(f"split.val={val:g} gives no validation rows of the {train.size} training rows of the fold "
+                         "(use a row count, split.val >= 1, or split.val=0)")
+    if k_va >= train.size:
+        raise SplitError(f"split.val={val:g} leaves no training rows of the {train.size} in the fold")
+    order = np.random.default_rng([int(seed), _SPLIT_STREAM, 1]).permutation(train.size)
+    va = np.sort(train[order[:k_va]])
+    tr = np.sort(train[order[k_va:]])
+    return tr, va, test

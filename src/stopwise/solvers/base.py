@@ -30,11 +30,16 @@ def frozen(a: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class State:
-    """Base iterate record: ``w`` is evaluated, ``passes`` counts data passes."""
+    """Base iterate record: ``w`` is evaluated, ``passes`` counts data passes.
+
+    A solver sets ``converged`` when further steps cannot change ``w`` beyond rounding
+    (for example CGLS at a least-squares solution); the runner then ends the run.
+    """
 
     w: np.ndarray
     iteration: int = 0
     passes: float = 0.0
+    converged: bool = False
 
 
 # ---------------------------------------------------------------- constraints as data
@@ -94,7 +99,21 @@ class Choice:
         return "no-such-choice"
 
 
-def param(default: Any, constraint: Interval | Choice | None = None, doc: str = "") -> Any:
+@dataclass(frozen=True)
+class Flag:
+    """A true/false switch (YAML booleans only, never strings or numbers)."""
+
+    def contains(self, v: Any) -> bool:
+        return isinstance(v, bool)
+
+    def describe(self) -> str:
+        return "true or false"
+
+    def outside(self) -> Any:
+        return "no-such-flag"
+
+
+def param(default: Any, constraint: Interval | Choice | Flag | None = None, doc: str = "") -> Any:
     """Declare a params field with its constraint and one-line doc, readable by tests."""
     return field(default=default, metadata={"constraint": constraint, "doc": doc})
 
@@ -155,7 +174,13 @@ def make_params(cls: type, values: dict[str, Any], owner: str):
 
 @dataclass(frozen=True)
 class SolverDef:
-    """A registered solver: its params class, init and step, and how it spends work."""
+    """A registered solver: its params class, init and step, and how it spends work.
+
+    ``metrics``, when given, maps ``(train, params)`` to ``{column: f(state) -> float}``:
+    per-iterate quantities that depend on the solver's params or on more of its state than
+    ``w`` (a bias value, a dual variable's gap). The Recorder evaluates them on recorded
+    iterates only, outside the solver's timed work.
+    """
 
     name: str
     params: type
@@ -164,6 +189,7 @@ class SolverDef:
     summary: str
     tasks: tuple[str, ...] = ("regression",)
     stochastic: bool = False
+    metrics: Callable[[TrainingSet, Any], dict[str, Callable[[State], float]]] | None = None
 
 
 SOLVERS: dict[str, SolverDef] = {}

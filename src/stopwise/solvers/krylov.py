@@ -9,6 +9,9 @@ from ..problem import TrainingSet
 from .base import SolverDef, State, frozen, register
 
 
+TOL = 1e-14  # relative accuracy at which CGLS declares a least-squares solution reached
+
+
 @dataclass(frozen=True)
 class CGLSParams:
     """CGLS has no step size: each iteration minimizes over a growing Krylov space."""
@@ -36,12 +39,15 @@ def cgls_step(train: TrainingSet, params: CGLSParams, state: CGLSState) -> CGLSS
         s = X^T r;  gamma' = ||s||^2;  p = s + (gamma' / gamma) p
 
     One iteration costs one product with X and one with X^T: one data pass. In exact
-    arithmetic iterate k equals LSQR's. Once the normal-equation residual is exactly
-    zero the iterate is the least-squares solution and further steps keep it.
+    arithmetic iterate k equals LSQR's. The new state is marked ``converged`` when the
+    iterate is a least-squares solution to rounding accuracy, with LSQR's two tests
+    (Paige and Saunders 1982, section 6) at tolerance ``TOL``:
+    ``||X^T r|| <= TOL ||X|| ||r||`` or ``||r|| <= TOL (||X|| ||w|| + ||y||)``; past that point
+    the recursion only amplifies rounding errors.
     """
-    if state.gamma == 0.0:
-        return CGLSState(w=state.w, iteration=state.iteration + 1, passes=state.passes + 1.0,
-                         r=state.r, s=state.s, p=state.p, gamma=0.0)
+    if state.converged or state.gamma == 0.0:
+        return CGLSState(w=state.w, iteration=state.iteration + 1, passes=state.passes, converged=True,
+                         r=state.r, s=state.s, p=state.p, gamma=state.gamma)
     q = train.X @ state.p
     qq = float(q @ q)
     alpha = state.gamma / qq if qq > 0 else 0.0
@@ -50,7 +56,11 @@ def cgls_step(train: TrainingSet, params: CGLSParams, state: CGLSState) -> CGLSS
     s = train.X.T @ r
     gamma = float(s @ s)
     p = s + (gamma / state.gamma) * state.p
-    return CGLSState(w=frozen(w), iteration=state.iteration + 1, passes=state.passes + 1.0,
+    norm_x = float(np.sqrt(train.L * train.n))
+    norm_r = float(np.sqrt(r @ r))
+    done = (np.sqrt(gamma) <= TOL * norm_x * norm_r
+            or norm_r <= TOL * (norm_x * float(np.sqrt(w @ w)) + float(np.sqrt(train.y @ train.y))))
+    return CGLSState(w=frozen(w), iteration=state.iteration + 1, passes=state.passes + 1.0, converged=bool(done),
                      r=frozen(r), s=frozen(s), p=frozen(p), gamma=gamma)
 
 

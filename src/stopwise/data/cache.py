@@ -1,0 +1,142 @@
+"""Processed-problem cache: content addressed, safe under concurrent processes.
+
+A processed Problem is stored as two files named by the SHA-256 of its data spec::
+
+    <cache>/problems/<key32>.npz    the float64 arrays (numpy .npz, read with allow_pickle=False)
+    <cache>/problems/<key32>.json   everything else (names, task, noise, preprocessing record, info)
+
+The key covers the normalized dataset config, the split, the seed, a digest of the
+underlying data (the bytes of a user's file or of an OpenML cache entry), the cache
+format and the versions of numpy, scikit-learn and pandas; so a changed spec, changed
+data or a changed library reads a different entry, and an entry is never stale.
+Both files are written atomically (temporary name, fsync, rename), the arrays first, so a
+reader that finds the JSON finds complete arrays; concurrent writers of one key write
+the same bytes. Nothing is pickled.
+
+The cache lives in ``$STOPWISE_CACHE`` when set (``off`` disables it), else in the
+user's cache directory (``$XDG_CACHE_HOME/stopwise`` or ``~/.cache/stopwise`` on Linux,
+``~/Library/Caches/stopwise`` on macOS, ``%LOCALAPPDATA%\\stopwise`` on Windows).
+"""
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+import os
+import sys
+import zipfile
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..problem import Problem
+
+CACHE_FORMAT = 1
+ENV = "STOPWISE_CACHE"
+ARRAYS = ("X_train", "y_train", "X_val", "y_val", "X_test", "y_test")
+_VERSIONS: dict[str, str] | None = None
+
+
+def default_cache_dir() -> Path:
+    if sys.platform == "darwin":
+        return Path.home() / "Library" / "Caches" / "stopwise"
+    if os.name == "nt":
+        return Path(os.environ.get("LOCALAPPDATA", Path.home() / "AppData" / "Local")) / "stopwise"
+    xdg = os.environ.get("XDG_CACHE_HOME")
+    return (Path(xdg) if xdg else Path.home() / ".cache") / "stopwise"
+
+
+def cache_dir() -> Path | None:
+    """Root of stopwise's cache, or None when disabled with ``STOPWISE_CACHE=off``."""
+    v = os.environ.get(ENV)
+    if v is not None and v.strip().lower() in ("off", "none", "0", "false", "no"):
+        return None
+    return Path(v).expanduser() if v else default_cache_dir()
+
+
+def library_versions() -> dict[str, str]:
+    global _VERSIONS
+    if _VERSIONS is None:
+        import importlib.metadata as md
+
+        out = {}
+        for pkg in ("numpy", "scikit-learn", "pandas"):
+            try:
+                out[pkg] = md.version(pkg)
+            except md.PackageNotFoundError:  # pragma: no cover
+                out[pkg] = "?"
+        _VERSIONS = out
+    return _VERSIONS
+
+
+def spec_key(dataset: dict[str, Any], split: dict[str, Any], seed: int, fingerprint: str | None) -> str:
+    """SHA-256 of the canonical JSON of everything that determines the processed arrays."""
+    doc = {"format": CACHE_FORMAT, "dataset": dataset, "split": split, "seed": int(seed),
+           "data": fingerprint, "versions": library_versions()}
+    text = json.dumps(doc, sort_keys=True, separators=(",", ":"), default=str)
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def _paths(root: Path, key: str) -> tuple[Path, Path]:
+    d = root / "problems"
+    return d / f"{key[:32]}.npz", d / f"{key[:32]}.json"
+
+
+def jsonable(obj: Any) -> Any:
+    """A JSON round trip of ``obj`` (tuples -> lists, numpy scalars -> numbers), so a fresh
+    Problem and a cached one carry equal records."""
+    def default(o: Any) -> Any:
+        if isinstance(o, np.generic):
+            return o.item()
+        if isinstance(o, np.ndarray):
+            return o.tolist()
+        return str(o)
+
+    return json.loads(json.dumps(obj, default=default, allow_nan=True))
+
+
+def read(key: str, root: Path | None = None) -> Problem | None:
+    """The cached Problem for ``key``, or None (missing, unreadable or for another key)."""
+    root = root if root is not None else cache_dir()
+    if root is None:
+        return None
+    npz_path, json_path = _paths(root, key)
+    try:
+        meta = json.loads(json_path.read_text())
+        if meta.get("key") != key or meta.get("format") != CACHE_FORMAT:
+            return None
+        with np.load(npz_path, allow_pickle=False) as z:
+            arrays = {k: np.array(z[k]) for k in z.files}
+    except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile):  # damaged: rebuild
+        return None
+    want = set(ARRAYS) | ({"w_true"} if meta.get("has_truth") else set())
+    if set(arrays) != want or any(a.dtype != np.float64 for a in arrays.values()):
+        return None
+    return Problem(name=meta["name"], task=meta["task"], w_true=arrays.pop("w_true", None),
+                   noise_level=meta["noise_level"], noise_kind=meta["noise_kind"],
+                   feature_names=tuple(meta["feature_names"]), preprocessing=meta["preprocessing"],
+                   info=meta["info"], **{k: arrays[k] for k in ARRAYS})
+
+
+def write(key: str, problem: Problem, root: Path | None = None) -> Path | None:
+    """Store ``problem`` under ``key`` (atomic; arrays first). Returns the JSON path."""
+    from ..store import atomic_write_bytes
+
+    root = root if root is not None else cache_dir()
+    if root is None:
+        return None
+    npz_path, json_path = _paths(root, key)
+    arrays = {k: getattr(problem, k) for k in ARRAYS}
+    if problem.w_true is not None:
+        arrays["w_true"] = problem.w_true
+    buf = io.BytesIO()
+    np.savez(buf, **arrays)
+    atomic_write_bytes(npz_path, buf.getvalue())
+    meta = {"key": key, "format": CACHE_FORMAT, "name": problem.name, "task": problem.task,
+            "noise_level": problem.noise_level, "noise_kind": problem.noise_kind,
+            "feature_names": list(problem.feature_names), "has_truth": problem.w_true is not None,
+            "preprocessing": problem.preprocessing, "info": problem.info,
+            "shapes": {k: list(v.shape) for k, v in arrays.items()}}
+    atomic_write_bytes(json_path, json.dumps(jsonable(meta), sort_keys=True).encode())
+    return json_path

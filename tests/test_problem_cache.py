@@ -1,0 +1,136 @@
+"""The processed-problem cache: content addressed, byte-identical hits, safe under concurrent processes."""
+import json
+import os
+import subprocess
+import sys
+
+import numpy as np
+import pandas as pd
+
+from stopwise import data
+from stopwise.cli import main
+from stopwise.data import build_problem, cached_problem, problem_key
+from stopwise.spec import spec_from_overrides
+
+FIELDS = ("X_train", "y_train", "X_val", "y_val", "X_test", "y_test", "w_true")
+
+
+def same(a, b):
+    for k in FIELDS:
+        x, y = getattr(a, k), getattr(b, k)
+        assert (x is None) == (y is None), k
+        if x is not None:
+            assert x.dtype == y.dtype and x.shape == y.shape and x.tobytes() == y.tobytes(), k
+    assert (a.name, a.task, a.noise_level, a.noise_kind, a.feature_names) == \
+        (b.name, b.task, b.noise_level, b.noise_kind, b.feature_names)
+    assert a.preprocessing == b.preprocessing and a.info == b.info
+
+
+def entries(d):
+    return sorted(p.name for p in (d / "problems").glob("*")) if (d / "problems").is_dir() else []
+
+
+def test_a_cache_hit_is_byte_identical_to_a_fresh_load(problem_cache):
+    for over in (["dataset=illposed", "seed=2"], ["dataset=diabetes"], ["dataset=separable"]):
+        spec = spec_from_overrides(over)
+        first = cached_problem(spec.dataset, spec.split, spec.seed)
+        data._CACHE.clear()  # drop the in-process memo: the next call reads the files
+        hit = cached_problem(spec.dataset, spec.split, spec.seed)
+        assert hit is not first
+        fresh = build_problem(spec.dataset, spec.split, spec.seed)
+        same(hit, fresh)
+        same(first, fresh)
+    names = entries(problem_cache)
+    assert len(names) == 6 and {n.rsplit(".", 1)[1] for n in names} == {"npz", "json"}
+
+
+def test_cache_files_are_plain_npz_and_json(problem_cache):
+    spec = spec_from_overrides(["dataset=sparse"])
+    cached_problem(spec.dataset, spec.split, spec.seed)
+    key = problem_key(spec.dataset, spec.split, spec.seed)
+    base = problem_cache / "problems" / key[:32]
+    with np.load(f"{base}.npz", allow_pickle=False) as z:  # no object arrays, nothing unpickled
+        assert sorted(z.files) == sorted(FIELDS) and all(z[k].dtype == np.float64 for k in z.files)
+    meta = json.loads(open(f"{base}.json").read())
+    assert meta["key"] == key and meta["info"]["support"]
+
+
+def test_a_changed_spec_or_changed_data_reads_another_entry(problem_cache, tmp_path):
+    df = pd.DataFrame({"a": np.arange(30.0), "b": np.arange(30.0) ** 2, "y": np.sin(np.arange(30.0))})
+    path = tmp_path / "t.csv"
+    df.to_csv(path, index=False)
+    over = ["dataset=file", f"dataset.params.path={path}", "dataset.params.target=y"]
+    s1 = spec_from_overrides(over)
+    p1 = cached_problem(s1.dataset, s1.split, s1.seed)
+    s2 = spec_from_overrides(over + ["dataset.standardize=false"])
+    assert problem_key(s2.dataset, s2.split, s2.seed) != problem_key(s1.dataset, s1.split, s1.seed)
+    df.loc[0, "a"] = 100.0  # same config, new file contents
+    df.to_csv(path, index=False)
+    data._CACHE.clear()
+    p3 = cached_problem(s1.dataset, s1.split, s1.seed)
+    same(p3, build_problem(s1.dataset, s1.split, s1.seed))
+    assert not np.array_equal(p1.X_train, p3.X_train) or not np.array_equal(p1.X_test, p3.X_test)
+    assert len(entries(problem_cache)) == 4
+
+
+def test_a_damaged_entry_is_rebuilt(problem_cache):
+    spec = spec_from_overrides(["dataset=wellposed"])
+    good = cached_problem(spec.dataset, spec.split, spec.seed)
+    npz = next((problem_cache / "problems").glob("*.npz"))
+    npz.write_bytes(npz.read_bytes()[:100])
+    data._CACHE.clear()
+    again = cached_problem(spec.dataset, spec.split, spec.seed)
+    same(again, good)
+    with np.load(npz, allow_pickle=False) as z:
+        assert z["X_train"].tobytes() == good.X_train.tobytes()
+
+
+def test_cache_off_writes_nothing(tmp_path, monkeypatch):
+    monkeypatch.setenv("STOPWISE_CACHE", "off")
+    data._CACHE.clear()
+    spec = spec_from_overrides(["dataset=wellposed"])
+    cached_problem(spec.dataset, spec.split, spec.seed)
+    assert data.cache.cache_dir() is None
+    data._CACHE.clear()
+
+
+CHILD = """
+import hashlib, sys
+from stopwise.data import cached_problem
+from stopwise.spec import spec_from_overrides
+s = spec_from_overrides(["dataset=integral_gauss", "dataset.params.n=2000", "dataset.params.d=300"])
+p = cached_problem(s.dataset, s.split, s.seed)
+h = hashlib.sha256()
+for k in ("X_train", "y_train", "X_val", "y_val", "X_test", "y_test", "w_true"):
+    h.update(getattr(p, k).tobytes())
+print(h.hexdigest())
+"""
+
+
+def test_concurrent_processes_share_one_entry(problem_cache):
+    """Two processes build the same spec at the same time: both get the same bytes, the entry is whole."""
+    env = dict(os.environ, STOPWISE_CACHE=str(problem_cache))
+    procs = [subprocess.Popen([sys.executable, "-c", CHILD], env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                              text=True) for _ in range(2)]
+    outs = [p.communicate(timeout=180) for p in procs]
+    assert all(p.returncode == 0 for p in procs), outs
+    digests = {o[0].strip() for o in outs}
+    assert len(digests) == 1
+    names = entries(problem_cache)
+    assert len(names) == 2 and not any(n.startswith(".") for n in names)  # no temporary files left behind
+    again = subprocess.run([sys.executable, "-c", CHILD], env=env, capture_output=True, text=True, timeout=180)
+    assert again.stdout.strip() in digests
+
+
+def test_a_sweep_builds_each_data_spec_once(problem_cache, root, capsys):
+    """2 solvers x 2 seeds on one dataset: 2 distinct data specs, 2 entries; a second identical sweep
+    rewrites none of them."""
+    args = ["sweep", "dataset=wellposed", "solver=gd,cgls", "seed=0,1", "budget.iterations=3", f"results_root={root}"]
+    assert main(args) == 0
+    names = entries(problem_cache)
+    assert len(names) == 4
+    stamps = {n: (problem_cache / "problems" / n).stat().st_mtime_ns for n in names}
+    data._CACHE.clear()
+    assert main(args) == 0
+    assert {n: (problem_cache / "problems" / n).stat().st_mtime_ns for n in entries(problem_cache)} == stamps
+    capsys.readouterr()

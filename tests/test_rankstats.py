@@ -1,0 +1,144 @@
+"""Rank tests, profiles and intervals against published values and SciPy."""
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+from stopwise.rankstats import (StatsError, critical_difference, data_profile, friedman_from_ranks,
+                                friedman_test, nemenyi_q, performance_profile, performance_ratios, rank_table,
+                                student_interval)
+
+# Demsar, "Statistical Comparisons of Classifiers over Multiple Data Sets", JMLR 7 (2006),
+# worked example of section 3.2.2 (Table 6): N = 14 data sets, k = 4 variants of C4.5.
+DEMSAR_RANKS = [3.143, 2.000, 2.893, 1.964]
+
+
+def test_demsar_worked_example():
+    """Demsar (2006): chi2_F = 9.28, F_F = 3.69 (critical F(3, 39) = 2.85), CD = 1.25 / 1.12."""
+    t = friedman_from_ranks(DEMSAR_RANKS, 14, alpha=0.05)
+    assert round(t.chi2_f, 2) == 9.28
+    assert round(t.f_f, 2) == 3.69
+    assert (t.df1, t.df2) == (3, 39)
+    assert round(float(stats.f.ppf(0.95, t.df1, t.df2)), 2) == 2.85  # the paper's critical value
+    assert t.f_p < 0.05  # the paper rejects the null hypothesis
+    assert round(t.cd, 2) == 1.25
+    assert round(friedman_from_ranks(DEMSAR_RANKS, 14, alpha=0.10).cd, 2) == 1.12
+    assert round(critical_difference(4, 14, 0.05), 2) == 1.25
+
+
+def test_nemenyi_q_table():
+    """Demsar (2006) Table 5(a), q_0.05 for k = 2..10 (the paper's table, 3 decimals)."""
+    published = [1.960, 2.343, 2.569, 2.728, 2.850, 2.949, 3.031, 3.102, 3.164]
+    ours = [nemenyi_q(k, 0.05) for k in range(2, 11)]
+    np.testing.assert_allclose(ours, published, atol=1e-3)
+
+
+def test_nemenyi_q_010_table():
+    """Demsar (2006) Table 5(a), q_0.10 for k = 2..10."""
+    published = [1.645, 2.052, 2.291, 2.459, 2.589, 2.693, 2.780, 2.855, 2.920]
+    np.testing.assert_allclose([nemenyi_q(k, 0.10) for k in range(2, 11)], published, atol=1e-3)
+
+
+def test_friedman_equals_scipy_without_ties():
+    """Without ties chi2_F from average ranks is SciPy's friedmanchisquare statistic."""
+    rng = np.random.default_rng(3)
+    scores = pd.DataFrame(rng.random((9, 5)), columns=list("abcde"))
+    t = friedman_test(scores)
+    ref = stats.friedmanchisquare(*[scores[c] for c in scores])
+    assert math.isclose(t.chi2_f, ref.statistic, rel_tol=1e-12)
+    assert math.isclose(t.chi2_p, ref.pvalue, rel_tol=1e-9)
+
+
+def test_friedman_with_ties_is_not_tie_corrected():
+    """With ties Demsar's formula is used as printed; SciPy divides by a tie correction (< 1)."""
+    scores = pd.DataFrame({"a": [1, 1, 2, 1], "b": [1, 2, 2, 3], "c": [2, 3, 1, 3]}, dtype=float)
+    ranks = rank_table(scores)
+    R = ranks.mean(axis=0).to_numpy()
+    N, k = 4, 3
+    by_hand = 12 * N / (k * (k + 1)) * (np.sum(R ** 2) - k * (k + 1) ** 2 / 4)
+    t = friedman_test(scores)
+    assert math.isclose(t.chi2_f, by_hand, rel_tol=1e-12)
+    assert t.chi2_f < stats.friedmanchisquare(*[scores[c] for c in scores]).statistic - 1e-6
+
+
+def test_rank_table_averages_ties_and_puts_failures_last():
+    """Hand-computed: ties share the mean of the ranks they span; NaN and inf rank last together."""
+    scores = pd.DataFrame({"a": [0.1, 0.5, np.nan], "b": [0.1, 0.2, np.inf], "c": [0.3, 0.2, 0.4],
+                           "d": [0.1, np.nan, 0.9]})
+    expect = [[2, 2, 4, 2], [3, 1.5, 1.5, 4], [3.5, 3.5, 1, 2]]
+    assert rank_table(scores).to_numpy().tolist() == expect
+    assert rank_table(-scores.fillna(-np.inf), lower_is_better=False).iloc[0].tolist() == [2, 2, 4, 2]
+
+
+def test_perfect_agreement_gives_infinite_f():
+    scores = pd.DataFrame({"a": [1.0, 1.0, 1.0], "b": [2.0, 2.0, 2.0]})
+    t = friedman_test(scores)
+    assert t.average_ranks == (1.0, 2.0) and t.f_f == math.inf and t.f_p == 0.0
+
+
+def test_cd_groups():
+    t = friedman_from_ranks([1.0, 1.5, 3.0, 3.2, 4.3], 20, alpha=0.05)
+    # CD = 2.728 * sqrt(5 * 6 / 120) = 1.364
+    assert round(t.cd, 3) == 1.364
+    assert t.groups() == [("1", "2"), ("3", "4", "5")]
+
+
+def test_bad_input_one_line():
+    for call in (lambda: friedman_from_ranks([1.5, 1.5], 1), lambda: friedman_from_ranks([1.0], 5),
+                 lambda: nemenyi_q(1), lambda: nemenyi_q(3, 1.5), lambda: student_interval([1, 2], 2.0),
+                 lambda: friedman_from_ranks([0.5, 2.5], 4)):
+        with pytest.raises(StatsError) as e:
+            call()
+        assert "\n" not in str(e.value)
+
+
+def test_student_interval_matches_scipy():
+    """Two-sided Student t interval of the mean, as scipy.stats.t.interval computes it."""
+    x = np.array([0.31, 0.29, 0.35, 0.33, 0.30])
+    m, lo, hi, n = student_interval(x, 0.9)
+    ref = stats.t.interval(0.9, len(x) - 1, loc=x.mean(), scale=stats.sem(x))
+    assert n == 5 and math.isclose(m, x.mean())
+    np.testing.assert_allclose([lo, hi], ref, rtol=1e-12)
+    assert all(math.isnan(v) for v in student_interval([0.4])[1:3])
+
+
+# ---------------------------------------------------------------- profiles
+
+# Hand-computed example (Dolan and More 2002 definitions): 3 problems, 3 methods.
+COSTS = pd.DataFrame({"a": [2.0, 6.0, 1.0], "b": [4.0, 3.0, np.inf], "c": [np.nan, 3.0, 5.0]},
+                     index=["p1", "p2", "p3"])
+
+
+def test_performance_ratios_by_hand():
+    r = performance_ratios(COSTS)
+    expect = [[1, 2, np.inf], [2, 1, 1], [1, np.inf, 5]]
+    assert r.to_numpy().tolist() == expect
+
+
+def test_performance_profile_by_hand():
+    prof = performance_profile(COSTS, taus=[1, 2, 4.99, 5, 1e9])
+    got = {m: g["share"].tolist() for m, g in prof.groupby("method")}
+    assert got["a"] == pytest.approx([2 / 3, 1, 1, 1, 1])
+    assert got["b"] == pytest.approx([1 / 3, 2 / 3, 2 / 3, 2 / 3, 2 / 3])
+    assert got["c"] == pytest.approx([1 / 3, 1 / 3, 1 / 3, 2 / 3, 2 / 3])
+    # default grid: 1 and every finite ratio (the jump points)
+    assert sorted(performance_profile(COSTS)["tau"].unique()) == [1, 2, 5]
+
+
+def test_data_profile_by_hand():
+    """More and Wild (2009): share of problems solved within a budget (here data passes)."""
+    prof = data_profile(COSTS, budgets=[0, 1, 2, 3, 4, 5, 6, 100])
+    got = {m: g["share"].tolist() for m, g in prof.groupby("method")}
+    third = 1 / 3
+    assert got["a"] == pytest.approx([0, third, 2 * third, 2 * third, 2 * third, 2 * third, 1, 1])
+    assert got["b"] == pytest.approx([0, 0, 0, third, 2 * third, 2 * third, 2 * third, 2 * third])
+    assert got["c"] == pytest.approx([0, 0, 0, third, third, 2 * third, 2 * third, 2 * third])
+
+
+def test_zero_cost_profile():
+    r = performance_ratios(pd.DataFrame({"a": [0.0, 1.0], "b": [2.0, 1.0]}))
+    assert r.to_numpy().tolist() == [[1, np.inf], [1, 1]]
+    with pytest.raises(StatsError):
+        performance_ratios(pd.DataFrame({"a": [-1.0]}))
