@@ -209,3 +209,29 @@ def test_a_results_root_or_runs_folder_that_is_itself_a_link_still_works(tmp_pat
         warnings.simplefilter("error")
         assert list(stopwise.load_runs(root)["run_id"]) == [out.run_id]
     assert stopwise.run(["dataset=wellposed", "solver=gd", "budget.iterations=5"], root=root).skipped
+
+
+def test_a_manifest_name_that_climbs_out_of_the_root_is_never_used_as_a_path(tmp_path, capsys):
+    """The report writes to <root>/reports/<campaign name>/: a stored name such as
+    '../../escaped' must not become a path (the manifest is skipped as malformed)."""
+    root = tmp_path / "a" / "b" / "res"
+    assert main(["sweep", "dataset=wellposed", "solver=gd,cgls", "budget.iterations=5",
+                 f"results_root={root}"]) == 0
+    (path,) = (root / "campaigns").glob("*.json")
+    doc = json.loads(path.read_text())
+    doc["name"] = "../../../escaped"
+    digest = campaign_digest(doc["name"], doc["run_ids"], doc["stopping"])
+    doc.update(campaign_id=digest[:16], digest=digest)
+    path.unlink()
+    (root / "campaigns" / f"{digest[:16]}.json").write_text(json.dumps(doc))
+    capsys.readouterr()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for argv in (["report", digest[:16], "--root", str(root)], ["ls", "--campaign", digest[:16], "--root", str(root)],
+                     ["rerun", digest[:16], "--root", str(root)]):
+            assert main(argv) == 2, argv
+            err = capsys.readouterr().err
+            assert err.count("\n") == 1, err
+    assert not (tmp_path / "escaped").exists() and not (tmp_path / "a" / "escaped").exists()
+    assert sorted(p.name for p in tmp_path.rglob("escaped")) == []
+    assert "not a campaign name" in " ".join(f.problem for f in stopwise.verify_root(root).bad)

@@ -29,6 +29,7 @@ META_KEY = b"stopwise"
 RUN_LEVEL = ("run_id", "dataset", "task", "solver", "seed", "status")
 STATUSES = ("completed", "diverged", "failed")
 _ID = re.compile(r"^[0-9a-f]{4,64}$")
+_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")  # the campaign file names' rule (campaign.NAME)
 
 
 class StoreError(ValueError):
@@ -208,8 +209,10 @@ def check_manifest_shape(m: Any) -> dict[str, Any]:
     ids = m.get("run_ids")
     if not isinstance(ids, list) or not all(isinstance(r, str) and _ID.match(r) for r in ids):
         raise StoreError("manifest run_ids is not a list of hex run ids")
-    if not isinstance(m.get("name", ""), str):
-        raise StoreError("manifest name is not a string")
+    name = m.get("name", "adhoc")
+    if not isinstance(name, str) or not _NAME.match(name):
+        # names become folder names (e.g. reports/<name>/): nothing may climb out of the root
+        raise StoreError(f"manifest name {name!r} is not a campaign name (letters, digits, '_', '-', '.')")
     return m
 
 
