@@ -16,6 +16,7 @@ $(VENV)/.installed: pyproject.toml | $(BIN)/python
 demo: $(VENV)/.installed
 	$(BIN)/stopwise sweep demo
 	$(BIN)/stopwise ls --campaign demo --summary
+	$(BIN)/stopwise report demo
 
 test: $(VENV)/.installed
 	$(BIN)/python -m pytest -q

@@ -33,6 +33,21 @@ def dataset_configs_by_source() -> dict[str, str]:
     return out
 
 
+def dataset_for_tasks(tasks) -> list[str]:
+    """No override when the default dataset suits the solver; else a ready dataset config
+    whose task it handles (from the dataset catalog, when there is one)."""
+    if "regression" in tasks:
+        return []
+    try:
+        from stopwise.data.catalog import entries
+    except ImportError:
+        return []
+    for e in entries():
+        if e.task in tasks:
+            return [f"dataset={e.name}"]
+    return []
+
+
 def _nullable(key: str) -> bool:
     """Whether null is a valid value of a fixed-schema field (its default is None)."""
     node = StopwiseConfig()
@@ -47,10 +62,11 @@ def constrained_fields() -> list[tuple[str, list[str], object, bool]]:
     for key, c in FIELD_CONSTRAINTS.items():
         fields.append((key, [], c, _nullable(key)))
     for name, d in sorted(SOLVERS.items()):
+        base = [f"solver={name}", *dataset_for_tasks(d.tasks)]
         for f in dataclasses.fields(d.params):
             c = f.metadata.get("constraint")
             if c is not None:
-                fields.append((f"solver.{f.name}", [f"solver={name}"], c, f.default is None))
+                fields.append((f"solver.{f.name}", base, c, f.default is None))
     by_source = dataset_configs_by_source()
     for name, src in sorted(SOURCES.items()):
         if name not in by_source:
@@ -104,7 +120,9 @@ def test_every_registered_solver_and_source_is_covered():
 def test_bad_value_is_one_line_exit_2_and_writes_nothing(tmp_path, monkeypatch, capsys, key, base, kind, value):
     monkeypatch.chdir(tmp_path)
     root = tmp_path / "res"
-    code = main(["run", *base, f"{key}={value}", f"results_root={root}"])
+    # a source param absent from the chosen dataset file is added with ++ (Hydra's struct rule)
+    prefix = "++" if key.startswith("dataset.params.") else ""
+    code = main(["run", *base, f"{prefix}{key}={value}", f"results_root={root}"])
     captured = capsys.readouterr()
     err = captured.err
     assert code == 2, (kind, err, captured.out)

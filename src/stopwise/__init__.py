@@ -6,6 +6,7 @@ Public API::
     load_problem(overrides)           the Problem (arrays, truth, noise, L) a run sees
     load_traces(root, campaign=None, **filters)   every recorded iterate as a DataFrame
     load_runs(root, campaign=None)    one row per stored run
+    hard_margin(X, y)                 separability (LP) and the hard-margin SVM of a binary problem
     build_problem(dataset, split, seed) / cached_problem(...)   the data layer (docs/datasets.md)
     register_source(SourceDef(...))   add a dataset source
     select(root, campaign, rules=None) every stopping rule on every stored trace (one row per run x rule)
@@ -21,6 +22,9 @@ from __future__ import annotations
 
 __version__ = "0.1.0"
 
+from .losses import LOSSES, get_loss  # noqa: E402
+from .margins import HardMargin, hard_margin, is_separable, normalized_margin  # noqa: E402
+from .models import LinearModel, TwoLayerReLU  # noqa: E402
 from .data import RawData, SourceDef, build_problem, cached_problem  # noqa: E402
 from .data.sources import register_source  # noqa: E402
 from .problem import Problem, TrainingSet  # noqa: E402
@@ -72,4 +76,6 @@ __all__ = ["RawData", "SourceDef", "build_problem", "cached_problem", "register_
            "BASELINES", "ensure_baselines", "fit_path", "load_baselines", "load_references",
            "RankError", "RankTest", "Ranking", "Target", "critical_difference", "data_profile", "friedman_from_ranks",
            "friedman_test", "nemenyi_q", "performance_profile", "rank", "rank_campaign", "rank_table",
-           "report_campaign", "student_interval", "verify_root"]
+           "report_campaign", "student_interval",
+           "LOSSES", "get_loss", "HardMargin", "hard_margin", "is_separable", "normalized_margin",
+           "LinearModel", "TwoLayerReLU", "verify_root"]

@@ -85,11 +85,13 @@ def curves(traces: pd.DataFrame, tuned: pd.DataFrame, stops: pd.DataFrame, rule:
     by_run = {rid: g for rid, g in traces.groupby("run_id", sort=False)}
     for ax, d in zip(axes, datasets):
         td = tuned[tuned["dataset"] == d]
+        drawn = 0
         for m, rid in zip(td["method"], td["run_id"]):
             g = by_run.get(rid)
             if g is None:
                 continue
             g = g[(g["passes"] > 0) & np.isfinite(g["test_error"]) & (g["test_error"] > 0)]
+            drawn += len(g)
             ax.plot(g["passes"], g["test_error"], color=colors[m], lw=1.6, label=m)
             st = stops[stops["run_id"] == rid]
             for rule_, p, e in zip(st["rule"], st["selected_passes"], st["test_error"]):
@@ -99,11 +101,17 @@ def curves(traces: pd.DataFrame, tuned: pd.DataFrame, stops: pd.DataFrame, rule:
                         mfc="white" if rule_ == "oracle" else colors[m], mec=colors[m], mew=1.6, zorder=5)
         seeds = sorted(td["seed"].unique())
         ax.set_title(f"{d} (seed {seeds[0]})" if len(seeds) == 1 else f"{d}", fontsize=11)
-        ax.set_xscale("log")
-        ax.set_yscale("log")
         ax.set_xlabel("data passes")
         ax.set_ylabel("test error")
         ax.grid(True, which="major", alpha=0.3)
+        if not drawn:  # every test error is 0 (e.g. misclassification on separable data): no log axis
+            ax.set_xticks([])
+            ax.set_yticks([])
+            ax.text(0.5, 0.5, "no positive test error to draw\n(every recorded test error is 0)", ha="center",
+                    va="center", transform=ax.transAxes)
+            continue
+        ax.set_xscale("log")
+        ax.set_yscale("log")
         _plain_log_ticks(ax, "y")
         ax.tick_params(axis="y", which="minor", labelsize=8)
     _hide_unused(axes, len(datasets))

@@ -18,8 +18,12 @@ NOISE_KINDS = ("norm", "gaussian")
 class TrainingSet:
     """Training rows only: what a solver may use.
 
-    ``L`` is the smoothness constant of the training objective
-    ``f(w) = (1 / (2 n)) ||X w - y||^2``, that is ``||X||_2^2 / n``.
+    ``loss`` names the training objective (see :mod:`stopwise.losses`) and ``L`` is its
+    smoothness constant: ``||X||_2^2 / n`` for least squares ``f(w) = (1 / (2 n)) ||X w - y||^2``,
+    ``||X||_2^2 / (4 n)`` for logistic, ``||X||_2^2 / (2 n)`` for softmax, and the scale
+    ``||X||_2^2 / n`` for the (non-smooth) hinge. ``k`` is the number of columns of the weight
+    matrix (the number of classes for softmax, 1 otherwise); iterates are flat vectors of
+    length ``dim = d * k``.
     """
 
     X: np.ndarray
@@ -27,12 +31,28 @@ class TrainingSet:
     L: float
     task: str = "regression"
     loss: str = "squares"
+    k: int = 1
 
     def gradient(self, w: np.ndarray) -> np.ndarray:
         """Gradient of the training objective at ``w`` as a new array (one data pass)."""
         from .losses import gradient
 
         return gradient(self, w)
+
+    def value(self, w: np.ndarray) -> float:
+        """Training objective at ``w``."""
+        from .losses import value
+
+        return value(self, w)
+
+    @property
+    def row_norm_max2(self) -> float:
+        """``R^2 = max_i ||x_i||^2`` (computed once per training set)."""
+        hit = self.__dict__.get("_row_norm_max2")
+        if hit is None:
+            hit = float(np.einsum("ij,ij->i", self.X, self.X).max()) if self.X.size else 0.0
+            object.__setattr__(self, "_row_norm_max2", hit)
+        return hit
 
     @property
     def n(self) -> int:
@@ -41,6 +61,11 @@ class TrainingSet:
     @property
     def d(self) -> int:
         return self.X.shape[1]
+
+    @property
+    def dim(self) -> int:
+        """Length of an iterate: ``d`` (``d * K`` for softmax, W stored row-major)."""
+        return self.X.shape[1] * self.k
 
 
 @dataclass(frozen=True)
@@ -67,10 +92,14 @@ class Problem:
     feature_names: tuple[str, ...] = ()
     preprocessing: dict[str, Any] = field(default_factory=dict)
     info: dict[str, Any] = field(default_factory=dict)
+    loss: str | None = None  # the dataset's loss option; None = the task's default
 
     def __post_init__(self) -> None:
         if self.task not in TASKS:
             raise ValueError(f"task {self.task!r} is not one of {', '.join(TASKS)}")
+        from .losses import check_loss
+
+        check_loss(self.task, self.loss)
         if self.noise_kind is not None and self.noise_kind not in NOISE_KINDS:
             raise ValueError(f"noise kind {self.noise_kind!r} is not one of {', '.join(NOISE_KINDS)}")
         for name in ("X_train", "y_train", "X_val", "y_val", "X_test", "y_test"):
@@ -91,18 +120,54 @@ class Problem:
 
     @property
     def L(self) -> float:
-        """Smoothness constant ``||X_train||_2^2 / n_train`` of the training objective."""
+        """Smoothness constant of the default training objective (``||X_train||_2^2 / n_train``
+        for least squares; see :class:`TrainingSet`)."""
         return self.training.L
 
     @property
+    def objective(self) -> str:
+        """The loss trained by default: the dataset's ``loss`` option or the task's default."""
+        from .losses import check_loss
+
+        return check_loss(self.task, self.loss)
+
+    @property
+    def n_classes(self) -> int:
+        """Number of classes (0 for regression): from ``info["classes"]`` when the source
+        recorded them, else 2 for binary and the largest label + 1 for multiclass."""
+        if self.task == "regression":
+            return 0
+        classes = self.info.get("classes")
+        if classes:
+            return len(classes)
+        if self.task == "binary":
+            return 2
+        top = max(float(a.max()) for a in (self.y_train, self.y_val, self.y_test) if a.size)
+        return int(top) + 1
+
+    @property
     def training(self) -> TrainingSet:
-        cached = self.__dict__.get("_training")
-        if cached is None:
+        """Training rows with the default loss (see :meth:`training_set`)."""
+        return self.training_set(None)
+
+    def training_set(self, loss: str | None = None) -> TrainingSet:
+        """Training rows with ``loss`` (default: :attr:`objective`), cached per loss."""
+        from .losses import CURVATURE, check_loss, n_outputs
+
+        loss = check_loss(self.task, loss if loss is not None else self.loss)
+        cache = self.__dict__.setdefault("_training_sets", {})
+        hit = cache.get(loss)
+        if hit is None:
             X = self.X_train
-            smax = float(np.linalg.norm(X, 2)) if X.size else 0.0
-            cached = TrainingSet(X=X, y=self.y_train, L=smax * smax / max(X.shape[0], 1), task=self.task)
-            object.__setattr__(self, "_training", cached)
-        return cached
+            smax = self.__dict__.get("_smax")
+            if smax is None:
+                smax = float(np.linalg.norm(X, 2)) if X.size else 0.0
+                object.__setattr__(self, "_smax", smax)
+            L = CURVATURE[loss] * smax * smax / max(X.shape[0], 1)
+            y = self.y_train
+            hit = TrainingSet(X=X, y=y, L=L, task=self.task, loss=loss, k=n_outputs(loss, self.n_classes))
+            cache[loss] = hit
+        return hit
 
     @property
     def noise_norm(self) -> float | None:

@@ -17,6 +17,9 @@ Two extension points add columns after the base ones:
     (:func:`stopwise.load_traces`).
 
 Both are computed here, on recorded iterates only, outside the solver's timed work.
+Classification problems replace the squared-error columns by the task's own
+(misclassification, loss per split, margins; see :mod:`stopwise.classify`), which come
+between the base columns and the extras.
 """
 from __future__ import annotations
 
@@ -36,17 +39,31 @@ METRIC_SETS: list[Callable[[Problem], dict[str, Callable[[np.ndarray], float]]]]
 
 
 class Recorder:
+    """Records iterates of one run. Regression problems get squared errors; classification
+    problems (``problem.task`` binary or multiclass) get the columns of
+    :class:`stopwise.classify.ClassificationMetrics` for the run's ``loss`` and ``model``
+    (default: the problem's loss and a linear model)."""
+
     def __init__(self, problem: Problem, capacity: int = 256,
-                 state_metrics: Mapping[str, Callable[[Any], float]] | None = None):
+                 state_metrics: Mapping[str, Callable[[Any], float]] | None = None,
+                 loss: str | None = None, model: Any = None):
         self.problem = problem
+        self._cls = None
+        self.info: dict = {}
+        if problem.task != "regression":
+            from .classify import ClassificationMetrics
+
+            self._cls = ClassificationMetrics(problem, loss or problem.objective, model)
+            self.info = self._cls.info
         self._extras: dict[str, Callable[[np.ndarray], float]] = {}
         for make in METRIC_SETS:
             self._extras.update(make(problem) or {})
+        cls_cols = self._cls.columns if self._cls is not None else ()
         self._state_extras = dict(state_metrics or {})
-        clash = sorted(set(self._state_extras) & (set(BASE_COLUMNS) | set(self._extras)))
+        clash = sorted(set(self._state_extras) & (set(BASE_COLUMNS) | set(cls_cols) | set(self._extras)))
         if clash:
             raise ValueError(f"solver metric column {clash[0]!r} clashes with a recorder column")
-        self.columns = BASE_COLUMNS + tuple(self._extras) + tuple(self._state_extras)
+        self.columns = BASE_COLUMNS + cls_cols + tuple(self._extras) + tuple(self._state_extras)
         self._cap = max(int(capacity), 1)
         self._data = {c: np.empty(self._cap, dtype=np.int64 if c == "iteration" else np.float64)
                       for c in self.columns}
@@ -69,6 +86,8 @@ class Recorder:
         """Write one row for iterate ``w`` (of solver ``state``); returns the training objective."""
         if self.size == self._cap:
             self._grow()
+        if self._cls is not None:
+            return self._record_classification(iteration, passes, seconds, w, state)
         p, i, col = self.problem, self.size, self._data
         sq = self._sq_error("train", w)
         n = p.n_train
@@ -92,6 +111,26 @@ class Recorder:
             col[name][i] = fn(state) if state is not None else math.nan
         self.size += 1
         return sq / (2 * n)
+
+    def _record_classification(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
+                               state: Any = None) -> float:
+        p, i, col = self.problem, self.size, self._data
+        col["iteration"][i] = iteration
+        col["passes"][i] = passes
+        col["seconds"][i] = seconds
+        loss = self._cls.fill(col, i, w)
+        col["w_norm"][i] = math.sqrt(float(w @ w))
+        if p.w_true is not None and p.w_true.shape == w.shape:
+            d = w - p.w_true
+            col["dist_truth"][i] = math.sqrt(float(d @ d))
+        else:
+            col["dist_truth"][i] = math.nan
+        for name, fn in self._extras.items():
+            col[name][i] = fn(w)
+        for name, fn in self._state_extras.items():
+            col[name][i] = fn(state) if state is not None else math.nan
+        self.size += 1
+        return loss
 
     def _grow(self) -> None:
         self._cap *= 2

@@ -13,6 +13,7 @@ import numpy as np
 
 from . import __version__
 from .data import cached_problem
+from .losses import resolve_loss
 from .problem import Problem
 from .record import Recorder
 from .solvers import get_solver
@@ -43,9 +44,11 @@ class RunOutcome:
     seconds: float = 0.0
 
 
-def _problem_info(p: Problem) -> dict[str, Any]:
+def _problem_info(p: Problem, train=None) -> dict[str, Any]:
+    train = train if train is not None else p.training
     return {"n_train": p.n_train, "n_val": int(p.X_val.shape[0]), "n_test": int(p.X_test.shape[0]),
-            "d": p.d, "L": p.L, "task": p.task, "noise_kind": p.noise_kind, "noise_level": p.noise_level,
+            "d": p.d, "L": train.L, "task": p.task, "loss": train.loss, "noise_kind": p.noise_kind,
+            "noise_level": p.noise_level,
             "noise_norm": p.noise_norm, "has_truth": p.w_true is not None,
             "preprocessing": {k: v for k, v in p.preprocessing.items() if k != "standardize"},
             "standardized": "standardize" in p.preprocessing}
@@ -63,10 +66,12 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
     if problem.task not in sdef.tasks:
         raise ValueError(f"solver {spec.solver!r} does not handle {problem.task} problems")
     params = make_params(sdef.params, spec.params, "solver")
-    train = problem.training
+    train = problem.training_set(resolve_loss(problem.task, problem.loss, sdef.loss))
+    model = sdef.model(params, train) if sdef.model is not None else None
     rng = np.random.default_rng([spec.seed, 0x50_17E5])
     rec = Recorder(problem, capacity=_record_rows(spec),
-                   state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None)
+                   state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None,
+                   loss=train.loss, model=model)
     max_it = spec.budget["iterations"]
     max_passes = spec.budget["passes"]
     every = spec.record["every"]
@@ -113,7 +118,8 @@ def execute(spec: RunSpec, problem: Problem | None = None) -> Trace:
             status = "completed"
     if halted:
         message = halted
-    return Trace(columns=rec.result(), status=status, message=message, problem_info=_problem_info(problem))
+    return Trace(columns=rec.result(), status=status, message=message,
+                 problem_info=dict(_problem_info(problem, train), **rec.info))
 
 
 def _halting(spec: RunSpec, problem: Problem):
@@ -183,9 +189,9 @@ def environment() -> dict[str, Any]:
     return {"versions": versions, "threads": threads, "machine": platform.machine()}
 
 
-def run_level_columns(spec: RunSpec, task: str, status: str) -> dict[str, Any]:
+def run_level_columns(spec: RunSpec, task: str, status: str, loss: str | None = None) -> dict[str, Any]:
     cols: dict[str, Any] = {"run_id": spec.run_id, "dataset": spec.dataset.get("name"), "task": task,
-                            "solver": spec.solver, "seed": spec.seed, "status": status}
+                            "loss": loss, "solver": spec.solver, "seed": spec.seed, "status": status}
     for k, v in spec.params.items():
         cols[k] = v
     return cols
@@ -230,7 +236,8 @@ def save(spec: RunSpec, trace: Trace, store: Store) -> RunOutcome:
     meta = {"run_id": spec.run_id, "digest": spec.digest, "identity": spec.identity(),
             "config": spec.to_dict(), "status": trace.status, "message": trace.message,
             "problem": trace.problem_info, "summary": summary, "created": time.time(), **environment()}
-    path = store.write_run(spec.run_id, trace.columns, run_level_columns(spec, task, trace.status), meta)
+    path = store.write_run(spec.run_id, trace.columns,
+                           run_level_columns(spec, task, trace.status, trace.problem_info.get("loss")), meta)
     return RunOutcome(spec.run_id, trace.status, path, False, trace.message, spec.label(),
                       summary.get("iterations", 0), summary.get("best_val_error", math.nan),
                       summary.get("best_val_iteration", -1), summary.get("seconds", 0.0))

@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Dict, List, Optional
 
-from .data import DataError, normalize_dataset, split_rows  # noqa: F401
+from .data import DataError, dataset_task, normalize_dataset, split_rows  # noqa: F401
 from .data.split import SPLIT_KINDS
 from .solvers import SOLVERS, get_solver
 from .solvers.base import Choice, Interval, ParamError, UnknownSolver, make_params
@@ -59,6 +59,8 @@ class DatasetConfig:
     drop_constant: bool = True
     random_features: RandomFeaturesConfig = field(default_factory=RandomFeaturesConfig)
     center_features: bool = False  # without standardize: subtract training means only
+    loss: Optional[str] = None       # classification: logistic | hinge | softmax | squares; null = task default
+    add_constant: bool = False       # append a column of ones after standardization
 
 
 @dataclass
@@ -305,6 +307,14 @@ def spec_from_config(cfg: Any) -> RunSpec:
         sdef = get_solver(name)
     except UnknownSolver as e:
         raise SpecError(str(e)) from None
+    task = dataset_task(dataset)
+    if task is not None and task not in sdef.tasks:
+        raise SpecError(f"solver {name!r} does not handle {task} problems such as dataset {dataset.get('name')!r}; "
+                        f"valid solvers: {', '.join(n for n, d in SOLVERS.items() if task in d.tasks)}")
+    asked = c["dataset"].get("loss")
+    if sdef.loss is not None and asked not in (None, sdef.loss):
+        raise SpecError(f"dataset.loss={asked!r} conflicts with solver {name!r}, which trains the "
+                        f"{sdef.loss} loss; drop dataset.loss or set it to {sdef.loss!r}")
     own = {f.name for f in dataclasses.fields(sdef.params)}
     for key in COMMON_SOLVER_KEYS:
         if key not in own:

@@ -26,7 +26,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 META_KEY = b"stopwise"
-RUN_LEVEL = ("run_id", "dataset", "task", "solver", "seed", "status")
+RUN_LEVEL = ("run_id", "dataset", "task", "loss", "solver", "seed", "status")
 STATUSES = ("completed", "diverged", "failed")
 _ID = re.compile(r"^[0-9a-f]{4,64}$")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")  # the campaign file names' rule (campaign.NAME)

@@ -9,7 +9,7 @@ line before any file is written, and later jobs (in any process) read the cached
 from __future__ import annotations
 
 from collections import OrderedDict
-from dataclasses import asdict
+from dataclasses import asdict, fields
 from typing import Any, Iterable
 
 import numpy as np
@@ -27,7 +27,8 @@ from . import generators, openml_source, tabular  # noqa: E402,F401  (register t
 # Preprocessing options added after the first release. A key at its default is left out
 # of the normalized config, so configs that do not use them keep their run ids.
 PREP_DEFAULTS: dict[str, Any] = {"drop_features": None, "categorical": None, "missing": "impute",
-                                 "drop_constant": True, "random_features": None, "center_features": False}
+                                 "drop_constant": True, "random_features": None, "center_features": False,
+                                 "add_constant": False}
 
 
 def get_source(name: str) -> SourceDef:
@@ -35,6 +36,11 @@ def get_source(name: str) -> SourceDef:
         return SOURCES[name]
     except KeyError:
         raise DataError(f"unknown dataset source {name!r}; valid: {', '.join(sorted(SOURCES))}") from None
+
+
+def _omitted(params: Any, name: str, value: Any) -> bool:
+    f = next(f for f in fields(params) if f.name == name)
+    return bool(f.metadata.get("omit_default")) and value == f.default
 
 
 def _names_option(key: str, v: Any) -> list[str] | None:
@@ -52,7 +58,7 @@ def _prep_option(key: str, v: Any) -> Any:
         if v not in MISSING:
             raise DataError(f"dataset.missing={v!r} is invalid: must be one of {', '.join(MISSING)}")
         return v
-    if key in ("drop_constant", "center_features"):
+    if key in ("drop_constant", "center_features", "add_constant"):
         if not isinstance(v, bool):
             raise DataError(f"dataset.{key}={v!r} is invalid: must be true or false")
         return v
@@ -73,12 +79,11 @@ def normalize_dataset(cfg: dict[str, Any]) -> dict[str, Any]:
     src = get_source(cfg.get("source"))
     try:
         params = make_params(src.params, dict(cfg.get("params") or {}), f"dataset.params ({src.name})")
-    except ParamError as e:
+        task = src.check(params) if src.check is not None else None
+    except ValueError as e:
         raise DataError(str(e)) from None
-    if src.check is not None:
-        src.check(params)
     out = dict(cfg)
-    out["params"] = asdict(params)
+    out["params"] = {k: v for k, v in asdict(params).items() if not _omitted(params, k, v)}
     out["features"] = _names_option("features", cfg.get("features"))
     for key, default in PREP_DEFAULTS.items():
         v = _prep_option(key, out.pop(key, default))
@@ -87,7 +92,33 @@ def normalize_dataset(cfg: dict[str, Any]) -> dict[str, Any]:
     for key in ("standardize", "center_target"):
         if key in out and not isinstance(out[key], bool):
             raise DataError(f"dataset.{key}={out[key]!r} is invalid: must be true or false")
+    # The classification loss: left out at its default (null, or the task's default when the
+    # source can tell the task), so runs that do not choose a loss keep their identity.
+    loss = out.pop("loss", None)
+    if loss is not None:
+        from ..losses import DEFAULT_LOSS, LOSS_NAMES, TASK_LOSSES
+
+        if loss not in LOSS_NAMES:
+            raise DataError(f"dataset.loss={loss!r} is invalid: must be one of {', '.join(LOSS_NAMES)} "
+                            "(or null for the task's default)")
+        if task is not None and loss not in TASK_LOSSES[task]:
+            raise DataError(f"dataset.loss={loss!r} does not apply to {cfg.get('name')!r}, a {task} problem; "
+                            f"valid: {', '.join(TASK_LOSSES[task])}")
+        if task is None or loss != DEFAULT_LOSS[task]:  # the task's default is implied
+            out["loss"] = loss
     return out
+
+
+def dataset_task(dataset: dict[str, Any]) -> str | None:
+    """The task of a (normalized) dataset config when its source can tell without loading
+    data (regression / binary / multiclass), else None."""
+    src = get_source(dataset.get("source"))
+    if src.check is None:
+        return None
+    try:
+        return src.check(make_params(src.params, dict(dataset.get("params") or {}), "dataset.params"))
+    except ValueError:
+        return None
 
 
 def _noise(raw: RawData, parts: list[np.ndarray]) -> list[np.ndarray]:
@@ -239,23 +270,37 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
         Xs, names, rec = random_features(Xs, RandomFeaturesParams(**rf))
         prep["random_features"] = rec
         w_true = None
+    if dataset.get("add_constant", False):
+        # a column of ones after scaling and random features: a bias that solvers treat as a weight
+        Xs = [np.hstack([x, np.ones((x.shape[0], 1))]) for x in Xs]
+        names = tuple(names) + ("const",)
+        if w_true is not None:
+            w_true = np.append(w_true, 0.0)
+        prep["add_constant"] = True
     info = dict(raw.info, rows={"train": tr.tolist(), "val": va.tolist(), "test": te.tolist()})
     if classify:
         ys, classes = encode_labels(ys, raw.task, raw.info.get("classes"), where)
         info["classes"] = classes
         prep["labels"] = {"classes": classes,
-                          "encoding": "-1/+1 (second class +1)" if raw.task == "binary" else "0..K-1 (sorted)"}
+                          "encoding": "-1/+1 (second class +1)" if raw.task == "binary" else "0..K-1 (in the order of classes)"}
     elif dataset.get("center_target", True):
         ybar = float(ys[0].mean())
         ys = [y - ybar for y in ys]
         prep["center_target"] = {"mean": ybar}
     noise_kind = None if raw.noise == "none" else raw.noise
+    from ..losses import LossError, check_loss
+
+    try:
+        check_loss(raw.task, dataset.get("loss"))
+    except LossError as e:
+        raise DataError(f"dataset {dataset.get('name')!r}: {e}") from None
     return Problem(
         name=name, task=raw.task,
         X_train=Xs[0], y_train=ys[0], X_val=Xs[1], y_val=ys[1], X_test=Xs[2], y_test=ys[2],
         w_true=None if w_true is None else np.array(w_true, dtype=np.float64),
         noise_level=None if noise_kind is None else raw.noise_level, noise_kind=noise_kind,
         feature_names=tuple(names), preprocessing=_cache.jsonable(prep), info=_cache.jsonable(info),
+        loss=dataset.get("loss"),
     )
 
 

@@ -116,7 +116,7 @@ def read(key: str, root: Path | None = None) -> Problem | None:
     return Problem(name=meta["name"], task=meta["task"], w_true=arrays.pop("w_true", None),
                    noise_level=meta["noise_level"], noise_kind=meta["noise_kind"],
                    feature_names=tuple(meta["feature_names"]), preprocessing=meta["preprocessing"],
-                   info=meta["info"], **{k: arrays[k] for k in ARRAYS})
+                   info=meta["info"], loss=meta.get("loss"), **{k: arrays[k] for k in ARRAYS})
 
 
 def write(key: str, problem: Problem, root: Path | None = None) -> Path | None:
@@ -136,7 +136,7 @@ def write(key: str, problem: Problem, root: Path | None = None) -> Path | None:
     meta = {"key": key, "format": CACHE_FORMAT, "name": problem.name, "task": problem.task,
             "noise_level": problem.noise_level, "noise_kind": problem.noise_kind,
             "feature_names": list(problem.feature_names), "has_truth": problem.w_true is not None,
-            "preprocessing": problem.preprocessing, "info": problem.info,
+            "preprocessing": problem.preprocessing, "info": problem.info, "loss": problem.loss,
             "shapes": {k: list(v.shape) for k, v in arrays.items()}}
     atomic_write_bytes(json_path, json.dumps(jsonable(meta), sort_keys=True).encode())
     return json_path

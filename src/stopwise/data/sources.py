@@ -58,7 +58,9 @@ class SourceDef:
     load: Callable[[Any], RawData]
     summary: str
     fingerprint: Callable[[Any], str] | None = None
-    check: Callable[[Any], None] | None = None
+    # optional check of the params at spec time: raises a one-line ValueError; may return the
+    # task the params give when it is known without loading the data (else None)
+    check: Callable[[Any], str | None] | None = None
 
 
 SOURCES: dict[str, SourceDef] = {}
@@ -71,16 +73,94 @@ def register_source(defn: SourceDef) -> SourceDef:
 
 # ---------------------------------------------------------------- scikit-learn's bundled data
 
-SKLEARN_LOADERS = ("diabetes",)
+SKLEARN_LOADERS = ("diabetes", "breast_cancer", "digits", "wine", "iris")
+# Class names of the classification loaders in target-code order (checked against
+# scikit-learn's ``target_names`` by the tests); digits are named by their digit.
+SKLEARN_CLASSES: dict[str, tuple[str, ...]] = {
+    "breast_cancer": ("malignant", "benign"),
+    "digits": tuple(str(i) for i in range(10)),
+    "wine": ("class_0", "class_1", "class_2"),
+    "iris": ("setosa", "versicolor", "virginica"),
+}
+
+
+class SourceParamError(ValueError):
+    """Source params that are each valid but do not fit together; the message is one line."""
 
 
 @dataclass(frozen=True)
 class SklearnParams:
+    """``classes`` keeps only the rows of the listed classes (codes or names) and encodes
+    them in the listed order: two classes give a binary task (first -> -1, second -> +1),
+    more a multiclass task (0..K-1). ``positive`` makes a one-vs-rest binary task: that
+    class -> +1, every other kept class -> -1."""
+
     loader: str = param("diabetes", Choice(SKLEARN_LOADERS), "which scikit-learn bundled dataset")
     scaled: bool = param(False, Flag(), "diabetes: the loader's own scaling (columns centered, unit norm over all rows)")
+    classes: Any = param(None, None, "classification loaders: list of classes to keep, in encoding order",
+                         omit_default=True)
+    positive: Any = param(None, None, "classification loaders: the +1 class of a one-vs-rest binary task",
+                          omit_default=True)
+
+
+def _class_code(loader: str, label: Any, what: str) -> int:
+    names = SKLEARN_CLASSES[loader]
+    if isinstance(label, int) and not isinstance(label, bool) and 0 <= label < len(names):
+        return int(label)
+    if isinstance(label, str) and label in names:
+        return names.index(label)
+    shown = f"dataset.params.classes lists {label!r}, which" if what == "classes" else f"dataset.params.{what}={label!r}"
+    raise SourceParamError(f"{shown} is not a class of {loader}; valid: {', '.join(names)} "
+                           f"(or codes 0..{len(names) - 1})")
+
+
+def sklearn_classes(p: SklearnParams) -> tuple[list[int], int | None]:
+    """Validate ``classes`` / ``positive`` against the loader: (kept codes in order, positive code)."""
+    if p.loader not in SKLEARN_CLASSES:
+        for what in ("classes", "positive"):
+            if getattr(p, what) is not None:
+                raise SourceParamError(f"dataset.params.{what} applies to classification loaders "
+                                       f"({', '.join(SKLEARN_CLASSES)}), not {p.loader}")
+        return [], None
+    names = SKLEARN_CLASSES[p.loader]
+    if p.classes is None:
+        kept = list(range(len(names)))
+    else:
+        if not isinstance(p.classes, (list, tuple)):
+            raise SourceParamError(f"dataset.params.classes={p.classes!r} is invalid: must be a list of classes")
+        kept = [_class_code(p.loader, c, "classes") for c in p.classes]
+        if len(set(kept)) != len(kept):
+            raise SourceParamError(f"dataset.params.classes={list(p.classes)!r} lists a class twice")
+        if len(kept) < 2:
+            raise SourceParamError(f"dataset.params.classes={list(p.classes)!r} is invalid: needs at least 2 classes")
+    pos = None
+    if p.positive is not None:
+        pos = _class_code(p.loader, p.positive, "positive")
+        if pos not in kept:
+            raise SourceParamError(f"dataset.params.positive={p.positive!r} is not among dataset.params.classes")
+    return kept, pos
+
+
+def check_sklearn(p: SklearnParams) -> str:
+    """Validate the class options and return the task they give (without loading data)."""
+    kept, pos = sklearn_classes(p)
+    if p.loader not in SKLEARN_CLASSES:
+        return "regression"
+    return "binary" if pos is not None or len(kept) == 2 else "multiclass"
 
 
 def load_sklearn(p: SklearnParams) -> RawData:
+    """scikit-learn's bundled datasets (no network).
+
+    diabetes        442 x 10 regression (scaled=False, the original measurements).
+    breast_cancer   569 x 30, malignant / benign.
+    digits          1797 x 64 pixel values 0..16, digits 0..9.
+    wine            178 x 13, three cultivars.
+    iris            150 x 4, setosa / versicolor / virginica.
+
+    Binary targets are -1.0 / +1.0 and multiclass targets 0.0..K-1; ``info["classes"]``
+    lists the original class names in encoded order.
+    """
     from sklearn import datasets
 
     if p.loader == "diabetes":
@@ -88,10 +168,33 @@ def load_sklearn(p: SklearnParams) -> RawData:
         return RawData(X=np.asarray(bunch.data, dtype=np.float64), y=np.asarray(bunch.target, dtype=np.float64),
                        feature_names=tuple(bunch.feature_names),
                        info={"origin": f"sklearn.datasets.load_diabetes(scaled={p.scaled})"})
-    raise ValueError(f"unknown scikit-learn loader {p.loader!r}")  # unreachable after validation
+    kept, pos = sklearn_classes(p)
+    bunch = getattr(datasets, f"load_{p.loader}")()
+    target = np.asarray(bunch.target)
+    names = SKLEARN_CLASSES[p.loader]
+    rows = np.flatnonzero(np.isin(target, kept))
+    X = np.asarray(bunch.data, dtype=np.float64)[rows]
+    t = target[rows]
+    if pos is not None:
+        y = np.where(t == pos, 1.0, -1.0)
+        task, classes = "binary", [f"not {names[pos]}", names[pos]]
+    elif len(kept) == 2:
+        y = np.where(t == kept[1], 1.0, -1.0)
+        task, classes = "binary", [names[kept[0]], names[kept[1]]]
+    else:
+        code = {c: i for i, c in enumerate(kept)}
+        y = np.array([code[int(v)] for v in t], dtype=np.float64)
+        task, classes = "multiclass", [names[c] for c in kept]
+    enc = np.unique(y)
+    counts = {str(classes[i]): int(np.count_nonzero(y == v)) for i, v in enumerate(enc)}
+    feats = tuple(str(f) for f in bunch.feature_names)
+    return RawData(X=X, y=y, task=task, feature_names=feats,
+                   info={"origin": f"sklearn.datasets.load_{p.loader}()", "classes": classes,
+                         "class_counts": counts})
 
 
-register_source(SourceDef("sklearn", SklearnParams, load_sklearn, "datasets that scikit-learn ships"))
+register_source(SourceDef("sklearn", SklearnParams, load_sklearn, "datasets that scikit-learn ships",
+                          check=check_sklearn))
 
 
 # ---------------------------------------------------------------- synthetic least squares with known truth

@@ -113,9 +113,14 @@ class Flag:
         return "no-such-flag"
 
 
-def param(default: Any, constraint: Interval | Choice | Flag | None = None, doc: str = "") -> Any:
-    """Declare a params field with its constraint and one-line doc, readable by tests."""
-    return field(default=default, metadata={"constraint": constraint, "doc": doc})
+def param(default: Any, constraint: Interval | Choice | Flag | None = None, doc: str = "",
+          omit_default: bool = False) -> Any:
+    """Declare a params field with its constraint and one-line doc, readable by tests.
+
+    ``omit_default``: a normalized config leaves the field out while it has its default, so
+    adding the field to an existing params class keeps existing run identities unchanged.
+    """
+    return field(default=default, metadata={"constraint": constraint, "doc": doc, "omit_default": omit_default})
 
 
 class ParamError(SpecError):
@@ -180,6 +185,10 @@ class SolverDef:
     per-iterate quantities that depend on the solver's params or on more of its state than
     ``w`` (a bias value, a dual variable's gap). The Recorder evaluates them on recorded
     iterates only, outside the solver's timed work.
+
+    ``loss`` is the training loss the solver is built for (None: it follows the dataset's
+    loss option or the task's default). ``model(params, train)`` returns the prediction
+    model its iterates parameterize (None: linear scores ``X w``, see stopwise.models).
     """
 
     name: str
@@ -190,6 +199,8 @@ class SolverDef:
     tasks: tuple[str, ...] = ("regression",)
     stochastic: bool = False
     metrics: Callable[[TrainingSet, Any], dict[str, Callable[[State], float]]] | None = None
+    loss: str | None = None
+    model: Callable[[Any, TrainingSet], Any] | None = None
 
 
 SOLVERS: dict[str, SolverDef] = {}

@@ -1,4 +1,7 @@
-"""Full-batch first-order methods on least squares: gradient descent, Nesterov, heavy ball."""
+"""Full-batch first-order methods: gradient descent, Nesterov, heavy ball.
+
+They run on every smooth loss of :mod:`stopwise.losses` (least squares, logistic, softmax;
+on the hinge, gradient descent is the subgradient method), through ``train.gradient``."""
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -9,6 +12,7 @@ from ..problem import TrainingSet
 from .base import Interval, SolverDef, State, frozen, param, register, step_size
 
 POSITIVE = Interval(0.0, None, low_closed=False)
+ALL_TASKS = ("regression", "binary", "multiclass")
 
 
 # ---------------------------------------------------------------- gradient descent
@@ -19,7 +23,7 @@ class GDParams:
 
 
 def gd_init(train: TrainingSet, params: GDParams, rng: np.random.Generator) -> State:
-    return State(w=frozen(np.zeros(train.d)), iteration=0, passes=0.0)
+    return State(w=frozen(np.zeros(train.dim)), iteration=0, passes=0.0)
 
 
 def gd_step(train: TrainingSet, params: GDParams, state: State) -> State:
@@ -39,7 +43,7 @@ def gd_step(train: TrainingSet, params: GDParams, state: State) -> State:
 
 
 register(SolverDef("gd", GDParams, gd_init, gd_step,
-                   "gradient descent (Landweber iteration) with constant step step_scale/L"))
+                   "gradient descent (Landweber iteration) with constant step step_scale/L", tasks=ALL_TASKS))
 
 
 # ---------------------------------------------------------------- Nesterov
@@ -55,7 +59,7 @@ class MomentumState(State):
 
 
 def nesterov_init(train: TrainingSet, params: NesterovParams, rng) -> MomentumState:
-    w = frozen(np.zeros(train.d))
+    w = frozen(np.zeros(train.dim))
     return MomentumState(w=w, iteration=0, passes=0.0, w_prev=w)
 
 
@@ -79,7 +83,7 @@ def nesterov_step(train: TrainingSet, params: NesterovParams, state: MomentumSta
 
 
 register(SolverDef("nesterov", NesterovParams, nesterov_init, nesterov_step,
-                   "Nesterov's accelerated gradient, momentum (t-1)/(t+2), step step_scale/L"))
+                   "Nesterov's accelerated gradient, momentum (t-1)/(t+2), step step_scale/L", tasks=ALL_TASKS))
 
 
 # ---------------------------------------------------------------- heavy ball
@@ -91,7 +95,7 @@ class HeavyBallParams:
 
 
 def heavy_ball_init(train: TrainingSet, params: HeavyBallParams, rng) -> MomentumState:
-    w = frozen(np.zeros(train.d))
+    w = frozen(np.zeros(train.dim))
     return MomentumState(w=w, iteration=0, passes=0.0, w_prev=w)
 
 
@@ -110,4 +114,5 @@ def heavy_ball_step(train: TrainingSet, params: HeavyBallParams, state: Momentum
 
 
 register(SolverDef("heavy_ball", HeavyBallParams, heavy_ball_init, heavy_ball_step,
-                   "Polyak's heavy ball: gradient step step_scale/L plus momentum (w_t - w_{t-1})"))
+                   "Polyak's heavy ball: gradient step step_scale/L plus momentum (w_t - w_{t-1})",
+                   tasks=ALL_TASKS))

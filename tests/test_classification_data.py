@@ -1,0 +1,116 @@
+"""Bundled classification datasets: facts from the loaders' own descriptions (REFERENCES.md
+item 3), label encodings, class subsets, the constant column, and one-line bad input."""
+import numpy as np
+import pytest
+from sklearn import datasets
+
+import stopwise
+from stopwise.data import build_problem, normalize_dataset
+from stopwise.data.sources import SKLEARN_CLASSES, SklearnParams, load_sklearn
+from stopwise.spec import SpecError, spec_from_overrides
+
+
+@pytest.mark.parametrize("loader,shape,counts", [
+    ("breast_cancer", (569, 30), {"malignant": 212, "benign": 357}),
+    ("wine", (178, 13), {"class_0": 59, "class_1": 71, "class_2": 48}),
+    ("digits", (1797, 64), {str(i): c for i, c in enumerate(np.bincount(datasets.load_digits().target))}),
+    ("iris", (150, 4), {"setosa": 50, "versicolor": 50, "virginica": 50}),
+])
+def test_dataset_facts(loader, shape, counts):
+    # REFERENCES.md item 3 (the loaders' DESCR): sizes and class counts
+    raw = load_sklearn(SklearnParams(loader=loader))
+    assert raw.X.shape == shape and raw.X.dtype == np.float64
+    assert raw.info["class_counts"] == counts
+    assert sum(counts.values()) == shape[0]
+    if loader == "digits":
+        assert raw.X.min() == 0 and raw.X.max() == 16
+        assert sum(counts.values()) == 1797
+
+
+def test_class_table_matches_sklearn_target_names():
+    for loader, names in SKLEARN_CLASSES.items():
+        bunch = getattr(datasets, f"load_{loader}")()
+        assert tuple(str(n) for n in bunch.target_names) == names
+
+
+def test_encodings():
+    raw = load_sklearn(SklearnParams(loader="breast_cancer"))
+    target = datasets.load_breast_cancer().target
+    assert raw.task == "binary" and raw.info["classes"] == ["malignant", "benign"]
+    assert np.array_equal(raw.y, np.where(target == 1, 1.0, -1.0))
+    raw = load_sklearn(SklearnParams(loader="wine"))
+    assert raw.task == "multiclass" and np.array_equal(raw.y, datasets.load_wine().target.astype(float))
+    # a subset keeps its rows in file order and encodes in the listed order
+    X, t = datasets.load_iris(return_X_y=True)
+    raw = load_sklearn(SklearnParams(loader="iris", classes=["virginica", "versicolor"]))
+    keep = t > 0
+    assert np.array_equal(raw.X, X[keep]) and np.array_equal(raw.y, np.where(t[keep] == 1, 1.0, -1.0))
+    assert raw.info["classes"] == ["virginica", "versicolor"]
+    by_code = load_sklearn(SklearnParams(loader="iris", classes=[2, 1]))
+    assert np.array_equal(by_code.y, raw.y)
+    raw = load_sklearn(SklearnParams(loader="iris", classes=[2, 0, 1]))
+    assert raw.task == "multiclass" and np.array_equal(raw.y, np.array([1.0, 2.0, 0.0])[t])
+    raw = load_sklearn(SklearnParams(loader="iris", positive="setosa"))
+    assert raw.task == "binary" and np.array_equal(raw.y, np.where(t == 0, 1.0, -1.0))
+    assert raw.info["classes"] == ["not setosa", "setosa"] and raw.info["class_counts"] == {"not setosa": 100,
+                                                                                            "setosa": 50}
+    raw = load_sklearn(SklearnParams(loader="digits", classes=[3, 5, 8], positive=5))
+    assert raw.X.shape[0] == 183 + 182 + 174 and (raw.y == 1).sum() == 182
+
+
+def test_problem_from_config():
+    p = stopwise.load_problem(["dataset=iris_setosa_versicolor"])
+    assert p.task == "binary" and p.objective == "logistic" and p.n_classes == 2
+    assert p.feature_names[-1] == "const" and p.d == 5
+    for X in (p.X_train, p.X_val, p.X_test):
+        assert np.all(X[:, -1] == 1.0)
+    # standardization is fitted on the training rows only
+    assert np.allclose(p.X_train[:, :4].mean(axis=0), 0, atol=1e-12)
+    assert np.allclose(p.X_train[:, :4].std(axis=0), 1)
+    assert set(np.unique(np.concatenate([p.y_train, p.y_val, p.y_test]))) == {-1.0, 1.0}
+    assert p.n_train + p.X_val.shape[0] + p.X_test.shape[0] == 100
+    m = stopwise.load_problem(["dataset=digits"])
+    assert m.task == "multiclass" and m.n_classes == 10 and m.training.k == 10
+    # pixels constant on the training rows are dropped (drop_constant), the rest kept
+    raw = datasets.load_digits().data[m.info["rows"]["train"]]
+    assert m.d == int(np.count_nonzero(raw.std(axis=0) > 0)) and m.training.dim == 10 * m.d
+    assert m.training.L == pytest.approx(np.linalg.norm(m.X_train, 2) ** 2 / (2 * m.n_train))
+    b = stopwise.load_problem(["dataset=digits_0v1"])
+    assert b.training.L == pytest.approx(np.linalg.norm(b.X_train, 2) ** 2 / (4 * b.n_train))
+    assert b.training_set("hinge").L == pytest.approx(4 * b.training.L)
+    sm = b.training_set("softmax")
+    assert sm.k == 2 and sm.dim == 2 * b.d
+
+
+def test_loss_option_and_identity():
+    base = spec_from_overrides(["dataset=iris_setosa_versicolor"])
+    same = spec_from_overrides(["dataset=iris_setosa_versicolor", "dataset.loss=logistic"])
+    hinge = spec_from_overrides(["dataset=iris_setosa_versicolor", "dataset.loss=hinge"])
+    assert base.run_id == same.run_id      # the task's default loss is implied
+    assert hinge.run_id != base.run_id     # another loss changes the numbers and the identity
+    assert build_problem(hinge.dataset, hinge.split, 0).objective == "hinge"
+    # options left at their defaults stay out of regression identities
+    base_cfg = {"name": "diabetes", "source": "sklearn", "params": {"loader": "diabetes"}}
+    d = normalize_dataset(dict(base_cfg, loss=None, add_constant=False))
+    assert d == normalize_dataset(base_cfg)
+    assert not {"loss", "add_constant"} & set(d) and not {"classes", "positive"} & set(d["params"])
+
+
+@pytest.mark.parametrize("overrides,fragment", [
+    (["dataset=iris", "+dataset.params.classes=[0]"], "at least 2 classes"),
+    (["dataset=iris", "+dataset.params.classes=[0,7]"], "not a class of iris"),
+    (["dataset=iris", "+dataset.params.classes=[setosa,setosa]"], "twice"),
+    (["dataset=iris_setosa_versicolor", "+dataset.params.positive=virginica"], "not among"),
+    (["dataset=diabetes", "+dataset.params.classes=[0,1]"], "classification loaders"),
+    (["dataset=iris", "dataset.loss=hinge"], "valid: softmax"),
+    (["dataset=diabetes", "dataset.loss=logistic"], "valid: squares"),
+    (["dataset=wine", "dataset.loss=cubic"], "must be one of"),
+    (["dataset=diabetes", "solver=hinge_diagonal"], "does not handle regression"),
+    (["dataset=iris", "solver=relu_net"], "does not handle multiclass"),
+    (["dataset=breast_cancer", "solver=hinge_diagonal", "dataset.loss=logistic"], "conflicts"),
+])
+def test_bad_input_is_one_line(overrides, fragment):
+    with pytest.raises(SpecError) as e:
+        spec_from_overrides(overrides)
+    msg = str(e.value)
+    assert fragment in msg and "\n" not in msg
