@@ -7,6 +7,20 @@ import subprocess
 import time
 
 
+_LIMITS: list = []
+
+
+def blas_threads() -> int:
+    """Cap BLAS at ``BENCH_BLAS_THREADS`` threads (default 1) for the rest of the process,
+    so that stopwise and its peer run on the same number of threads; returns the count."""
+    from threadpoolctl import threadpool_limits
+
+    n = int(os.environ.get("BENCH_BLAS_THREADS", "1"))
+    if not _LIMITS:
+        _LIMITS.append(threadpool_limits(limits=n, user_api="blas"))
+    return n
+
+
 def best_of(fn, repeat: int = 5, number: int = 1) -> float:
     """Smallest wall time of ``repeat`` measurements of ``number`` calls (seconds per call)."""
     best = float("inf")

@@ -18,9 +18,9 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).parent))
-from _common import best_of, machine  # noqa: E402
+from _common import blas_threads, best_of, machine  # noqa: E402
 
-from stopwise import fastpath, threads  # noqa: E402
+from stopwise import fastpath  # noqa: E402
 from stopwise.problem import TrainingSet  # noqa: E402
 from stopwise.solvers import get_solver  # noqa: E402
 from stopwise.solvers.base import make_params  # noqa: E402
@@ -88,7 +88,7 @@ def one_shape(n: int, d: int, repeat: int) -> None:
 
 
 def main() -> None:
-    threads.configure()
+    blas_threads()
     print("machine:\n" + machine())
     print("targets: blocked step <= 1.5 x one read of X per data pass; Gram step far below")
     one_shape(100_000, 400, repeat=7)

@@ -29,12 +29,11 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).parent))
-from _common import machine, spectral_problem  # noqa: E402
+from _common import blas_threads, machine, spectral_problem  # noqa: E402
 
 from sklearn.linear_model import Ridge, RidgeCV  # noqa: E402
 from sklearn.model_selection import GridSearchCV, PredefinedSplit  # noqa: E402
 
-from stopwise import threads  # noqa: E402
 from stopwise.runner import execute  # noqa: E402
 from stopwise.spec import spec_from_overrides  # noqa: E402
 
@@ -64,7 +63,7 @@ def holdout(problem, overrides):
 
 
 def main() -> None:
-    threads.configure()
+    blas_threads()
     print("machine:\n" + machine())
     p = spectral_problem(20_000, 300, decay=1.0, sigma=3.0)
     Xtr, ytr, Xva, yva, Xte, yte = p.X_train, p.y_train, p.X_val, p.y_val, p.X_test, p.y_test

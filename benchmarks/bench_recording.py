@@ -25,9 +25,8 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).parent))
-from _common import machine, spectral_problem  # noqa: E402
+from _common import blas_threads, machine, spectral_problem  # noqa: E402
 
-from stopwise import threads  # noqa: E402
 from stopwise.data import cached_problem  # noqa: E402
 from stopwise.runner import execute  # noqa: E402
 from stopwise.spec import spec_from_overrides  # noqa: E402
@@ -51,7 +50,7 @@ def measure(label, spec, problem, path="auto", record_path=None, repeat=3):
 
 
 def main() -> None:
-    threads.configure()
+    blas_threads()
     print("machine:\n" + machine())
     tall = spectral_problem(50_000, 300, sigma=3.0)  # 30000 training rows x 300: 69 MiB
     for residual in ("true", "false"):

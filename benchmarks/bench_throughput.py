@@ -21,9 +21,8 @@ import pandas as pd
 from sklearn.metrics import mean_squared_error
 
 sys.path.insert(0, str(Path(__file__).parent))
-from _common import machine  # noqa: E402
+from _common import blas_threads, machine  # noqa: E402
 
-from stopwise import threads  # noqa: E402
 from stopwise.campaign import expand  # noqa: E402
 from stopwise.data import cached_problem  # noqa: E402
 from stopwise.runner import execute, save  # noqa: E402
@@ -122,7 +121,7 @@ def _same_numbers(ours: pd.DataFrame, theirs: pd.DataFrame) -> float:
 
 
 def main() -> None:
-    threads.configure()
+    blas_threads()
     print("machine:\n" + machine())
     exp = expand("demo", [])
     specs, seen = [], set()

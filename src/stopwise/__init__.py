@@ -16,6 +16,7 @@ Public API::
     rank(selections, rule, ...)       tune on validation error, aggregate over seeds, rank across datasets
     rank_campaign(root, campaign, rule)  the same on a stored campaign (reads only the columns it needs)
     report_campaign(root, campaign)   static HTML report (tables, PNG figures) of a campaign
+    verify_root(root, quarantine=False)   check every trace and manifest under a results root
 """
 from __future__ import annotations
 
@@ -53,6 +54,9 @@ def report_campaign(root="results", campaign="", out=None, rule="holdout", **opt
     return write(root, campaign, out, rule=rule, **options)
 
 
+from .verify import verify_root  # noqa: E402
+
+
 def load_problem(overrides: list[str] | None = None) -> Problem:
     """The Problem a run with these Hydra overrides sees (same arrays, byte for byte).
 
@@ -76,5 +80,5 @@ __all__ = ["RawData", "SourceDef", "build_problem", "cached_problem", "register_
            "friedman_test", "nemenyi_q", "performance_profile", "rank", "rank_campaign", "rank_table",
            "report_campaign", "student_interval",
            "LOSSES", "get_loss", "HardMargin", "hard_margin", "is_separable", "normalized_margin",
-           "LinearModel", "TwoLayerReLU",
+           "LinearModel", "TwoLayerReLU", "verify_root",
            "AveragingParams", "SGDParams", "averaged", "minibatch_gradient"]

@@ -51,7 +51,16 @@ def check_data(specs: list[RunSpec]) -> None:
     written; then store them in the processed-problem cache for the runs (in any process)."""
     from .data import prepare_problems
 
-    prepare_problems(specs)
+    try:
+        prepare_problems(specs)
+    except MemoryError as e:  # e.g. dataset.params.n=1e15: bad input, not a crash
+        raise SpecError(f"a dataset of this sweep does not fit in memory: {' '.join(str(e).split())}") from None
+
+
+def campaign_digest(name: str, run_ids: list[str], stopping: list) -> str:
+    """SHA-256 of a campaign's identity: its name, its run ids (as a set) and its post-hoc rules."""
+    ident = {"name": name, "run_ids": sorted(run_ids), "stopping": stopping}
+    return hashlib.sha256(canonical_json(ident).encode()).hexdigest()
 
 
 def campaign_file(name: str) -> Path:
@@ -96,7 +105,10 @@ def expand(campaign: str | None, overrides: list[str]) -> Expansion:
         if params is not None:
             file_params = {str(k): str(v) for k, v in OmegaConf.to_container(params).items()}
         base.append(f"+campaign={campaign}")
-    user = [o for o in overrides if not o.startswith("campaign_id=")]
+    for o in overrides:
+        if o.lstrip("+~").split("=", 1)[0].strip() == "campaign_id":
+            raise SpecError(f"{o!r} is not allowed: campaign_id is set by stopwise sweep from the campaign's hash")
+    user = list(overrides)
     with hydra_context() as gh:
         parser = OverridesParser.create(config_loader=gh.config_loader())
         try:
@@ -125,8 +137,7 @@ def expand(campaign: str | None, overrides: list[str]) -> Expansion:
         r = s.stopping
         if r not in rules:
             rules.append(r)
-    ident = {"name": name, "run_ids": sorted(run_ids), "stopping": rules}
-    digest = hashlib.sha256(canonical_json(ident).encode()).hexdigest()
+    digest = campaign_digest(name, run_ids, rules)
     manifest = {
         "campaign_id": digest[:16], "digest": digest, "name": name,
         "definition": {"campaign": campaign, "overrides": user, "sweep_params": file_params,

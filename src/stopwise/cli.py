@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from pathlib import Path
 
@@ -10,7 +11,9 @@ EXIT_BAD_INPUT = 2
 USAGE = """stopwise COMMAND [args]
 
 commands:
-  sweep [CAMPAIGN] [overrides]   run a campaign (a sweep over Hydra overrides)
+  sweep [CAMPAIGN] [--jobs N] [overrides]
+                                 run a campaign (a sweep over Hydra overrides); --jobs N runs
+                                 N at once (Hydra's joblib launcher), hydra/launcher=slurm on a cluster
   run [overrides]                run one configuration
   rerun ID [--root DIR]          recompute a run or a whole campaign and compare with the stored traces
   ls [--campaign C] [--root DIR] list stored runs
@@ -25,7 +28,19 @@ commands:
                                  tune methods on validation error, rank them across datasets
   report CAMPAIGN [--rule R] [--out DIR] ...
                                  write an offline HTML report (tables, PNG figures) of a campaign
+  verify [ROOT] [--quarantine]   check every trace and manifest; move bad files to ROOT/quarantine/
 """
+
+
+class BadArguments(ValueError):
+    """A subcommand's options could not be parsed (one line)."""
+
+
+class ArgParser(argparse.ArgumentParser):
+    """argparse, but a usage error is one line ``stopwise: error: ...`` and exit code 2."""
+
+    def error(self, message: str):  # type: ignore[override]
+        raise BadArguments(f"{self.prog}: {' '.join(message.split())}; see {self.prog} --help")
 
 
 def _fail(msg: str) -> int:
@@ -33,25 +48,84 @@ def _fail(msg: str) -> int:
     return EXIT_BAD_INPUT
 
 
+def cores() -> int:
+    """CPUs this process may run on (its affinity mask where the OS has one)."""
+    try:
+        return len(os.sched_getaffinity(0)) or 1
+    except AttributeError:  # not on Linux
+        return os.cpu_count() or 1
+
+
+def parallel_overrides(jobs_arg: str, rest: list[str]) -> tuple[list[str], str]:
+    """Hydra overrides for ``--jobs N``: the joblib launcher with N workers, and BLAS threads
+    per run so that workers x threads <= cores (unless ``threads=`` is given)."""
+    from .spec import SpecError
+
+    try:
+        n = int(jobs_arg)
+    except ValueError:
+        raise SpecError(f"--jobs {jobs_arg!r} is invalid: must be a whole number of parallel workers >= 1") from None
+    if n < 1:
+        raise SpecError(f"--jobs {n} is invalid: must be a whole number of parallel workers >= 1")
+    clash = [o for o in rest if o.lstrip("+~").startswith(("hydra/launcher=", "hydra.launcher."))]
+    if clash:
+        raise SpecError(f"--jobs chooses the joblib launcher; drop {clash[0]!r} or --jobs")
+    given = [o for o in rest if o.lstrip("+~").split("=", 1)[0] == "threads"]
+    threads = max(1, cores() // n)
+    extra = ["hydra/launcher=joblib", f"hydra.launcher.n_jobs={n}"]
+    if not given:
+        extra.append(f"threads={threads}")
+        note = f"{n} workers x {threads} BLAS {'thread' if threads == 1 else 'threads'} on {cores()} cores"
+    else:
+        note = f"{n} workers, {given[-1]}"
+    return extra, note
+
+
+def _split_jobs(args: list[str]) -> tuple[list[str], str | None]:
+    """Take ``--jobs N`` / ``--jobs=N`` out of the sweep's arguments."""
+    rest, jobs, i = [], None, 0
+    while i < len(args):
+        a = args[i]
+        if a == "--jobs":
+            jobs = args[i + 1] if i + 1 < len(args) else ""
+            i += 2
+            continue
+        if a.startswith("--jobs="):
+            jobs = a.split("=", 1)[1]
+        else:
+            rest.append(a)
+        i += 1
+    return rest, jobs
+
+
 def cmd_sweep(argv: list[str]) -> int:
     from .campaign import expand, launch, tally
     from .spec import SpecError
 
     campaign = None
-    rest = list(argv)
+    rest, jobs = _split_jobs(list(argv))
     if rest and "=" not in rest[0] and not rest[0].startswith("-"):
         campaign = rest.pop(0)
     bad = [a for a in rest if a.startswith("-")]
     if bad:
-        return _fail(f"unknown option {bad[0]!r}; sweep takes a campaign name and key=value overrides")
+        return _fail(f"unknown option {bad[0]!r}; sweep takes a campaign name, --jobs N and key=value overrides")
+    note = ""
     try:
+        if jobs is not None:
+            extra, note = parallel_overrides(jobs, rest)
+            rest += extra
         exp = expand(campaign, rest)
     except SpecError as e:
         return _fail(str(e))
     n_runs = len(exp.run_ids)
     print(f"campaign {exp.name} ({exp.manifest['campaign_id']}): {len(exp.jobs)} jobs, {n_runs} distinct runs, "
-          f"results in {exp.root}", flush=True)
-    launch(exp)
+          f"results in {exp.root}" + (f"; {note}" if note else ""), flush=True)
+    stopped = ""
+    try:
+        launch(exp)
+    except Exception as e:  # the launcher itself gave up (a worker died, the cluster refused a job)
+        stopped = " ".join(f"{type(e).__name__}: {e}".split())[:300]
+        print(f"stopwise: the launcher stopped early: {stopped}", file=sys.stderr, flush=True)
     counts = tally(exp, exp.root)
     print(f"campaign {exp.name} ({exp.manifest['campaign_id']}): "
           + ", ".join(f"{v} {k}" for k, v in counts.items() if v or k == "completed")
@@ -60,7 +134,7 @@ def cmd_sweep(argv: list[str]) -> int:
         print(f"stopwise: {counts['failed'] + counts['missing']} runs did not finish; rerun the same command to retry them",
               file=sys.stderr)
         return 1
-    return 0
+    return 1 if stopped else 0
 
 
 def cmd_run(argv: list[str]) -> int:
@@ -89,7 +163,7 @@ def cmd_rerun(argv: list[str]) -> int:
     from .rerun import rerun_one, resolve
     from .store import Store, StoreError
 
-    ap = argparse.ArgumentParser(prog="stopwise rerun")
+    ap = ArgParser(prog="stopwise rerun")
     ap.add_argument("id", help="run id (or unique prefix) or campaign id / name")
     ap.add_argument("--root", default="results", help="results root (default: results)")
     a = ap.parse_args(argv)
@@ -123,7 +197,7 @@ def cmd_ls(argv: list[str]) -> int:
     from .query import load_runs
     from .store import StoreError
 
-    ap = argparse.ArgumentParser(prog="stopwise ls")
+    ap = ArgParser(prog="stopwise ls")
     ap.add_argument("--campaign", default=None, help="campaign name or id")
     ap.add_argument("--root", default="results")
     ap.add_argument("--summary", action="store_true",
@@ -143,6 +217,49 @@ def cmd_ls(argv: list[str]) -> int:
     print(f"{len(df)} runs: " + ", ".join(f"{n} {s}" for s, n in df["status"].value_counts().items())
           + f"  (root {a.root})")
     return 0
+
+
+def cmd_verify(argv: list[str]) -> int:
+    from .spec import SpecError
+    from .verify import QUARANTINE, verify_root
+
+    ap = ArgParser(prog="stopwise verify")
+    ap.add_argument("root", nargs="?", default="results", help="results root (default: results)")
+    ap.add_argument("--quarantine", action="store_true",
+                    help=f"move bad files and stale temporary files to ROOT/{QUARANTINE}/")
+    a = ap.parse_args(argv)
+    try:
+        rep = verify_root(a.root, quarantine=a.quarantine)
+    except SpecError as e:
+        return _fail(str(e))
+
+    def rel(p: Path) -> str:
+        try:
+            return str(p.relative_to(rep.root))
+        except ValueError:
+            return str(p)
+
+    for f in rep.bad:
+        print(f"bad   {f.path}: {f.problem}")
+    for f in rep.temporary:
+        print(f"temp  {f.path}: {f.problem}")
+    for f in rep.notes:
+        print(f"note  {f.path}: {f.problem}")
+    for src, dest in rep.moved:
+        print(f"moved {rel(src)} -> {rel(dest)}")
+    summary = (f"checked {rep.traces} {'trace' if rep.traces == 1 else 'traces'} and {rep.manifests} "
+               f"{'manifest' if rep.manifests == 1 else 'manifests'} under {a.root}: ")
+    if rep.ok:
+        print(summary + "all good")
+        return 0
+    parts = []
+    if rep.bad:
+        parts.append(f"{len(rep.bad)} bad")
+    if rep.temporary:
+        parts.append(f"{len(rep.temporary)} leftover temporary")
+    hint = "" if a.quarantine else f"; stopwise verify {a.root} --quarantine moves them aside"
+    print(summary + ", ".join(parts) + hint, file=sys.stderr)
+    return 1
 
 
 def summary_table(df):
@@ -167,7 +284,7 @@ def cmd_datasets(argv: list[str]) -> int:
     """``stopwise datasets`` lists the catalog; ``stopwise datasets fetch ...`` warms openml's cache."""
     if argv and argv[0] == "fetch":
         return _datasets_fetch(argv[1:])
-    ap = argparse.ArgumentParser(prog="stopwise datasets",
+    ap = ArgParser(prog="stopwise datasets",
                                  description="List every dataset a run can use; 'stopwise datasets fetch ID' warms "
                                              "the OpenML cache.")
     ap.parse_args(argv)
@@ -191,7 +308,7 @@ def _openml_cache_dir() -> str:
 def _datasets_fetch(argv: list[str]) -> int:
     import re
 
-    ap = argparse.ArgumentParser(prog="stopwise datasets fetch",
+    ap = ArgParser(prog="stopwise datasets fetch",
                                  description="Download OpenML datasets (ID or NAME@VERSION) and tasks into openml's "
                                              "cache, so that runs can read them without network.")
     ap.add_argument("refs", nargs="*", metavar="ID", help="dataset id, or NAME@VERSION")
@@ -225,7 +342,7 @@ def cmd_select(argv: list[str]) -> int:
     from .stopping import RuleError
     from .store import StoreError
 
-    ap = argparse.ArgumentParser(prog="stopwise select",
+    ap = ArgParser(prog="stopwise select",
                                  description="selected iterate per run and stopping rule (oracle = reference only)")
     ap.add_argument("campaign", help="campaign name or id")
     ap.add_argument("--rule", action="append", default=None, metavar="NAME[:k=v,...]",
@@ -257,7 +374,7 @@ def cmd_baselines(argv: list[str]) -> int:
     from .spec import SpecError
     from .store import StoreError
 
-    ap = argparse.ArgumentParser(prog="stopwise baselines",
+    ap = ArgParser(prog="stopwise baselines",
                                  description="explicit-regularization baselines selected on validation error")
     ap.add_argument("campaign", help="campaign name or id")
     ap.add_argument("--method", action="append", default=None, metavar="NAME",
@@ -386,7 +503,8 @@ def cmd_report(argv: list[str]) -> int:
 
 
 COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls, "select": cmd_select,
-            "baselines": cmd_baselines, "datasets": cmd_datasets, "rank": cmd_rank, "report": cmd_report}
+            "baselines": cmd_baselines, "datasets": cmd_datasets, "rank": cmd_rank, "report": cmd_report,
+            "verify": cmd_verify}
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -397,14 +515,10 @@ def main(argv: list[str] | None = None) -> int:
     cmd, rest = argv[0], argv[1:]
     if cmd not in COMMANDS:
         return _fail(f"unknown command {cmd!r}; valid: {', '.join(COMMANDS)}")
-    if cmd in ("sweep", "run", "rerun"):
-        from .threads import ThreadsError, requested
-
-        try:
-            requested()
-        except ThreadsError as e:
-            return _fail(str(e))
-    return COMMANDS[cmd](rest)
+    try:
+        return COMMANDS[cmd](rest)
+    except BadArguments as e:
+        return _fail(str(e))
 
 
 if __name__ == "__main__":

@@ -10,6 +10,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from .record import BASE_COLUMNS
 from .store import Store
 
 
@@ -36,6 +37,7 @@ def load_traces(root: str | Path = "results", campaign: str | None = None,
     store = Store(root)
     want = list(columns) if columns is not None else None
     tables = []
+    schema_so_far = None
     for path in _files(store, campaign):
         try:
             schema = pq.read_schema(path)
@@ -44,14 +46,41 @@ def load_traces(root: str | Path = "results", campaign: str | None = None,
                 row = first.to_pylist()[0] if first.num_rows else None
                 if row is None or any(k not in row or not _match(row[k], v) for k, v in filters.items()):
                     continue
+            wrong = [f"{n} is {schema.field(n).type}" for n, ok in EXPECTED_TYPES.items()
+                     if n in schema.names and not ok(schema.field(n).type)]
+            if wrong:
+                raise TypeError("column types differ from the trace schema: " + ", ".join(wrong))
             cols = None if want is None else [c for c in want if c in schema.names]
-            tables.append(pq.read_table(path, columns=cols))
+            table = pq.read_table(path, columns=cols)
+            # a file whose column types cannot join the others (e.g. tampered) is skipped by name
+            merged = table.schema if schema_so_far is None else pa.unify_schemas(
+                [schema_so_far, table.schema], promote_options="permissive")
         except Exception as e:  # a corrupted file must not sink the whole query
-            warnings.warn(f"skipping unreadable trace {path}: {type(e).__name__}: {e}", stacklevel=2)
+            warnings.warn(f"skipping unreadable trace {path}: {type(e).__name__}: {_one_line(e)}", stacklevel=2)
+            continue
+        schema_so_far = merged
+        tables.append(table)
     if not tables:
         return pd.DataFrame(columns=want or [])
     table = pa.concat_tables(tables, promote_options="permissive")
     return table.to_pandas()
+
+
+def _numeric(t: pa.DataType) -> bool:
+    return pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_null(t)
+
+
+# Types of the columns every trace has (docs/schema.md); a file that differs is skipped by name.
+EXPECTED_TYPES = {
+    **{c: (pa.types.is_integer if c == "iteration" else _numeric) for c in BASE_COLUMNS},
+    **{c: (lambda t: pa.types.is_string(t) or pa.types.is_large_string(t) or pa.types.is_null(t))
+       for c in ("run_id", "dataset", "task", "solver", "status")},
+    "seed": lambda t: pa.types.is_integer(t) or pa.types.is_null(t),
+}
+
+
+def _one_line(e: BaseException) -> str:
+    return " ".join(str(e).split())[:300]
 
 
 RUN_COLUMNS = ("run_id", "dataset", "solver", "seed", "status", "iterations", "passes", "seconds",
@@ -65,19 +94,20 @@ def load_runs(root: str | Path = "results", campaign: str | None = None) -> pd.D
     for path in _files(store, campaign):
         try:
             meta = store.read_meta(path)
-        except Exception as e:
-            warnings.warn(f"skipping unreadable trace {path}: {type(e).__name__}: {e}", stacklevel=2)
+            cfg = meta.get("config", {})
+            s = meta.get("summary", {})
+            row = {"run_id": meta.get("run_id"), "dataset": cfg.get("dataset", {}).get("name"),
+                   "solver": cfg.get("solver"), "seed": cfg.get("seed"), "status": meta.get("status")}
+            for k, v in (cfg.get("params") or {}).items():
+                if k not in RUN_COLUMNS:
+                    row[k] = v
+            for k in ("iterations", "passes", "seconds", "best_val_error", "best_val_iteration",
+                      "test_at_best_val", "final_test_error"):
+                row[k] = s.get(k, math.nan)
+            row["message"] = meta.get("message", "")
+        except Exception as e:  # unreadable, or metadata of the wrong shape
+            warnings.warn(f"skipping unreadable trace {path}: {type(e).__name__}: {_one_line(e)}", stacklevel=2)
             continue
-        cfg = meta.get("config", {})
-        s = meta.get("summary", {})
-        row = {"run_id": meta.get("run_id"), "dataset": cfg.get("dataset", {}).get("name"),
-               "solver": cfg.get("solver"), "seed": cfg.get("seed"), "status": meta.get("status")}
-        for k, v in (cfg.get("params") or {}).items():
-            row[k] = v
-        for k in ("iterations", "passes", "seconds", "best_val_error", "best_val_iteration",
-                  "test_at_best_val", "final_test_error"):
-            row[k] = s.get(k, math.nan)
-        row["message"] = meta.get("message", "")
         rows.append(row)
     if not rows:
         return pd.DataFrame(columns=list(RUN_COLUMNS))

@@ -11,7 +11,7 @@ from typing import Any
 
 import numpy as np
 
-from . import __version__, fastpath, threads
+from . import __version__, fastpath
 from .data import cached_problem
 from .losses import resolve_loss
 from .problem import Problem
@@ -93,7 +93,6 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
     ``record.residual: false`` regression traces leave out the residual statistics
     (``residual_dot_prev``, ``ncp_distance``), whose every row reads the training rows.
     """
-    threads.configure()
     problem = problem if problem is not None else cached_problem(spec.dataset, spec.split, spec.seed)
     sdef = get_solver(spec.solver)
     if problem.task not in sdef.tasks:
@@ -223,32 +222,37 @@ _ENVIRONMENT: dict[str, Any] = {}
 
 
 def environment() -> dict[str, Any]:
-    """Package versions, BLAS/OpenMP thread counts and machine, computed once per process
-    (after the thread count is set, see :mod:`stopwise.threads`)."""
-    threads.configure()
-    if not _ENVIRONMENT:
-        _ENVIRONMENT.update(_environment())
-    return {k: (dict(v) if isinstance(v, dict) else v) for k, v in _ENVIRONMENT.items()}
+    """Package versions, machine, and the BLAS/OpenMP thread counts in force now.
 
+    Versions are read once per process; the thread counts come from a threadpoolctl
+    controller kept for the process (rebuilt when modules were imported since), so
+    recording them costs microseconds per run instead of a scan of the loaded libraries.
+    """
+    import sys
 
-def _environment() -> dict[str, Any]:
-    import importlib.metadata as md
+    if "versions" not in _ENVIRONMENT:
+        import importlib.metadata as md
 
-    versions = {"stopwise": __version__, "python": platform.python_version()}
-    for pkg in ("numpy", "scipy", "scikit-learn", "pandas", "pyarrow", "hydra-core"):
-        try:
-            versions[pkg] = md.version(pkg)
-        except md.PackageNotFoundError:
-            versions[pkg] = None
-    threads_: dict[str, Any] = {}
+        versions = {"stopwise": __version__, "python": platform.python_version()}
+        for pkg in ("numpy", "scipy", "scikit-learn", "pandas", "pyarrow", "hydra-core"):
+            try:
+                versions[pkg] = md.version(pkg)
+            except md.PackageNotFoundError:
+                versions[pkg] = None
+        _ENVIRONMENT["versions"] = versions
+    threads: dict[str, Any] = {}
     try:
-        from threadpoolctl import threadpool_info
+        ctl = _ENVIRONMENT.get("controller")
+        if ctl is None or _ENVIRONMENT.get("modules") != len(sys.modules):
+            from threadpoolctl import ThreadpoolController
 
-        for info in threadpool_info():
-            threads_[f"{info.get('user_api')}:{info.get('internal_api')}"] = info.get("num_threads")
+            ctl = ThreadpoolController()
+            _ENVIRONMENT["controller"], _ENVIRONMENT["modules"] = ctl, len(sys.modules)
+        for info in ctl.info():
+            threads[f"{info.get('user_api')}:{info.get('internal_api')}"] = info.get("num_threads")
     except Exception:  # threadpoolctl missing or failing must not stop a run
         pass
-    return {"versions": versions, "threads": threads_, "machine": platform.machine()}
+    return {"versions": dict(_ENVIRONMENT["versions"]), "threads": threads, "machine": platform.machine()}
 
 
 def run_level_columns(spec: RunSpec, task: str, status: str, loss: str | None = None) -> dict[str, Any]:
@@ -262,7 +266,6 @@ def run_level_columns(spec: RunSpec, task: str, status: str, loss: str | None = 
 def run_spec(spec: RunSpec, root: str | Path = "results", force: bool = False,
              store: Store | None = None) -> RunOutcome:
     """Execute and store one run unless a readable finished trace already exists."""
-    threads.configure()  # an invalid STOPWISE_BLAS_THREADS stops here, before anything is written
     store = store or Store(root)
     rid = spec.run_id
     if not force and store.is_done(rid):

@@ -19,7 +19,7 @@ from typing import Any, Dict, List, Optional
 from .data import DataError, dataset_task, normalize_dataset, split_rows  # noqa: F401
 from .data.split import SPLIT_KINDS
 from .solvers import SOLVERS, get_solver
-from .solvers.base import Interval, ParamError, UnknownSolver, make_params
+from .solvers.base import Choice, Flag, Interval, ParamError, UnknownSolver, make_params
 from .stopping import RuleError, normalize_stopping
 
 TRACE_FORMAT = 1
@@ -107,24 +107,50 @@ class StopwiseConfig:
     seed: int = 0
     results_root: str = "results"
     campaign_id: Optional[str] = None
+    threads: Optional[int] = None  # BLAS/OpenMP threads per run (not identity); see docs/cluster.md
 
 
 # halting rules that read the residual columns (record.residual)
 RESIDUAL_RULES = ("monotone_error", "ncp")
 
 # numeric constraints of the fixed schemas, as data (read by validation and by tests)
-FIELD_CONSTRAINTS: dict[str, Interval] = {
+FIELD_CONSTRAINTS: dict[str, Interval | Choice] = {
+    "split.kind": Choice(SPLIT_KINDS),
     "budget.iterations": Interval(1, None, integer=True),
     "budget.passes": Interval(0.0, None, low_closed=False),
     "budget.diverge_factor": Interval(1.0, None, low_closed=False),
     "record.every": Interval(1, None, integer=True),
     "record.per_pass": Interval(0.0, None, low_closed=False),
+    "record.residual": Flag(),
     "split.test": Interval(0.0, None),
     "split.val": Interval(0.0, None),
     "split.fold": Interval(0, None, integer=True),
     "split.repeat": Interval(0, None, integer=True),
     "seed": Interval(0, 2**32 - 1, integer=True),
+    "threads": Interval(1, None, integer=True),
 }
+
+# Names that end up in file or folder names under a results root: no separators, no
+# leading dot, so nothing named in a config can reach outside the root.
+SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_-]{0,63}$")
+
+
+def check_results_root(value: Any) -> str:
+    """A results root is a plain, non-empty path string (no NUL or line breaks)."""
+    if not isinstance(value, str) or not value.strip():
+        raise SpecError(f"results_root={value!r} is invalid: must be a non-empty folder path")
+    if any(ch in value for ch in "\0\n\r"):
+        raise SpecError(f"results_root={value!r} is invalid: a path may not contain NUL or line breaks")
+    return value
+
+
+def check_campaign_id(value: Any) -> Optional[str]:
+    if value is None:
+        return None
+    if not isinstance(value, str) or not SAFE_NAME.match(value):
+        raise SpecError(f"campaign_id={value!r} is invalid: letters, digits, '_' and '-' only "
+                        "(it is set by stopwise sweep)")
+    return value
 
 
 def solver_schema(name: str) -> type:
@@ -225,7 +251,7 @@ def _canon(obj: Any) -> Any:
     if isinstance(obj, float):
         if not math.isfinite(obj):
             raise SpecError(f"non-finite number {obj!r} in a run identity")
-        return obj
+        return obj + 0.0  # -0.0 and 0.0 are one number: one spelling
     return obj
 
 
@@ -263,8 +289,7 @@ def spec_from_config(cfg: Any) -> RunSpec:
         raise SpecError(str(e)) from None
 
     split = dict(SplitConfig().__dict__, **(c.get("split") or {}))
-    if split["kind"] not in SPLIT_KINDS:
-        raise SpecError(f"split.kind={split['kind']!r} is invalid: must be one of {', '.join(SPLIT_KINDS)}")
+    _check("split.kind", split["kind"])
     split["test"] = float(_check("split.test", split["test"]))
     split["val"] = float(_check("split.val", split["val"]))
     if split["test"] < 1 and split["val"] < 1 and split["test"] + split["val"] >= 1:
@@ -272,14 +297,16 @@ def spec_from_config(cfg: Any) -> RunSpec:
                         "fractions must sum to < 1")
     if split["kind"] != "indices":
         split["train_rows"] = split["val_rows"] = split["test_rows"] = None
+    # a bad value is refused even where the key is unused (one line, exit 2), never ignored
+    fold = int(_check("split.fold", split.get("fold", 0)))
+    repeat = int(_check("split.repeat", split.get("repeat", 0)))
     if split["kind"] != "indices" or split["train_rows"] is not None or split["test_rows"] is not None:
         # fold and repeat pick a predefined fold (an OpenML task's); elsewhere they change
         # nothing, so they stay out of the run identity
         split.pop("fold", None)
         split.pop("repeat", None)
     else:
-        split["fold"] = int(_check("split.fold", split["fold"]))
-        split["repeat"] = int(_check("split.repeat", split["repeat"]))
+        split["fold"], split["repeat"] = fold, repeat
 
     solver_cfg = dict(c["solver"])
     name = solver_cfg.pop("name", None)
@@ -316,8 +343,7 @@ def spec_from_config(cfg: Any) -> RunSpec:
     if unknown:
         raise SpecError(f"record has no key {unknown[0]!r}; valid: {', '.join(RecordConfig().__dict__)}")
     record["every"] = int(_check("record.every", record["every"]))
-    if not isinstance(record["residual"], bool):
-        raise SpecError(f"record.residual={record['residual']!r} is invalid: must be true or false")
+    _check("record.residual", record["residual"])
     if record["residual"]:
         del record["residual"]  # the default is absent from the identity (runs keep their ids)
     if record["per_pass"] is None:
@@ -328,6 +354,11 @@ def spec_from_config(cfg: Any) -> RunSpec:
             raise SpecError(f"record.every={record['every']} and record.per_pass={record['per_pass']:g} "
                             "are exclusive: set one of them")
     seed = int(_check("seed", c.get("seed", 0)))
+    if c.get("threads") is not None:
+        _check("threads", c["threads"])
+    if "results_root" in c:
+        check_results_root(c["results_root"])
+    check_campaign_id(c.get("campaign_id"))
     try:
         stopping = normalize_stopping(dict(StoppingConfig().__dict__, **(c.get("stopping") or {})))
     except RuleError as e:
@@ -343,14 +374,27 @@ def spec_from_identity(ident: dict) -> RunSpec:
     """Rebuild a RunSpec from a stored identity (data only: nothing is imported or called)."""
     if not isinstance(ident, dict) or ident.get("format") != TRACE_FORMAT:
         raise SpecError("stored config has an unknown trace format")
-    cfg = {
-        "dataset": ident["dataset"], "split": ident["split"],
-        "solver": dict(ident["solver"]["params"], name=ident["solver"]["name"]),
-        "budget": ident["budget"], "record": ident["record"], "seed": ident["seed"],
-    }
-    if "halt" in ident:
-        cfg["stopping"] = {"rule": ident["halt"]["rule"], "halt": True, "params": ident["halt"]["params"]}
-    return spec_from_config(cfg)
+    try:
+        for key in ("dataset", "split", "solver", "budget", "record"):
+            if not isinstance(ident[key], dict):
+                raise SpecError(f"stored config: {key} is not a mapping")
+        if not isinstance(ident["solver"]["params"], dict):
+            raise SpecError("stored config: solver.params is not a mapping")
+        cfg = {
+            "dataset": ident["dataset"], "split": ident["split"],
+            "solver": dict(ident["solver"]["params"], name=ident["solver"]["name"]),
+            "budget": ident["budget"], "record": ident["record"], "seed": ident["seed"],
+        }
+        if "halt" in ident:
+            halt = ident["halt"]
+            if not isinstance(halt, dict) or not isinstance(halt.get("params"), dict):
+                raise SpecError("stored config: halt is not a mapping with params")
+            cfg["stopping"] = {"rule": halt["rule"], "halt": True, "params": halt["params"]}
+        return spec_from_config(cfg)
+    except SpecError:
+        raise
+    except (KeyError, TypeError, ValueError, AttributeError) as e:
+        raise SpecError(f"stored config is malformed: {type(e).__name__}: {e}") from None
 
 
 # ---------------------------------------------------------------- composing with Hydra
@@ -369,6 +413,18 @@ def campaigns_dir() -> Path:
 
 
 def group_options(group: str) -> list[str]:
+    """Options of a config group: Hydra's own view when it is initialized (which includes
+    plugin configs such as ``hydra/launcher``), else the yaml files under conf/."""
+    try:
+        from hydra.core.global_hydra import GlobalHydra
+
+        gh = GlobalHydra.instance()
+        if gh.is_initialized():
+            opts = gh.config_loader().get_group_options(group)
+            if opts:
+                return sorted(set(opts))
+    except Exception:  # an error message must never fail
+        pass
     d = conf_dir() / group
     return sorted(p.stem for p in d.glob("*.yaml")) if d.is_dir() else []
 
@@ -390,9 +446,26 @@ def hydra_error_line(e: BaseException) -> str:
             return f"cannot set {m.group(1)}: {c}"
         m = re.search(r"Error merging override (\S+)", first)
         if m:
+            valid = constraint_for(m.group(1).lstrip("+~").split("=", 1)[0])
+            if valid is not None:
+                return f"{m.group(1)} is invalid: must be {valid.describe()} ({c})"
             return f"{m.group(1)} is invalid: {c}"
         return f"{first} {c}"
     return first
+
+
+def constraint_for(key: str) -> Interval | Choice | None:
+    """The declared constraint of a config key, when one is known without composing:
+    the fixed schemas' fields, and ``solver.X`` when every solver with a param X agrees."""
+    if key in FIELD_CONSTRAINTS:
+        return FIELD_CONSTRAINTS[key]
+    if key.startswith("solver.") and key.count(".") == 1:
+        name = key.split(".", 1)[1]
+        found = {f.metadata.get("constraint") for d in SOLVERS.values()
+                 for f in dataclasses.fields(d.params) if f.name == name}
+        if len(found) == 1:
+            return found.pop()
+    return None
 
 
 def compose(overrides: list[str], return_hydra_config: bool = False):
@@ -403,12 +476,13 @@ def compose(overrides: list[str], return_hydra_config: bool = False):
     from omegaconf.errors import OmegaConfBaseException
 
     register_configs()
-    try:
-        with initialize_config_dir(config_dir=str(conf_dir()), version_base="1.3"):
+    with initialize_config_dir(config_dir=str(conf_dir()), version_base="1.3"):
+        try:
             return hcompose(config_name="config", overrides=list(overrides),
                             return_hydra_config=return_hydra_config)
-    except (HydraException, OmegaConfBaseException) as e:
-        raise SpecError(hydra_error_line(e)) from None
+        except (HydraException, OmegaConfBaseException) as e:
+            line = hydra_error_line(e)  # while Hydra is initialized, so it can list group options
+    raise SpecError(line)
 
 
 def spec_from_overrides(overrides: list[str]) -> RunSpec:

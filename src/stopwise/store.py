@@ -29,6 +29,7 @@ META_KEY = b"stopwise"
 RUN_LEVEL = ("run_id", "dataset", "task", "loss", "solver", "seed", "status")
 STATUSES = ("completed", "diverged", "failed")
 _ID = re.compile(r"^[0-9a-f]{4,64}$")
+_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")  # the campaign file names' rule (campaign.NAME)
 
 
 class StoreError(ValueError):
@@ -99,12 +100,15 @@ class Store:
         md = pq.read_schema(path).metadata or {}
         if META_KEY not in md:
             raise StoreError(f"{path}: no stopwise metadata")
-        return json.loads(md[META_KEY])
+        meta = json.loads(md[META_KEY])
+        if not isinstance(meta, dict):
+            raise StoreError(f"{path}: stopwise metadata is not a JSON object")
+        return meta
 
     def run_meta(self, run_id: str) -> dict[str, Any] | None:
         """Metadata of a stored run, or None when it is missing or unreadable."""
         path = self.run_path(run_id)
-        if not path.exists():
+        if not path.exists() or not self.inside(path):
             return None
         try:
             return self.read_meta(path)
@@ -117,9 +121,39 @@ class Store:
         return meta is not None and meta.get("status") in ("completed", "diverged")
 
     def run_files(self, run_ids: Iterable[str] | None = None) -> list[Path]:
+        """Stored trace files (hidden temporary files of writes in progress never match).
+        A file that is a link leading outside the results root is skipped with a warning."""
         if run_ids is None:
-            return sorted(self.runs_dir.glob("*.parquet")) if self.runs_dir.is_dir() else []
-        return [p for p in (self.run_path(r) for r in run_ids) if p.exists()]
+            files = sorted(self.runs_dir.glob("*.parquet")) if self.runs_dir.is_dir() else []
+        else:
+            files = [p for p in (self.run_path(r) for r in run_ids) if p.exists()]
+        out = []
+        for p in files:
+            if self.inside(p):
+                out.append(p)
+            else:
+                warnings.warn(f"skipping {p}: it links outside the results root {self.root}", stacklevel=2)
+        return out
+
+    def inside(self, path: Path) -> bool:
+        """Whether ``path``, links followed, stays inside this results root (or inside its own
+        folder, so that a root or a ``runs/`` folder that is itself a link keeps working)."""
+        try:
+            real = Path(path).resolve()
+            if real.parent == Path(path).parent.resolve():
+                return True
+            real.relative_to(self.root.resolve())
+            return True
+        except (ValueError, OSError):
+            return False
+
+    def temporary_files(self) -> list[Path]:
+        """Hidden temporary files left by writes that never finished (a killed process)."""
+        out: list[Path] = []
+        for d in (self.runs_dir, self.campaigns_dir):
+            if d.is_dir():
+                out.extend(sorted(d.glob(".*.tmp")))
+        return out
 
     def resolve_run(self, prefix: str) -> str:
         """Full 16-digit file id of the unique run starting with ``prefix``."""
@@ -143,9 +177,11 @@ class Store:
             return out
         for p in sorted(self.campaigns_dir.glob("*.json")):
             try:
-                out.append(json.loads(p.read_text()))
-            except (OSError, ValueError):
-                warnings.warn(f"skipping unreadable campaign manifest {p}", stacklevel=2)
+                if not self.inside(p):
+                    raise StoreError("it links outside the results root")
+                out.append(check_manifest_shape(json.loads(p.read_text())))
+            except (OSError, ValueError) as e:
+                warnings.warn(f"skipping unreadable campaign manifest {p}: {e}", stacklevel=2)
         return out
 
     def find_campaign(self, ref: str) -> dict[str, Any]:
@@ -158,9 +194,26 @@ class Store:
             raise StoreError(f"campaign id prefix {ref!r} is ambiguous")
         named = [c for c in all_ if c.get("name") == ref]
         if named:
-            return max(named, key=lambda c: c.get("created", 0))
+            return max(named, key=lambda c: c["created"] if isinstance(c.get("created"), (int, float)) else 0)
         names = sorted({c.get("name", "?") for c in all_})
         raise StoreError(f"no campaign {ref!r} under {self.root}; known: {', '.join(names) or '(none)'}")
+
+
+def check_manifest_shape(m: Any) -> dict[str, Any]:
+    """The fields readers rely on, with the right types (raises StoreError otherwise)."""
+    if not isinstance(m, dict):
+        raise StoreError("manifest is not a JSON object")
+    cid = m.get("campaign_id")
+    if not isinstance(cid, str) or not _ID.match(cid):
+        raise StoreError(f"manifest campaign_id {cid!r} is not a hex id")
+    ids = m.get("run_ids")
+    if not isinstance(ids, list) or not all(isinstance(r, str) and _ID.match(r) for r in ids):
+        raise StoreError("manifest run_ids is not a list of hex run ids")
+    name = m.get("name", "adhoc")
+    if not isinstance(name, str) or not _NAME.match(name):
+        # names become folder names (e.g. reports/<name>/): nothing may climb out of the root
+        raise StoreError(f"manifest name {name!r} is not a campaign name (letters, digits, '_', '-', '.')")
+    return m
 
 
 def _constant_column(v: Any, n: int) -> pa.Array:

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import re
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
@@ -67,8 +68,9 @@ class Interval:
         return True
 
     def describe(self) -> str:
-        lo = "-inf" if self.low is None else f"{self.low:g}"
-        hi = "inf" if self.high is None else f"{self.high:g}"
+        num = (lambda x: str(int(x))) if self.integer else (lambda x: f"{x:g}")
+        lo = "-inf" if self.low is None else num(self.low)
+        hi = "inf" if self.high is None else num(self.high)
         left = "[" if self.low_closed and self.low is not None else "("
         right = "]" if self.high_closed and self.high is not None else ")"
         kind = "an integer" if self.integer else "a number"
@@ -136,6 +138,26 @@ def validate_params(params: Any, owner: str) -> None:
             raise ParamError(f"{owner}.{f.name}={v!r} is invalid: must be {c.describe()}")
 
 
+def _type_names(tp: Any) -> set[str]:
+    text = tp if isinstance(tp, str) else getattr(tp, "__name__", str(tp))
+    return set(re.split(r"[\s|\[\],.]+", text)) - {""}
+
+
+def _coerce_number(tp: Any, v: Any) -> Any:
+    """One spelling per number for typed fields, so the run hash never depends on it:
+    an int given to a float field becomes a float (``1`` -> ``1.0``), and an integral float
+    given to an int field becomes an int (``400.0`` -> ``400``). Anything else is left for
+    the constraint to judge."""
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        return v
+    names = _type_names(tp)
+    if "float" in names and "int" not in names and isinstance(v, int):
+        return float(v)
+    if "int" in names and "float" not in names and isinstance(v, float) and v.is_integer():
+        return int(v)
+    return v
+
+
 def make_params(cls: type, values: dict[str, Any], owner: str):
     """Build and validate a params dataclass from a plain mapping."""
     names = {f.name for f in dataclasses.fields(cls)}
@@ -147,10 +169,7 @@ def make_params(cls: type, values: dict[str, Any], owner: str):
     kwargs = {}
     for f in dataclasses.fields(cls):
         if f.name in values:
-            v = values[f.name]
-            if f.type in ("float", float) and isinstance(v, int) and not isinstance(v, bool):
-                v = float(v)
-            kwargs[f.name] = v
+            kwargs[f.name] = _coerce_number(f.type, values[f.name])
     p = cls(**kwargs)
     validate_params(p, owner)
     return p

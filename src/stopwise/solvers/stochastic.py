@@ -80,6 +80,10 @@ class CountOrFraction:
     def outside(self) -> Any:
         return 0.0
 
+    def examples(self) -> tuple[float, ...]:
+        """Valid values, for tests generated from the declared constraints."""
+        return (0.01, 0.25, 0.5, 1.0, 2.0, 7.0, 64.0)
+
 
 BATCH = CountOrFraction()
 

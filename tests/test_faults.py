@@ -1,0 +1,145 @@
+"""Faults with real processes: a sweep killed with SIGKILL and resumed, two sweeps of the same
+campaign at once, and a writer killed in the middle of writing a file."""
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pyarrow.parquet as pq
+import pytest
+
+import stopwise
+from stopwise.cli import main
+from stopwise.store import Store
+from stopwise.verify import TEMP_GRACE_SECONDS, check_trace, verify_root
+
+from sweep_helpers import assert_same_traces, cli, popen
+
+# 6 runs of a few tenths of a second each: long enough to kill the sweep in the middle
+SWEEP = ["sweep", "dataset=illposed", "solver=gd,nesterov", "seed=0,1,2", "budget.iterations=1500"]
+
+
+@pytest.fixture(scope="module")
+def uninterrupted(tmp_path_factory):
+    root = tmp_path_factory.mktemp("uninterrupted") / "res"
+    assert main([*SWEEP, f"results_root={root}"]) == 0
+    assert len(list((root / "runs").glob("*.parquet"))) == 6
+    return root
+
+
+def visible_traces(root: Path) -> list[Path]:
+    d = root / "runs"
+    return sorted(d.glob("*.parquet")) if d.is_dir() else []
+
+
+def test_sigkill_mid_sweep_then_the_same_command_finishes_it(uninterrupted, tmp_path):
+    root = tmp_path / "res"
+    proc = popen(*SWEEP, f"results_root={root}", cwd=tmp_path)
+    seen_whole = set()
+    deadline = time.monotonic() + 240
+    try:
+        while proc.poll() is None and time.monotonic() < deadline:
+            for p in visible_traces(root):
+                if p not in seen_whole:
+                    pq.read_table(p)  # every visible file reads back whole, at any moment
+                    seen_whole.add(p)
+            if len(seen_whole) >= 2:
+                proc.send_signal(signal.SIGKILL)
+                break
+            time.sleep(0.01)
+    finally:
+        if proc.poll() is None and len(seen_whole) < 2:
+            proc.kill()
+        proc.wait(timeout=60)
+    assert proc.returncode == -signal.SIGKILL, "the sweep ended before it could be killed in the middle"
+    survivors = visible_traces(root)
+    assert 2 <= len(survivors) < 6
+    store = Store(root)
+    for p in survivors:
+        assert check_trace(p, store) == "", p
+    kept = {p.name: (p.stat().st_ino, p.stat().st_mtime_ns) for p in survivors}
+    # the campaign's manifest was written before the first run, so resume knows every run id
+    (manifest,) = (root / "campaigns").glob("*.json")
+    assert len(json.loads(manifest.read_text())["run_ids"]) == 6
+
+    res = cli(*SWEEP, f"results_root={root}", cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    assert res.stdout.count("skipped (done)") == len(survivors)
+    assert "6 completed" in res.stdout.splitlines()[-1]
+    # finished runs were kept as they were (same file, never rewritten)
+    assert {p.name: (p.stat().st_ino, p.stat().st_mtime_ns) for p in survivors} == kept
+    assert_same_traces(uninterrupted, root)
+    # a write cut by the kill can only have left a hidden temporary file, which no reader lists
+    for t in store.temporary_files():
+        assert t.name.startswith(".") and t.name.endswith(".tmp")
+    assert len(stopwise.load_runs(root)) == 6
+
+
+def test_two_sweeps_of_one_campaign_at_once(uninterrupted, tmp_path):
+    root = tmp_path / "res"
+    a = popen(*SWEEP, f"results_root={root}", cwd=tmp_path)
+    b = popen(*SWEEP, f"results_root={root}", cwd=tmp_path)
+    out_a, err_a = a.communicate(timeout=300)
+    out_b, err_b = b.communicate(timeout=300)
+    assert a.returncode == 0, err_a
+    assert b.returncode == 0, err_b
+    assert "6 completed" in out_a and "6 completed" in out_b
+    names = os.listdir(root / "runs")
+    assert len(names) == 6 and all(n.endswith(".parquet") and not n.startswith(".") for n in names)
+    assert len(os.listdir(root / "campaigns")) == 1
+    rep = verify_root(root)
+    assert rep.ok and rep.traces == 6 and rep.manifests == 1, rep
+    runs = stopwise.load_runs(root)
+    assert len(runs) == 6 and runs["run_id"].is_unique
+    assert_same_traces(uninterrupted, root)
+
+
+WRITER = """
+import sys, time
+from pathlib import Path
+from stopwise.store import _atomic_write
+
+def write(fh):
+    fh.write(b"PAR1" + b"\\0" * 4096)   # the first bytes of a Parquet file, never finished
+    fh.flush()
+    print("writing", flush=True)
+    time.sleep(120)
+
+_atomic_write(Path(sys.argv[1]), write)
+"""
+
+
+def test_a_writer_killed_mid_write_leaves_only_a_hidden_temporary_file(tmp_path, capsys):
+    root = tmp_path / "res"
+    stopwise.run(["dataset=wellposed", "solver=gd", "budget.iterations=5"], root=root)
+    target = root / "runs" / ("ab" * 8 + ".parquet")
+    proc = subprocess.Popen([sys.executable, "-c", WRITER, str(target)], stdout=subprocess.PIPE, text=True)
+    assert proc.stdout.readline().strip() == "writing"
+    proc.send_signal(signal.SIGKILL)
+    proc.wait(timeout=30)
+    store = Store(root)
+    (tmp,) = store.temporary_files()
+    assert tmp.parent == target.parent and tmp.name.startswith("." + target.name) and not target.exists()
+    # readers never see it
+    assert [p.name for p in store.run_files()] == [p.name for p in visible_traces(root)]
+    assert len(stopwise.load_traces(root)) == 6 and len(stopwise.load_runs(root)) == 1
+    # verify: fresh temporary files may belong to a write in progress and are left alone ...
+    assert main(["verify", str(root), "--quarantine"]) == 0
+    out = capsys.readouterr().out
+    assert "write may be in progress" in out and tmp.exists()
+    # ... stale ones are reported and quarantined
+    old = time.time() - TEMP_GRACE_SECONDS - 60
+    os.utime(tmp, (old, old))
+    assert main(["verify", str(root)]) == 1
+    assert f"temp  {tmp}" in capsys.readouterr().out
+    assert main(["verify", str(root), "--quarantine"]) == 1
+    out = capsys.readouterr().out
+    assert not tmp.exists() and (root / "quarantine" / "runs" / tmp.name.lstrip(".")).exists()
+    assert f"moved runs/{tmp.name} -> quarantine/runs/{tmp.name.lstrip('.')}" in out
+    assert main(["verify", str(root)]) == 0
+    assert "all good" in capsys.readouterr().out
