@@ -35,13 +35,33 @@ from . import sparsity  # noqa: E402,F401  (registers the nnz / support columns)
 from .solvers.averaging import AveragingParams, averaged  # noqa: E402
 from .solvers.stochastic import SGDParams  # noqa: E402
 from .spec import RunSpec, SpecError, spec_from_overrides  # noqa: E402
-from .selection import select  # noqa: E402
-from .baselines import BASELINES, ensure_baselines, fit_path, load_baselines  # noqa: E402
-from .references import load_references  # noqa: E402
-from .stopping import RULES, RuleContext, Selection, apply_rule  # noqa: E402
-from .rank import Ranking, RankError, Target, rank, rank_campaign  # noqa: E402
-from .rankstats import (RankTest, critical_difference, data_profile, friedman_from_ranks,  # noqa: E402
-                        friedman_test, nemenyi_q, performance_profile, rank_table, student_interval)
+# Ranking, baselines, selection and verification load on first use (PEP 562), so a launcher
+# worker that only runs solvers does not pay for SciPy's statistics and scikit-learn's models.
+_LAZY = {
+    "select": "selection",
+    "BASELINES": "baselines", "ensure_baselines": "baselines", "fit_path": "baselines",
+    "load_baselines": "baselines",
+    "load_references": "references",
+    "RULES": "stopping", "RuleContext": "stopping", "Selection": "stopping", "apply_rule": "stopping",
+    "Ranking": "rank", "RankError": "rank", "Target": "rank", "rank": "rank", "rank_campaign": "rank",
+    "RankTest": "rankstats", "critical_difference": "rankstats", "data_profile": "rankstats",
+    "friedman_from_ranks": "rankstats", "friedman_test": "rankstats", "nemenyi_q": "rankstats",
+    "performance_profile": "rankstats", "rank_table": "rankstats", "student_interval": "rankstats",
+    "verify_root": "verify",
+}
+
+
+def __getattr__(name: str):
+    mod = _LAZY.get(name)
+    if mod is None:
+        raise AttributeError(f"module 'stopwise' has no attribute {name!r}")
+    import importlib
+
+    module = importlib.import_module(f".{mod}", __name__)
+    for other, where in _LAZY.items():  # bind all of them now: importing a submodule named like
+        if where == mod:                # one of its functions (rank) sets the package attribute
+            globals()[other] = getattr(module, other)
+    return globals()[name]
 
 
 def report_campaign(root="results", campaign="", out=None, rule="holdout", **options):
@@ -54,7 +74,6 @@ def report_campaign(root="results", campaign="", out=None, rule="holdout", **opt
     return write(root, campaign, out, rule=rule, **options)
 
 
-from .verify import verify_root  # noqa: E402
 
 
 def load_problem(overrides: list[str] | None = None) -> Problem:
@@ -82,3 +101,7 @@ __all__ = ["RawData", "SourceDef", "build_problem", "cached_problem", "register_
            "LOSSES", "get_loss", "HardMargin", "hard_margin", "is_separable", "normalized_margin",
            "LinearModel", "TwoLayerReLU", "verify_root",
            "AveragingParams", "SGDParams", "averaged", "minibatch_gradient"]
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_LAZY))
