@@ -285,7 +285,7 @@ def cmd_datasets(argv: list[str]) -> int:
     if argv and argv[0] == "fetch":
         return _datasets_fetch(argv[1:])
     ap = ArgParser(prog="stopwise datasets",
-                                 description="List every dataset a run can use; 'stopwise datasets fetch ID' warms "
+                   description="List every dataset a run can use; 'stopwise datasets fetch ID' warms "
                                              "the OpenML cache.")
     ap.parse_args(argv)
     from .data.catalog import entries, format_table
@@ -309,7 +309,7 @@ def _datasets_fetch(argv: list[str]) -> int:
     import re
 
     ap = ArgParser(prog="stopwise datasets fetch",
-                                 description="Download OpenML datasets (ID or NAME@VERSION) and tasks into openml's "
+                   description="Download OpenML datasets (ID or NAME@VERSION) and tasks into openml's "
                                              "cache, so that runs can read them without network.")
     ap.add_argument("refs", nargs="*", metavar="ID", help="dataset id, or NAME@VERSION")
     ap.add_argument("--task", type=str, action="append", default=[], metavar="ID", help="task id (repeatable)")
@@ -343,7 +343,7 @@ def cmd_select(argv: list[str]) -> int:
     from .store import StoreError
 
     ap = ArgParser(prog="stopwise select",
-                                 description="selected iterate per run and stopping rule (oracle = reference only)")
+                   description="selected iterate per run and stopping rule (oracle = reference only)")
     ap.add_argument("campaign", help="campaign name or id")
     ap.add_argument("--rule", action="append", default=None, metavar="NAME[:k=v,...]",
                     help="a stopping rule, repeatable (default: the campaign's rules plus oracle)")
@@ -375,7 +375,7 @@ def cmd_baselines(argv: list[str]) -> int:
     from .store import StoreError
 
     ap = ArgParser(prog="stopwise baselines",
-                                 description="explicit-regularization baselines selected on validation error")
+                   description="explicit-regularization baselines selected on validation error")
     ap.add_argument("campaign", help="campaign name or id")
     ap.add_argument("--method", action="append", default=None, metavar="NAME",
                     help="baseline method, repeatable (default: every method for the problem's task)")

@@ -162,17 +162,7 @@ class Recorder:
         col["residual_norm"][i] = math.sqrt(sq_tr) if sq_tr >= 0 else math.nan
         col["val_error"][i] = sq_va / p.X_val.shape[0] if p.X_val.shape[0] else math.nan
         col["test_error"][i] = sq_te / p.X_test.shape[0]
-        col["w_norm"][i] = math.sqrt(float(w @ w))
-        if p.w_true is not None:
-            np.subtract(w, p.w_true, out=self._dbuf)
-            col["dist_truth"][i] = math.sqrt(float(self._dbuf @ self._dbuf))
-        else:
-            col["dist_truth"][i] = math.nan
-        for name, fn in self._extras.items():
-            col[name][i] = fn(w)
-        for name, fn in self._state_extras.items():
-            col[name][i] = fn(state) if state is not None else math.nan
-        self.size += 1
+        self._finish_row(i, w, state)
         return sq_tr / (2 * n)
 
     def _record_classification(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
@@ -182,10 +172,17 @@ class Recorder:
         col["passes"][i] = passes
         col["seconds"][i] = seconds
         loss = self._cls.fill(col, i, w)
+        self._finish_row(i, w, state)
+        return loss
+
+    def _finish_row(self, i: int, w: np.ndarray, state: Any) -> None:
+        """Columns every task shares: ||w||, distance to the truth, metric sets; then count the row."""
+        p, col = self.problem, self._data
         col["w_norm"][i] = math.sqrt(float(w @ w))
         if p.w_true is not None and p.w_true.shape == w.shape:
-            d = w - p.w_true
-            col["dist_truth"][i] = math.sqrt(float(d @ d))
+            buf = self._dbuf if self._dbuf.shape == w.shape else np.empty_like(w)
+            np.subtract(w, p.w_true, out=buf)
+            col["dist_truth"][i] = math.sqrt(float(buf @ buf))
         else:
             col["dist_truth"][i] = math.nan
         for name, fn in self._extras.items():
@@ -193,7 +190,6 @@ class Recorder:
         for name, fn in self._state_extras.items():
             col[name][i] = fn(state) if state is not None else math.nan
         self.size += 1
-        return loss
 
     def _grow(self) -> None:
         self._cap *= 2
