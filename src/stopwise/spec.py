@@ -230,7 +230,11 @@ class RunSpec:
         return dataclasses.asdict(self)
 
     def label(self) -> str:
-        ps = " ".join(f"{k}={_fmt(v)}" for k, v in sorted(self.params.items()))
+        """Short human label: the solver, its step scale and every param that differs from
+        the solver's default (the full params are in the trace)."""
+        defaults = {f.name: f.default for f in dataclasses.fields(get_solver(self.solver).params)}
+        shown = {k: v for k, v in self.params.items() if k == "step_scale" or v != defaults.get(k, v)}
+        ps = " ".join(f"{k}={_fmt(v)}" for k, v in sorted(shown.items()))
         return f"{self.solver}{(' ' + ps) if ps else ''} seed={self.seed} on {self.dataset.get('name')}"
 
 
