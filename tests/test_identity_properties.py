@@ -65,7 +65,7 @@ def configs(draw) -> dict:
     ds_params["d"] = draw(st.integers(1, 50))
     test = draw(st.floats(0.05, 0.45))
     val = draw(st.floats(0.0, 0.45))
-    return {
+    cfg = {
         "dataset": {"name": "synthetic-draw", "source": "synthetic", "params": ds_params,
                     "standardize": draw(st.booleans()), "center_target": draw(st.booleans())},
         "split": {"kind": draw(st.sampled_from(["random", "tail"])), "test": test, "val": val},
@@ -76,6 +76,13 @@ def configs(draw) -> dict:
         "record": {"every": draw(st.integers(1, 1000))},
         "seed": draw(values(FIELD_CONSTRAINTS["seed"])),
     }
+    # Fields are drawn independently, but some solvers constrain params jointly (for example
+    # hinge_diagonal's primal-dual update needs step_scale < 1): keep only valid configs.
+    try:
+        spec_from_config(cfg)
+    except SpecError:
+        assume(False)
+    return cfg
 
 
 def shuffled(draw, obj):
