@@ -286,7 +286,7 @@ def cmd_datasets(argv: list[str]) -> int:
         return _datasets_fetch(argv[1:])
     ap = ArgParser(prog="stopwise datasets",
                    description="List every dataset a run can use; 'stopwise datasets fetch ID' warms "
-                                             "the OpenML cache.")
+                               "the OpenML cache.")
     ap.parse_args(argv)
     from .data.catalog import entries, format_table
 
@@ -348,10 +348,7 @@ def cmd_select(argv: list[str]) -> int:
     ap.add_argument("--rule", action="append", default=None, metavar="NAME[:k=v,...]",
                     help="a stopping rule, repeatable (default: the campaign's rules plus oracle)")
     ap.add_argument("--root", default="results", help="results root (default: results)")
-    try:
-        a = ap.parse_args(argv)
-    except SystemExit as e:
-        return EXIT_BAD_INPUT if e.code else 0
+    a = ap.parse_args(argv)
     try:
         rules = [parse_rule_arg(r) for r in a.rule] if a.rule else None
         df = select(a.root, a.campaign, rules)
@@ -381,10 +378,7 @@ def cmd_baselines(argv: list[str]) -> int:
                     help="baseline method, repeatable (default: every method for the problem's task)")
     ap.add_argument("--root", default="results", help="results root (default: results)")
     ap.add_argument("--path", action="store_true", help="print every penalty, not only the selected one")
-    try:
-        a = ap.parse_args(argv)
-    except SystemExit as e:
-        return EXIT_BAD_INPUT if e.code else 0
+    a = ap.parse_args(argv)
     try:
         df = ensure_baselines(a.root, a.campaign, a.method)
     except (BaselineError, StoreError, SpecError) as e:
@@ -402,21 +396,10 @@ def cmd_baselines(argv: list[str]) -> int:
     return 0
 
 
-class _ArgError(Exception):
-    pass
-
-
-class _Parser(argparse.ArgumentParser):
-    """argparse with one-line errors (printed by the caller as ``stopwise: error: ...``)."""
-
-    def error(self, message: str):  # noqa: D401 - argparse API
-        raise _ArgError(f"{self.prog}: {message}")
-
-
-def _ranking_parser(prog: str, description: str) -> _Parser:
+def _ranking_parser(prog: str, description: str) -> ArgParser:
     from .rank import RANK_BY, TUNINGS, UNITS
 
-    ap = _Parser(prog=prog, description=description)
+    ap = ArgParser(prog=prog, description=description)
     ap.add_argument("campaign", help="campaign name or id")
     ap.add_argument("--root", default="results", help="results root (default: results)")
     ap.add_argument("--rule", default="holdout", metavar="NAME[:k=v,...]",
@@ -446,15 +429,6 @@ def _ranking_options(a) -> dict:
                 params=None if a.params is None else [c for c in a.params.split(",") if c])
 
 
-def _parse(ap: _Parser, argv: list[str]):
-    try:
-        return ap.parse_args(argv), None
-    except _ArgError as e:
-        return None, _fail(str(e))
-    except SystemExit as e:  # --help
-        return None, (EXIT_BAD_INPUT if e.code else 0)
-
-
 def cmd_rank(argv: list[str]) -> int:
     from .errors import SpecError
     from .rank import rank_campaign
@@ -465,9 +439,7 @@ def cmd_rank(argv: list[str]) -> int:
                                           "rank the methods across datasets")
     ap.add_argument("--format", default="text", choices=FORMATS, help="output format (default text)")
     ap.add_argument("--out", default=None, metavar="FILE", help="write the output to FILE instead of the terminal")
-    a, code = _parse(ap, argv)
-    if a is None:
-        return code
+    a = ap.parse_args(argv)
     try:
         r = rank_campaign(a.root, a.campaign, a.rule, baselines=a.baselines, **_ranking_options(a))
     except (SpecError, StoreError) as e:
@@ -490,9 +462,7 @@ def cmd_report(argv: list[str]) -> int:
     ap.add_argument("--out", default=None, metavar="DIR", help="output folder (default: ROOT/reports/CAMPAIGN)")
     ap.add_argument("--mark", action="append", default=None, metavar="NAME[:k=v,...]",
                     help=f"rule whose stopping points the curves mark, repeatable (default: {', '.join(MARKED_RULES)})")
-    a, code = _parse(ap, argv)
-    if a is None:
-        return code
+    a = ap.parse_args(argv)
     try:
         index = report_campaign(a.root, a.campaign, a.out, rule=a.rule, marked_rules=a.mark,
                                 baselines=a.baselines, **_ranking_options(a))
@@ -519,6 +489,8 @@ def main(argv: list[str] | None = None) -> int:
         return COMMANDS[cmd](rest)
     except BadArguments as e:
         return _fail(str(e))
+    except SystemExit as e:  # a subcommand's --help (code 0), or a library that exits with a code
+        return e.code if isinstance(e.code, int) else (0 if e.code is None else EXIT_BAD_INPUT)
 
 
 if __name__ == "__main__":
