@@ -2,10 +2,12 @@
 
 For an X of about 320 MB (far larger than every cache), the peer is the time to read X
 once, measured three ways (a max reduction, a column sum, a BLAS matrix-vector product);
-the fastest is the bandwidth limit. Each gradient path and a whole gradient-descent step
-through the solver are timed and reported as multiples of that one read. Three shapes:
-tall X (n > d, where the automatic choice is the Gram path; the blocked path is forced
-for comparison) and a wide X (n < d, where the automatic choice is the blocked path).
+the fastest is the bandwidth limit. Each gradient path (and both variants of the compiled
+one-pass kernel, and a BLAS loop over 1 MiB row blocks for comparison) and a whole
+gradient-descent step through the solver are timed and reported as multiples of that one
+read. Shapes: tall X (n > d, where the automatic choice is the Gram path; the fused path
+is forced for comparison), a wide X (n < d, where the automatic choice is the fused
+path), and short rows (d = 100 and 10), where the kernel variant matters most.
 
     .venv/bin/python benchmarks/bench_bandwidth.py
 """
@@ -20,7 +22,7 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).parent))
 from _common import blas_threads, best_of, machine  # noqa: E402
 
-from stopwise import fastpath  # noqa: E402
+from stopwise import fastpath, kernels  # noqa: E402
 from stopwise.problem import TrainingSet  # noqa: E402
 from stopwise.solvers import get_solver  # noqa: E402
 from stopwise.solvers.base import make_params  # noqa: E402
@@ -44,23 +46,35 @@ def one_shape(n: int, d: int, repeat: int) -> None:
     print(f"  one read of X (fastest above)      {one_read * 1e3:8.2f} ms")
 
     direct = lambda: X.T @ (X @ w - y) / n  # noqa: E731
-    blocked = fastpath.BlockedGradient(X, y)
+    fused = fastpath.FusedGradient(X, y)
+    B = max(1, 2**20 // (8 * d))
+    blocks = [(X[s:s + B], y[s:s + B]) for s in range(0, n, B)]
+
+    def blas_blocks():  # the previous blocked path: two BLAS products per 1 MiB block
+        g = np.zeros(d)
+        for Xb, yb in blocks:
+            g += Xb.T @ (Xb @ w - yb)
+        return g / n
     t0 = time.perf_counter()
     gram = fastpath.GramGradient(X, y) if n > d else None
     t_gram_setup = time.perf_counter() - t0
     ref = direct()
-    assert np.allclose(blocked(w), ref, rtol=1e-10, atol=1e-12)
-    rows = [("direct X^T (X w - y)", direct), (f"blocked ({blocked.block_rows} rows per block)", lambda: blocked(w))]
+    assert np.allclose(fused(w), ref, rtol=1e-10, atol=1e-12)
+    rr, gg = np.empty(n), np.empty(d)
+    rows = [("direct X^T (X w - y), BLAS", direct), (f"BLAS on 1 MiB row blocks ({B} rows)", blas_blocks),
+            (f"fused, automatic variant ({fused.variant})", lambda: fused(w))]
+    for kind in ("rows", "quads"):
+        rows.append((f"  fused kernel, variant {kind}", lambda kind=kind: kernels.residual_gradient(X, w, y, rr, gg, kind)))
     if gram is not None:
         assert np.allclose(gram(w), ref, rtol=1e-9, atol=1e-10)
         rows.append(("Gram (G w - c)", lambda: gram(w)))
     gd = get_solver("gd")
     gp = make_params(gd.params, {"step_scale": 1.0}, "solver")
     L = 1.0  # the step size does not change the cost
-    for name, path in (("blocked", "blocked"), ("Gram", "gram")):
-        if path == "gram" and gram is None:
+    for name, plan in (("fused", fused), ("Gram", gram)):
+        if plan is None:
             continue
-        tr = fastpath.attach_plan(TrainingSet(X, y, L), blocked if path == "blocked" else gram)
+        tr = fastpath.attach_plan(TrainingSet(X, y, L), plan)
         st = gd.init(tr, gp, None)
         holder = [st]
 
@@ -77,9 +91,9 @@ def one_shape(n: int, d: int, repeat: int) -> None:
             t = best_of(fn, 1)
             best[name] = min(best[name], t)
             ratios[name].append(t / read)
-    print(f"  {'gradient / step':36s} {'best ms':>8s} {'best / best read':>17s} {'median paired ratio':>20s}")
+    print(f"  {'gradient / step':40s} {'best ms':>8s} {'best / best read':>17s} {'median paired ratio':>20s}")
     for name, _ in rows:
-        print(f"  {name:36s} {best[name] * 1e3:8.2f} {best[name] / one_read:17.3f} {np.median(ratios[name]):20.3f}")
+        print(f"  {name:40s} {best[name] * 1e3:8.2f} {best[name] / one_read:17.3f} {np.median(ratios[name]):20.3f}")
     if gram is not None:
         print(f"  Gram set-up once per problem: {t_gram_setup * 1e3:.0f} ms = {t_gram_setup / one_read:.0f} reads of X "
               f"(paid back after {t_gram_setup / max(best_of(direct, 3) - best_of(lambda: gram(w), 3), 1e-12):.0f} "
@@ -90,10 +104,10 @@ def one_shape(n: int, d: int, repeat: int) -> None:
 def main() -> None:
     blas_threads()
     print("machine:\n" + machine())
-    print("targets: blocked step <= 1.5 x one read of X per data pass; Gram step far below")
-    one_shape(100_000, 400, repeat=7)
-    one_shape(16_000, 2_500, repeat=7)
-    one_shape(2_500, 16_000, repeat=7)
+    print("targets: fused step <= 1.5 x one read of X per data pass; Gram step far below")
+    kernels.residual_gradient(np.ones((4, 2)), np.ones(2), np.ones(4), np.empty(4), np.empty(2))  # compile
+    for n, d in ((100_000, 400), (16_000, 2_500), (2_500, 16_000), (400_000, 100), (4_000_000, 10)):
+        one_shape(n, d, repeat=7)
 
 
 if __name__ == "__main__":

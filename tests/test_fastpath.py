@@ -25,35 +25,82 @@ def _direct_gradient(X, y, w):
 
 
 @pytest.mark.parametrize("name", ["diabetes", "wellposed", "illposed", "overparam"])
-def test_gram_and_blocked_gradients_equal_the_direct_formula(name):
+def test_gram_and_fused_gradients_equal_the_direct_formula(name):
+    """Reference: numpy's (BLAS) X^T (X w - y), the direct formula."""
     p = _problem(f"dataset={name}")
     X, y = p.X_train, p.y_train
     rng = np.random.default_rng(0)
-    plans = [fastpath.GramGradient(X, y)] + [fastpath.BlockedGradient(X, y, block_rows=b) for b in (1, 7, 64, 10**6)]
+    fused = fastpath.FusedGradient(X, y, keep_residual=True)
+    plans = [fastpath.GramGradient(X, y), fused]
+    s = np.linalg.norm(X, 2)
     for _ in range(5):
         w = rng.standard_normal(p.d) * rng.uniform(0.1, 10)
         ref = _direct_gradient(X, y, w)
         # rounding scale of either formula: ||X|| (||X|| ||w|| + ||y||) / n
-        s = np.linalg.norm(X, 2)
         scale = s * (s * np.linalg.norm(w) + np.linalg.norm(y)) / p.n_train
         for plan in plans:
             np.testing.assert_allclose(plan(w), ref, rtol=0, atol=1e-13 * scale)
-    blocked = plans[2]
-    assert sum(b[0].shape[0] for b in blocked.blocks) == p.n_train  # every row in exactly one block
+        np.testing.assert_allclose(fused.last_residual, X @ w - y, rtol=0,
+                                   atol=1e-13 * (s * np.linalg.norm(w) + np.linalg.norm(y)))
+
+
+@pytest.mark.parametrize("kind", ["rows", "quads"])
+@pytest.mark.parametrize("shape", [(0, 3), (1, 1), (3, 5), (5, 3), (7, 31), (9, 32), (13, 383), (6, 384), (2, 1000)])
+def test_fused_kernel_variants_equal_numpy_on_every_remainder(kind, shape):
+    """Both compiled variants against numpy's X w - y and X^T r on shapes that exercise the
+    four-row loop's remainder (n mod 4 = 0..3), one-row and one-column inputs, an empty X,
+    and non-contiguous (sliced) inputs; the variant rule is a function of d only."""
+    from stopwise import kernels
+
+    n, d = shape
+    rng = np.random.default_rng(n * 1000 + d)
+    for X in (rng.standard_normal((n, d)), rng.standard_normal((n, 2 * d))[:, ::2]):
+        y, w = rng.standard_normal(n), rng.standard_normal(d)
+        r, g = np.full(n, np.nan), np.full(d, np.nan)
+        kernels.residual_gradient(X, w, y, r, g, kind)
+        np.testing.assert_allclose(r, X @ w - y, rtol=1e-12, atol=1e-12)
+        np.testing.assert_allclose(g, X.T @ (X @ w - y), rtol=1e-12, atol=1e-11)
+    assert kernels.variant(d) == ("quads" if d >= kernels.QUAD_MIN_D or d < kernels.QUAD_MAX_SHORT_D else "rows")
+
+
+def test_fused_kernel_keeps_non_finite_numbers():
+    """Compiled without the no-NaN / no-infinity assumptions: a diverging iterate shows."""
+    from stopwise import kernels
+
+    X = np.ones((5, 4))
+    for bad in (np.inf, np.nan):
+        w = np.array([1.0, bad, 0.0, 0.0])
+        r, g = np.empty(5), np.empty(4)
+        kernels.residual_gradient(X, w, np.zeros(5), r, g)
+        assert not np.isfinite(g).any() and not np.isfinite(r).any()
+
+
+def test_fused_kernel_is_deterministic():
+    """The same call twice gives the same bits (reruns are exact)."""
+    from stopwise import kernels
+
+    rng = np.random.default_rng(3)
+    X, y, w = rng.standard_normal((1003, 500)), rng.standard_normal(1003), rng.standard_normal(500)
+    out = []
+    for _ in range(2):
+        r, g = np.empty(1003), np.empty(500)
+        kernels.residual_gradient(X, w, y, r, g)
+        out.append((r.tobytes(), g.tobytes()))
+    assert out[0] == out[1]
 
 
 @pytest.mark.parametrize("solver", ["gd", "nesterov", "heavy_ball", "sgd"])
 @pytest.mark.parametrize("name", ["diabetes", "wellposed", "illposed", "overparam"])
 def test_whole_runs_agree_across_paths(solver, name):
     """Every recorded column of a run (errors, norms, distance to the truth) under the
-    Gram and blocked paths and the automatic choice agrees with the direct path: relative
+    Gram and fused paths and the automatic choice agrees with the direct path: relative
     1e-9, or, for residuals that have shrunk to rounding level (interpolation), within
     1e-11 ||y|| in residual norm, the size of the rounding error of X w - y itself."""
     spec = spec_from_overrides([f"dataset={name}", f"solver={solver}", "budget.iterations=150",
                                 "solver.step_scale=0.9"])
     prob = _problem(f"dataset={name}")
     ref = execute(spec, prob, path="direct").columns
-    for path in ("gram", "blocked", "auto"):
+    for path in ("gram", "fused", "auto"):
         got = execute(spec, prob, path=path).columns
         assert got.keys() == ref.keys()
         np.testing.assert_array_equal(got["iteration"], ref["iteration"])
@@ -132,13 +179,13 @@ def test_compressed_rows_reproduce_the_squared_error():
 def test_automatic_choice_depends_on_shapes_only():
     assert fastpath.choose_gradient_path(265, 10, 265 * 80) == "gram"
     assert fastpath.choose_gradient_path(90, 400, 90 * 3200) == "direct"
-    assert fastpath.choose_gradient_path(1000, 2000, 16 * 10**6) == "blocked"
-    assert fastpath.choose_gradient_path(10**6, 10**4, 8 * 10**10) == "blocked"  # Gram would be 800 MB
+    assert fastpath.choose_gradient_path(1000, 2000, 16 * 10**6) == "fused"
+    assert fastpath.choose_gradient_path(10**6, 10**4, 8 * 10**10) == "fused"  # Gram would be 800 MB
     ill = _problem("dataset=illposed")  # 180 train, 60 val, 60 test rows, 100 features
     assert fastpath.statistics_splits(ill) == ("train",)
     assert fastpath.statistics_splits(_problem("dataset=overparam")) == ()
     assert fastpath.statistics_splits(ill, "direct") == ()
-    with pytest.raises(fastpath.PathError, match="must be one of auto, direct, blocked, gram"):
+    with pytest.raises(fastpath.PathError, match="must be one of auto, direct, fused, gram"):
         fastpath.training_for(ill, path="fast")
 
 

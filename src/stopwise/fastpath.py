@@ -1,4 +1,4 @@
-"""Evaluation paths for least squares: direct, blocked rows, and sufficient statistics.
+"""Evaluation paths for least squares: direct, one fused pass over the rows, and sufficient statistics.
 
 Everything here computes exactly the quantities of the direct formulas, in a different
 order of floating-point operations. For ``f(w) = ||X w - y||^2 / (2 n)``:
@@ -6,8 +6,8 @@ order of floating-point operations. For ``f(w) = ||X w - y||^2 / (2 n)``:
 ========  =========================================================  ==================
 path      gradient ``g = X^T (X w - y) / n``                          cost per call
 ========  =========================================================  ==================
-direct    ``r = X w - y``, then ``X^T r``                             two reads of X
-blocked   ``sum_B X_B^T (X_B w - y_B)`` over cache-sized row blocks   one read of X
+direct    ``r = X w - y``, then ``X^T r`` (BLAS)                      two reads of X
+fused     ``sum_i (x_i . w - y_i) x_i``, row by row, compiled         one read of X
 gram      ``(G w - c) / n`` with ``G = X^T X``, ``c = X^T y``         O(d^2), X unread
 ========  =========================================================  ==================
 
@@ -56,12 +56,11 @@ import numpy as np
 
 from .problem import Problem, TrainingSet
 
-PATHS = ("auto", "direct", "blocked", "gram")
+PATHS = ("auto", "direct", "fused", "gram")
 SPLITS = ("train", "val", "test")
 
 GRAM_MAX_BYTES = 256 * 2**20     # no Gram matrix (of all splits together) above this size
-BLOCKED_MIN_BYTES = 4 * 2**20    # below this X stays in cache and the direct path is as fast
-BLOCK_BYTES = 2**20              # about a core's L2 cache (1 MiB here); measured best of 256 KiB..2 MiB
+FUSED_MIN_BYTES = 4 * 2**20      # below this X stays in cache and the direct path is as fast
 GUARD = 1e-3                     # Gram-form errors below GUARD * scale are recomputed from compressed rows
 
 _PLAN = "_gradient_plan"
@@ -85,11 +84,11 @@ def _frozen(a: np.ndarray) -> np.ndarray:
 # ---------------------------------------------------------------- gradient plans
 
 def choose_gradient_path(n: int, d: int, nbytes: int) -> str:
-    """The path ``auto`` picks: Gram when ``n > d`` and it fits, blocked for large X, else direct."""
+    """The path ``auto`` picks: Gram when ``n > d`` and it fits, fused for large X, else direct."""
     if n > d and d * d * 8 <= GRAM_MAX_BYTES:
         return "gram"
-    if nbytes > BLOCKED_MIN_BYTES:
-        return "blocked"
+    if nbytes > FUSED_MIN_BYTES:
+        return "fused"
     return "direct"
 
 
@@ -111,35 +110,32 @@ class GramGradient:
         return g
 
 
-class BlockedGradient:
-    """``g = sum_B X_B^T (X_B w - y_B) / n`` over contiguous row blocks of ``block_rows`` rows.
+class FusedGradient:
+    """``g = X^T (X w - y) / n`` in one pass over the rows of X (a compiled kernel,
+    :mod:`stopwise.kernels`): each row gives its residual and its share of the gradient
+    while it is in cache, so one gradient reads X from memory once (the direct path reads
+    it twice). The residual ``X w - y`` of the last call is kept in ``last_residual``
+    only when ``keep_residual`` is set (checks and benchmarks)."""
 
-    Each block is read from memory once by the first product and found in cache by the
-    second, so one gradient reads X once (the direct path reads it twice).
-    """
+    path = "fused"
 
-    path = "blocked"
+    def __init__(self, X: np.ndarray, y: np.ndarray, keep_residual: bool = False):
+        from . import kernels  # numba is imported (and the kernel compiled) only when used
 
-    def __init__(self, X: np.ndarray, y: np.ndarray, block_rows: int | None = None):
-        n, d = X.shape
-        if block_rows is None:
-            block_rows = max(1, BLOCK_BYTES // max(8 * d, 1))
-        self.block_rows = int(max(1, min(block_rows, max(n, 1))))
-        self.n, self.d = n, d
-        B = self.block_rows
-        self.blocks = tuple((X[s:s + B], X[s:s + B].T, y[s:s + B]) for s in range(0, n, B))
+        self.X, self.y = X, y
+        self.n, self.d = X.shape
+        self.variant = kernels.variant(self.d)
+        self._kernel = kernels.residual_gradient
+        self.keep_residual = keep_residual
+        self.last_residual: np.ndarray | None = None
 
     def __call__(self, w: np.ndarray) -> np.ndarray:
-        g = np.zeros(self.d)
-        r = np.empty(self.block_rows)
-        gb = np.empty(self.d)
-        for Xb, XbT, yb in self.blocks:
-            rb = r[: Xb.shape[0]]
-            np.dot(Xb, w, out=rb)
-            rb -= yb
-            np.dot(XbT, rb, out=gb)
-            g += gb
+        g = np.empty(self.d)
+        r = np.empty(self.n)  # scratch per call, so plans can be shared between threads
+        self._kernel(self.X, w, self.y, r, g, self.variant)
         g /= self.n
+        if self.keep_residual:
+            self.last_residual = r
         return g
 
 
@@ -157,8 +153,8 @@ def attach_plan(train: TrainingSet, plan: Callable[[np.ndarray], np.ndarray] | N
 def _make_plan(train: TrainingSet, path: str, gram: tuple | None = None):
     if path == "gram":
         return GramGradient(train.X, train.y, *(gram[:2] if gram is not None else ()))
-    if path == "blocked":
-        return BlockedGradient(train.X, train.y)
+    if path == "fused":
+        return FusedGradient(train.X, train.y)
     return None
 
 
@@ -237,10 +233,10 @@ def statistics_splits(problem: Problem, path: str = "auto") -> tuple[str, ...]:
 
     ``auto``: every split with more rows than features, while their Gram matrices
     together fit in ``GRAM_MAX_BYTES``; ``gram``: every non-empty split; ``direct`` and
-    ``blocked``: none. Only regression problems (squared error) are concerned.
+    ``fused``: none. Only regression problems (squared error) are concerned.
     """
     _check_path(path)
-    if path in ("direct", "blocked") or problem.task != "regression":
+    if path in ("direct", "fused") or problem.task != "regression":
         return ()
     d = problem.d
     rows = {s: getattr(problem, "X_" + s).shape[0] for s in SPLITS}
@@ -305,6 +301,6 @@ def describe(train: TrainingSet, stats: SplitStatistics | None) -> dict:
             "guard": GUARD}
 
 
-__all__ = ["PATHS", "GUARD", "BlockedGradient", "GramGradient", "SplitStatistics", "attach_plan",
+__all__ = ["PATHS", "GUARD", "FusedGradient", "GramGradient", "SplitStatistics", "attach_plan",
            "choose_gradient_path", "compressed_rows", "gradient_plan", "prepare", "row_factor", "split_statistics", "statistics_splits",
            "training_for"]
