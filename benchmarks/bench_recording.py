@@ -5,16 +5,19 @@ solver time only). Overhead = (run loop time - solver time) / solver time, where
 loop time is the whole ``execute`` minus the one-time preparation (Gram matrices), which
 is reported separately. Several cases show where recording is cheap and where it is not:
 
-* a large tall problem whose solver reads X every step (blocked path forced) while the
-  recorder uses sufficient statistics (O(d^2) per row): the case the target is about;
+* a large tall problem whose solver reads X every step (fused path forced, or direct, or
+  CGLS) while the recorder uses sufficient statistics (O(d^2) per row): the case the
+  target is about;
+* the same size of problem with rows in signal order (an integral equation), where the
+  NCP statistic is recorded and reads the training rows at every recorded row;
 * the same problem on the automatic path, where the solver step is itself O(d^2);
 * a wide problem (n < d: no sufficient statistics, every recorded error reads its rows);
 * SGD with batch 1, recording every step against 8 rows per data pass;
 * the small demo problems, where both sides are a few microseconds of Python;
 
 each with every metric on (``record.residual=true``, the default: the residual statistics
-of the residual-based stopping rules read the training rows at every recorded row) and
-with the residual statistics off.
+of the residual-based stopping rules; ``residual_dot_prev`` comes from the statistics,
+``ncp_distance`` exists only on signal-ordered rows) and with the residual statistics off.
 
     .venv/bin/python benchmarks/bench_recording.py
 """
@@ -55,7 +58,7 @@ def main() -> None:
     tall = spectral_problem(50_000, 300, sigma=3.0)  # 30000 training rows x 300: 69 MiB
     for residual in ("true", "false"):
         print(f"\nrecord.residual={residual}"
-              + ("  (every metric, including the residual statistics: one read of X_train per row)"
+              + ("  (every metric, including the residual statistics)"
                  if residual == "true" else "  (every metric but the residual statistics)"))
         print(f"{'case':58s} {'rows':>7s} {'solver ms':>9s} {'record ms':>9s} {'overhead':>9s}   (target <= 15%)")
         cases(tall, [f"record.residual={residual}"])
@@ -66,14 +69,21 @@ def cases(tall, extra) -> None:
         return spec_from_overrides(overrides + extra)
 
     gd = spec_from(["solver=gd", "budget.iterations=60"])
-    measure("tall 30000x300, gd, solver reads X (blocked), stats record", gd, tall, "blocked", "auto")
+    measure("tall 30000x300, gd, solver reads X (fused), stats record", gd, tall, "fused", "auto")
     measure("tall 30000x300, gd, solver reads X (direct), stats record", gd, tall, "direct", "auto")
     measure("tall 30000x300, gd, automatic (Gram step, stats record)", spec_from(
         ["solver=gd", "budget.iterations=600"]), tall, "auto")
     measure("tall 30000x300, cgls (reads X), stats record", spec_from(
         ["solver=cgls", "budget.iterations=60"]), tall, "auto")
     wide = spectral_problem(2_000, 4_000, decay=0.5)
-    measure("wide 1200x4000, gd, automatic (blocked step, direct record)", gd, wide, "auto")
+    sig_spec = spec_from(["dataset=integral_green", "dataset.params.n=50000", "dataset.params.d=300",
+                          "solver=gd", "budget.iterations=60"])
+    sig = cached_problem(sig_spec.dataset, sig_spec.split, sig_spec.seed)
+    measure("signal rows 30000x300 (integral), gd fused, stats + NCP", sig_spec, sig, "fused", "auto")
+    measure("signal rows 30000x300 (integral), cgls, stats + NCP", spec_from(
+        ["dataset=integral_green", "dataset.params.n=50000", "dataset.params.d=300", "solver=cgls",
+         "budget.iterations=60"]), sig, "auto")
+    measure("wide 1200x4000, gd, automatic (fused step, direct record)", gd, wide, "auto")
     sgd = ["solver=sgd", "solver.batch=1", "solver.step_scale=0.5", "budget.iterations=1000000",
            "budget.passes=0.5"]
     measure("tall 30000x300, sgd b=1, record every step", spec_from(sgd[:-1] + ["budget.passes=0.1"]), tall, "auto")

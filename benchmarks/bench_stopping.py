@@ -1,7 +1,7 @@
 """Cost of the stopping machinery inside a run, as ratios against the same run without it.
 
-1. Residual statistics (residual_dot_prev, ncp_distance) recorded per iterate: a run with
-   the residual metric set vs the same run with it removed from record.METRIC_SETS.
+1. Residual statistics (residual_dot_prev, and ncp_distance on signal-ordered rows)
+   recorded per iterate: a run with them vs the same run with record.residual=false.
 2. Online halting: a run whose halting rule is checked after every recorded iterate but
    never decides (holdout with an unreachable patience) vs the same run without halting.
 3. Post-hoc selection: evaluating every rule on a stored trace vs reading that trace.
@@ -12,8 +12,6 @@ import time
 
 import numpy as np
 
-from stopwise import record
-from stopwise.residual import residual_metrics
 from stopwise.runner import execute
 from stopwise.spec import spec_from_overrides
 from stopwise.stopping import RULES, RuleContext, apply_rule
@@ -33,11 +31,8 @@ def main():
         base = [f"dataset={ds}", "solver=gd", f"budget.iterations={iters}"]
         plain = spec_from_overrides(base)
         with_metrics = best_of(lambda: execute(plain))
-        record.METRIC_SETS.remove(residual_metrics)
-        try:
-            without = best_of(lambda: execute(plain))
-        finally:
-            record.METRIC_SETS.append(residual_metrics)
+        bare = spec_from_overrides(base + ["record.residual=false"])
+        without = best_of(lambda: execute(bare))
         print(f"{ds:9s} {iters} iterations: residual statistics cost x{with_metrics / without:.2f} "
               f"({with_metrics:.3f} s vs {without:.3f} s)")
         halting = spec_from_overrides(base + ["stopping=holdout", "stopping.params.patience=1e9", "stopping.halt=true"])

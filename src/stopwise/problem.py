@@ -119,6 +119,14 @@ class Problem:
         return self.X_train.shape[1]
 
     @property
+    def signal_rows(self) -> bool:
+        """Whether the rows are samples of a signal in their order (sampling points of an
+        integral equation, time), so that the training residual read in row order is a
+        signal too: the source says so as ``info["row_order"] = "signal"``. Splits keep
+        the source's row order within each part."""
+        return self.info.get("row_order") == "signal"
+
+    @property
     def L(self) -> float:
         """Smoothness constant of the default training objective (``||X_train||_2^2 / n_train``
         for least squares; see :class:`TrainingSet`)."""

@@ -3,7 +3,8 @@
 The recorder owns preallocated columns and scratch buffers; recording an iterate writes
 one row in place. It never knows which solver produced the iterate.
 
-Two extension points add columns after the base ones:
+Regression traces carry the residual statistics of :mod:`stopwise.residual` after the
+base columns (unless ``residual=False``). Two extension points add columns after those:
 
 ``METRIC_SETS``
     functions ``problem -> {column: f(w) -> float}``: extras that depend on the problem
@@ -37,6 +38,7 @@ import numpy as np
 
 from . import fastpath
 from .problem import Problem
+from .residual import COLUMNS as RESIDUAL_COLUMNS, NCPDistance
 
 # Columns every trace has, in order (see docs/schema.md).
 BASE_COLUMNS = ("iteration", "passes", "seconds", "train_loss", "train_error", "val_error",
@@ -56,12 +58,12 @@ class Recorder:
                  state_metrics: Mapping[str, Callable[[Any], float]] | None = None,
                  loss: str | None = None, model: Any = None,
                  statistics: "fastpath.SplitStatistics | None | str" = "auto",
-                 exclude: tuple[str, ...] = ()):
+                 residual: bool = True):
         """``statistics`` (regression): the split statistics to use, None for direct
         evaluation only, or an evaluation path name (``auto``, ``gram``, ``direct``,
-        ``blocked``); see :mod:`stopwise.fastpath`. ``exclude``: ``METRIC_SETS`` columns
-        not to record (the runner leaves out the residual statistics when
-        ``record.residual`` is false)."""
+        ``fused``); see :mod:`stopwise.fastpath`. ``residual`` (regression): record the
+        residual statistics of :mod:`stopwise.residual` (``residual_dot_prev`` always,
+        ``ncp_distance`` when ``problem.signal_rows``)."""
         self.problem = problem
         self._cls = None
         self.info: dict = {}
@@ -73,14 +75,17 @@ class Recorder:
         self._extras: dict[str, Callable[[np.ndarray], float]] = {}
         for make in METRIC_SETS:
             self._extras.update(make(problem) or {})
-        for name in exclude:
-            self._extras.pop(name, None)
+        regression = self._cls is None
+        self._dot = bool(residual) and regression
+        self._ncp = NCPDistance(problem.n_train) if self._dot and problem.signal_rows else None
+        res_cols = RESIDUAL_COLUMNS[: 2 if self._ncp is not None else 1] if self._dot else ()
         cls_cols = self._cls.columns if self._cls is not None else ()
         self._state_extras = dict(state_metrics or {})
-        clash = sorted(set(self._state_extras) & (set(BASE_COLUMNS) | set(cls_cols) | set(self._extras)))
+        clash = sorted(set(self._state_extras) & (set(BASE_COLUMNS) | set(cls_cols) | set(res_cols)
+                                                  | set(self._extras)))
         if clash:
             raise ValueError(f"solver metric column {clash[0]!r} clashes with a recorder column")
-        self.columns = BASE_COLUMNS + cls_cols + tuple(self._extras) + tuple(self._state_extras)
+        self.columns = BASE_COLUMNS + cls_cols + res_cols + tuple(self._extras) + tuple(self._state_extras)
         self._cap = max(int(capacity), 1)
         self._data = {c: np.empty(self._cap, dtype=np.int64 if c == "iteration" else np.float64)
                       for c in self.columns}
@@ -107,6 +112,21 @@ class Recorder:
             self._wa = np.empty(p.d + 1)
             self._wa[p.d] = -1.0
         self.fallbacks = 0  # Gram-form errors recomputed from compressed rows (cancellation guard)
+        # Residual statistics (regression). The training residual vector is evaluated at
+        # every row when the training error is direct or the NCP is recorded; then the
+        # inner product comes from two residual vectors (alternating buffers), else from
+        # the training split's statistics (O(d) beyond the error, see _gram_dot).
+        self._train_stat = used.index("train") if "train" in used else None
+        self._res_rows = self._dot and (self._ncp is not None or self._train_stat is None)
+        if self._dot:
+            n = p.n_train
+            self._rb = (self._buf["train"], np.empty(n)) if self._res_rows else ()
+            self._rk = 0                       # buffer holding this row's residual
+            self._wprev = np.empty(p.d)        # previous recorded iterate, its c^T w and scale
+            self._lprev = self._sprev = math.nan
+            self._ltr = self._str = math.nan   # this row's c^T w and scale (statistics path)
+            self._za = np.empty(p.d + 1)       # [w_prev; -1] for the compressed-rows fall back
+            self._za[p.d] = -1.0
 
     def _sq_error(self, split: str, w: np.ndarray) -> float:
         X = getattr(self.problem, "X_" + split)
@@ -134,9 +154,12 @@ class Recorder:
             self._u -= st.C2                   # G_j w - 2 c_j
             np.dot(self._uk, w, out=self._v)   # w^T G_j w - 2 c_j^T w
             guard = fastpath.GUARD
-            for i, v, l, yy in zip(self._stat_idx, self._v.tolist(), self._l.tolist(), st.yy):
+            for j, (i, v, l, yy) in enumerate(zip(self._stat_idx, self._v.tolist(), self._l.tolist(), st.yy)):
                 v += yy
-                if v >= guard * (v + 2.0 * l):  # v + 2 l = w^T G_j w + y_j^T y_j, the scale
+                scale = v + 2.0 * l            # w^T G_j w + y_j^T y_j, the scale
+                if j == self._train_stat:
+                    self._ltr, self._str = l, scale
+                if v >= guard * scale:
                     sq[i] = v
                 else:
                     sq[i] = self._compressed_error(fastpath.SPLITS[i], w)
@@ -152,6 +175,8 @@ class Recorder:
         if self._cls is not None:
             return self._record_classification(iteration, passes, seconds, w, state)
         p, i, col = self.problem, self.size, self._data
+        if self._res_rows:
+            self._buf["train"] = self._rb[self._rk]   # the direct training error writes this row's residual
         sq_tr, sq_va, sq_te = self.squared_errors(w).tolist()
         n = p.n_train
         col["iteration"][i] = iteration
@@ -162,8 +187,41 @@ class Recorder:
         col["residual_norm"][i] = math.sqrt(sq_tr) if sq_tr >= 0 else math.nan
         col["val_error"][i] = sq_va / p.X_val.shape[0] if p.X_val.shape[0] else math.nan
         col["test_error"][i] = sq_te / p.X_test.shape[0]
+        if self._dot:
+            self._residual_row(i, w)
         self._finish_row(i, w, state)
         return sq_tr / (2 * n)
+
+    def _residual_row(self, i: int, w: np.ndarray) -> None:
+        col, first = self._data, i == 0
+        if self._res_rows:
+            cur = self._rb[self._rk]
+            if self._train_stat is not None:  # the training error came from statistics: evaluate r
+                np.dot(self.problem.X_train, w, out=cur)
+                cur -= self.problem.y_train
+            col["residual_dot_prev"][i] = math.nan if first else float(cur @ self._rb[1 - self._rk])
+            if self._ncp is not None:
+                col["ncp_distance"][i] = self._ncp(cur)
+            self._rk = 1 - self._rk
+        else:
+            col["residual_dot_prev"][i] = math.nan if first else self._gram_dot(w)
+            self._lprev, self._sprev = self._ltr, self._str
+        self._wprev[:] = w
+
+    def _gram_dot(self, w: np.ndarray) -> float:
+        """``<r_prev, r_t>`` from the training statistics: ``w_prev^T (G w - 2 c) + c^T w_prev
+        - c^T w + y^T y``, exact up to rounding of size eps times ``2 sqrt(s_prev s_t)`` (s the
+        errors' scales); below ``GUARD`` times that, from the compressed rows instead
+        (``(R [w_prev; -1]) . (R [w; -1])``, as accurate as the residual vectors)."""
+        j = self._train_stat
+        dot = float(self._wprev @ self._uk[j]) + self._lprev - self._ltr + self.statistics.yy[j]
+        if abs(dot) >= fastpath.GUARD * math.sqrt(max(self._sprev * self._str, 0.0)):
+            return dot
+        self.fallbacks += 1
+        R = fastpath.row_factor(self.problem, "train")
+        self._wa[:-1] = w
+        self._za[:-1] = self._wprev
+        return float((R @ self._za) @ (R @ self._wa))
 
     def _record_classification(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
                                state: Any = None) -> float:

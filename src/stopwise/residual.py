@@ -6,7 +6,12 @@ than its norm (which every trace has as ``residual_norm``):
 ``residual_dot_prev``
     the inner product ``<r_prev, r_t>`` of this iterate's training residual with the one
     of the previous *recorded* iterate (missing on the first row). With the norms it gives
-    the monotone-error statistic ``(||r_k||^2 + <r_k, r_{k+1}>) / (2 ||r_k||)``.
+    the monotone-error statistic ``(||r_k||^2 + <r_k, r_{k+1}>) / (2 ||r_k||)``. Every
+    regression trace has it. Where the recorder evaluates the training error from
+    sufficient statistics it gets the inner product from them too, in O(d) beyond the
+    error itself (``w_prev^T (G w_t - 2 c) + c^T w_prev - c^T w_t + y^T y``), with the same
+    cancellation guard as the errors (see :mod:`stopwise.fastpath`); otherwise from the two
+    residual vectors.
 ``ncp_distance``
     the Kolmogorov-Smirnov distance of the normalized cumulative periodogram (NCP) of
     ``r_t`` from the straight line of white noise::
@@ -17,11 +22,13 @@ than its norm (which every trace has as ``residual_norm``):
 
     The residual is taken in the order of the training rows, so the statistic means
     something only when row order is a signal order (sampling points of an inverse
-    problem, time); for exchangeable rows it is recorded but carries no information.
+    problem, time). It is recorded only for problems whose training rows are in signal
+    order (``Problem.signal_rows``: the integral-equation generators, a user's file with
+    ``dataset.params.row_order=signal``); on exchangeable rows it would cost one read of
+    the training rows per recorded row and carry no information.
 
-Both columns are added to every regression trace through :data:`stopwise.record.METRIC_SETS`
-(classification traces do not get them). The metric keeps one residual buffer per run
-and reuses it, so recording allocates only the FFT output.
+The recorder (:class:`stopwise.record.Recorder`) computes both columns; this module holds
+the statistics themselves. ``record.residual: false`` leaves both out.
 """
 from __future__ import annotations
 
@@ -84,33 +91,21 @@ def white_noise_limit(q: int, significance: float = 0.05) -> float:
     return float(kstwobign.ppf(1.0 - significance)) / math.sqrt(q - 1)
 
 
-def residual_metrics(problem: Problem) -> dict[str, Callable[[np.ndarray], float]]:
-    """The metric set: per-run closures over one residual buffer (regression only)."""
-    if problem.task != "regression":
-        return {}
-    X, y = problem.X_train, problem.y_train
-    bufs = [np.empty(X.shape[0]), np.empty(X.shape[0])]
-    state = {"rows": 0}
+class NCPDistance:
+    """``ncp_distance`` of residual vectors of length ``m``, with preallocated buffers
+    (the FFT output is the only allocation per call)."""
 
-    # The recorder calls a row's metrics once each, in this dict's order: dot_prev
-    # computes the row's residual into the buffer not holding the previous one.
-    def dot_prev(w: np.ndarray) -> float:
-        k = state["rows"]
-        cur, prev = bufs[k % 2], bufs[(k + 1) % 2]
-        np.dot(X, w, out=cur)
-        cur -= y
-        state["rows"] = k + 1
-        return float(prev @ cur) if k else math.nan
+    def __init__(self, m: int):
+        self.q = q = m // 2
+        self._line = np.arange(1, q + 1) / max(q, 1)
+        self._p, self._tmp = np.empty(q), np.empty(q)
 
-    q = X.shape[0] // 2
-    line = np.arange(1, q + 1) / max(q, 1)
-    p, tmp = np.empty(q), np.empty(q)
-
-    def distance(w: np.ndarray) -> float:
-        # ncp_distance with preallocated buffers (the FFT output is the only allocation)
+    def __call__(self, r: np.ndarray) -> float:
+        q = self.q
         if q == 0:
             return math.nan
-        rhat = np.fft.rfft(bufs[(state["rows"] - 1) % 2])[1:q + 1]
+        p, tmp = self._p, self._tmp
+        rhat = np.fft.rfft(r)[1:q + 1]
         np.multiply(rhat.real, rhat.real, out=p)
         np.multiply(rhat.imag, rhat.imag, out=tmp)
         np.add(p, tmp, out=p)
@@ -119,19 +114,6 @@ def residual_metrics(problem: Problem) -> dict[str, Callable[[np.ndarray], float
         if not total > 0:
             return math.nan
         np.divide(tmp, total, out=tmp)
-        np.subtract(tmp, line, out=tmp)
+        np.subtract(tmp, self._line, out=tmp)
         np.abs(tmp, out=tmp)
         return float(tmp.max())
-
-    return {"residual_dot_prev": dot_prev, "ncp_distance": distance}
-
-
-def register() -> None:
-    """Add the residual metric set to the recorder (idempotent)."""
-    from . import record
-
-    if residual_metrics not in record.METRIC_SETS:
-        record.METRIC_SETS.append(residual_metrics)
-
-
-register()

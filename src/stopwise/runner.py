@@ -16,7 +16,6 @@ from .data import cached_problem
 from .losses import resolve_loss
 from .problem import Problem
 from .record import Recorder
-from .residual import COLUMNS as RESIDUAL_COLUMNS
 from .solvers import get_solver
 from .solvers.base import make_params
 from .spec import RunSpec, spec_from_overrides
@@ -84,14 +83,15 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
 
     ``path`` chooses how least-squares gradients and recorded errors are evaluated
     (:mod:`stopwise.fastpath`): ``auto`` (the default, a function of the shapes only),
-    or ``direct`` / ``blocked`` / ``gram`` to force one, for checks and benchmarks;
+    or ``direct`` / ``fused`` / ``gram`` to force one, for checks and benchmarks;
     ``record_path`` does the same for the recorded errors only (default: as ``path``).
 
     Recording: the initial iterate, then every ``record.every``-th iterate, or, when
     ``record.per_pass`` is set, the first iterate at or past each point of the grid
     ``k / per_pass`` data passes; the last iterate is always recorded. With
     ``record.residual: false`` regression traces leave out the residual statistics
-    (``residual_dot_prev``, ``ncp_distance``), whose every row reads the training rows.
+    (``residual_dot_prev``, and ``ncp_distance`` on problems whose rows are in signal
+    order, which reads the training rows at every recorded row; :mod:`stopwise.residual`).
     """
     problem = problem if problem is not None else cached_problem(spec.dataset, spec.split, spec.seed)
     sdef = get_solver(spec.solver)
@@ -110,7 +110,12 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
     rec = Recorder(problem, capacity=_record_rows(spec),
                    state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None,
                    loss=train.loss, model=model, statistics=stats,
-                   exclude=() if spec.record.get("residual", True) else RESIDUAL_COLUMNS)
+                   residual=spec.record.get("residual", True))
+    if (spec.stopping.get("halt") and spec.stopping.get("rule") == "ncp"
+            and "ncp_distance" not in rec.columns):
+        raise ValueError(f"stopping.rule=ncp with halt needs ncp_distance, which is recorded only when the "
+                         f"training rows are in signal order; dataset {problem.name!r} has exchangeable rows "
+                         "(a file source can declare dataset.params.row_order=signal)")
     max_it = spec.budget["iterations"]
     max_passes = spec.budget["passes"]
     every = spec.record["every"]

@@ -22,7 +22,7 @@ from .solvers import SOLVERS, get_solver
 from .solvers.base import Choice, Flag, Interval, ParamError, UnknownSolver, make_params
 from .stopping import RuleError, normalize_stopping
 
-TRACE_FORMAT = 1
+TRACE_FORMAT = 2  # 2: residual statistics from the split statistics; ncp_distance on signal rows only
 
 # Keys common to every solver config: a solver without a step size ignores step_scale,
 # and an ignored key never enters the run identity (so a sweep over step scales runs
@@ -86,7 +86,7 @@ class BudgetConfig:
 class RecordConfig:
     every: int = 1
     per_pass: Optional[float] = None  # rows per data pass; replaces `every` when set
-    residual: bool = True  # regression: record the residual statistics (one read of X_train per row)
+    residual: bool = True  # regression: record the residual statistics (see stopwise.residual)
 
 
 @dataclass

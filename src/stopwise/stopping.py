@@ -35,7 +35,6 @@ from typing import Any, Callable, Iterable, Mapping
 
 import numpy as np
 
-from . import residual  # noqa: F401  (registers the residual metric set with the recorder)
 from .errors import SpecError
 from .residual import white_noise_limit
 from .solvers.base import Choice, Flag, Interval, ParamError, make_params, param
@@ -321,7 +320,7 @@ def monotone_error(trace: Any, ctx: RuleContext, params: MonotoneErrorParams = M
     if n == 0:
         return _none(cols, "empty trace")
     if "residual_dot_prev" not in cols:
-        return _none(cols, "trace has no residual_dot_prev column (not a regression trace)")
+        return _none(cols, "trace has no residual_dot_prev column (a regression trace with record.residual on has it)")
     delta, how = _delta(ctx, params.delta)
     if delta is None:
         return _none(cols, NO_DELTA)
@@ -367,7 +366,8 @@ def ncp(trace: Any, ctx: RuleContext, params: NCPParams = NCPParams()) -> Select
     if n == 0:
         return _none(cols, "empty trace")
     if "ncp_distance" not in cols:
-        return _none(cols, "trace has no ncp_distance column (not a regression trace)")
+        return _none(cols, "trace has no ncp_distance column (recorded for regression problems whose training "
+                           "rows are in signal order, with record.residual on)")
     dist = cols["ncp_distance"]
     if params.criterion == "first":
         q = ctx.n_train // 2

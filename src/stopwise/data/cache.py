@@ -32,7 +32,7 @@ import numpy as np
 
 from ..problem import Problem
 
-CACHE_FORMAT = 1
+CACHE_FORMAT = 2  # 2: Problem.info carries row_order
 ENV = "STOPWISE_CACHE"
 ARRAYS = ("X_train", "y_train", "X_val", "y_val", "X_test", "y_test")
 _VERSIONS: dict[str, str] | None = None

@@ -245,7 +245,8 @@ def load_synthetic(p: SyntheticParams) -> RawData:
         names = tuple(f"t{j}" for j in range(p.d))
     return RawData(X=X, y=X @ w, feature_names=names, w_true=w, noise=p.noise,
                    noise_level=float(p.noise_level), noise_seed=(p.seed, 2),
-                   info={"generator": p.generator})
+                   info={"generator": p.generator,
+                         **({"row_order": "signal"} if p.generator == "illposed" else {})})
 
 
 register_source(SourceDef("synthetic", SyntheticParams, load_synthetic,

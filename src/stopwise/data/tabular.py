@@ -106,6 +106,9 @@ def file_digest(path: Path) -> str:
 
 # ---------------------------------------------------------------- the user's files
 
+ROW_ORDERS = ("exchangeable", "signal")
+
+
 @dataclass(frozen=True)
 class FileParams:
     path: str | None = param(None, None, "CSV or Parquet file (relative paths: from the working directory)")
@@ -113,6 +116,9 @@ class FileParams:
     format: str = param("auto", Choice(FORMATS), "auto (by suffix: .parquet/.pq is Parquet, else CSV), csv, parquet")
     task: str = param("auto", Choice(TASK_CHOICES), "auto: numeric target -> regression, labels -> classification")
     sep: str = param(",", None, "CSV field separator")
+    row_order: str = param("exchangeable", Choice(ROW_ORDERS),
+                           "signal: the rows are samples of a signal in file order (time, position), "
+                           "so the residual's NCP statistic is recorded; exchangeable: row order means nothing")
 
 
 def _file_format(p: FileParams) -> str:
@@ -149,7 +155,7 @@ def load_file(p: FileParams) -> RawData:
     frame, y, task = split_target(df, p.target, p.task, f"file {p.path!r}")
     cat = tuple(c for c in frame.columns if is_categorical_dtype(frame[c]))
     return RawData(X=None, y=y, task=task, feature_names=tuple(frame.columns), frame=frame, categorical=cat,
-                   info={"origin": f"file ({fmt})", "path": p.path, "target": p.target})
+                   info={"origin": f"file ({fmt})", "path": p.path, "target": p.target, "row_order": p.row_order})
 
 
 def file_fingerprint(p: FileParams) -> str:
