@@ -126,3 +126,30 @@ def test_bad_data_specs_are_one_line(overrides, needle):
         spec = spec_from_overrides(overrides)
         build_problem(spec.dataset, spec.split, spec.seed)
     assert needle in str(e.value) and "\n" not in str(e.value)
+
+
+@pytest.mark.parametrize("n,d", [(300, 40), (40, 300), (64, 64), (1, 5), (5, 1)])
+def test_training_spectral_norm_matches_the_largest_singular_value(n, d, monkeypatch):
+    """Reference: scipy.linalg.svdvals (LAPACK gesdd) of X_train. Both branches: the top
+    eigenvalue of the smaller Gram matrix, and the full SVD above SPECTRUM_GRAM_MAX."""
+    import scipy.linalg
+
+    from stopwise import problem as problem_module
+    from stopwise.problem import Problem
+
+    rng = np.random.default_rng(n * 1000 + d)
+    X = rng.standard_normal((n, d)) * np.logspace(0, -3, d)  # decaying column scales
+    ref = float(scipy.linalg.svdvals(X)[0]) ** 2
+
+    def make():
+        return Problem(name="t", task="regression", X_train=X, y_train=rng.standard_normal(n),
+                       X_val=X[:0], y_val=np.empty(0), X_test=X[:1], y_test=np.zeros(1))
+
+    p = make()
+    assert p.train_norm2_sq == pytest.approx(ref, rel=1e-13)
+    assert p.L == pytest.approx(ref / n, rel=1e-13)
+    if n >= d:  # the Gram matrix behind the constant is the one the Gram path shares
+        np.testing.assert_allclose(p.gram_matrix("train"), X.T @ X, rtol=0, atol=1e-12 * ref)
+        assert not p.gram_matrix("train").flags.writeable
+    monkeypatch.setattr(problem_module, "SPECTRUM_GRAM_MAX", 0)
+    assert make().train_norm2_sq == pytest.approx(ref, rel=1e-13)

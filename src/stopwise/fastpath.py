@@ -207,7 +207,7 @@ def _gram(problem: Problem, split: str) -> tuple[np.ndarray, np.ndarray, float]:
     hit = cache.get(split)
     if hit is None:
         X, y = getattr(problem, "X_" + split), getattr(problem, "y_" + split)
-        hit = (_frozen(X.T @ X), _frozen(X.T @ y), float(y @ y))
+        hit = (problem.gram_matrix(split), _frozen(X.T @ y), float(y @ y))
         cache[split] = hit
     return hit
 

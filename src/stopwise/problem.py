@@ -12,6 +12,7 @@ import numpy as np
 
 TASKS = ("regression", "binary", "multiclass")
 NOISE_KINDS = ("norm", "gaussian")
+SPECTRUM_GRAM_MAX = 4096  # ||X_train||_2 from a Gram matrix up to this many rows (128 MiB)
 
 
 @dataclass(frozen=True)
@@ -167,14 +168,41 @@ class Problem:
         hit = cache.get(loss)
         if hit is None:
             X = self.X_train
-            smax = self.__dict__.get("_smax")
-            if smax is None:
-                smax = float(np.linalg.norm(X, 2)) if X.size else 0.0
-                object.__setattr__(self, "_smax", smax)
-            L = CURVATURE[loss] * smax * smax / max(X.shape[0], 1)
-            y = self.y_train
-            hit = TrainingSet(X=X, y=y, L=L, task=self.task, loss=loss, k=n_outputs(loss, self.n_classes))
+            L = CURVATURE[loss] * self.train_norm2_sq / max(X.shape[0], 1)
+            hit = TrainingSet(X=X, y=self.y_train, L=L, task=self.task, loss=loss,
+                              k=n_outputs(loss, self.n_classes))
             cache[loss] = hit
+        return hit
+
+    def gram_matrix(self, split: str = "train") -> np.ndarray:
+        """``X_s^T X_s`` of a split (``train``, ``val``, ``test``), computed once per problem
+        and read-only (shared by the smoothness constant and the Gram evaluation path)."""
+        cache = self.__dict__.setdefault("_gram_matrices", {})
+        G = cache.get(split)
+        if G is None:
+            X = getattr(self, "X_" + split)
+            G = X.T @ X
+            G.flags.writeable = False
+            cache[split] = G
+        return G
+
+    @property
+    def train_norm2_sq(self) -> float:
+        """``||X_train||_2^2``, the largest eigenvalue of the smaller of ``X^T X`` and ``X X^T``
+        (LAPACK ``syevd``; its relative error is a small multiple of the machine epsilon), or
+        of a full SVD when that matrix would have more than ``SPECTRUM_GRAM_MAX`` rows.
+        Computed once per problem."""
+        hit = self.__dict__.get("_train_norm2_sq")
+        if hit is None:
+            X = self.X_train
+            n, d = X.shape
+            if X.size == 0:
+                hit = 0.0
+            elif min(n, d) > SPECTRUM_GRAM_MAX:
+                hit = float(np.linalg.norm(X, 2)) ** 2
+            else:
+                hit = float(np.linalg.eigvalsh(self.gram_matrix("train") if n >= d else X @ X.T)[-1])
+            object.__setattr__(self, "_train_norm2_sq", hit)
         return hit
 
     @property
