@@ -38,19 +38,25 @@ QUAD_MIN_D = 384
 QUAD_MAX_SHORT_D = 32
 
 
+@njit(fastmath=FLAGS, nogil=True, cache=True, boundscheck=False, inline="always")
+def _one_row(X, w, y, r, g, i):  # pragma: no cover - compiled
+    d = X.shape[1]
+    s = 0.0
+    for j in range(d):
+        s += X[i, j] * w[j]
+    s -= y[i]
+    r[i] = s
+    for j in range(d):
+        g[j] += s * X[i, j]
+
+
 @njit(fastmath=FLAGS, nogil=True, cache=True, boundscheck=False)
 def _rows(X, w, y, r, g):  # pragma: no cover - compiled
     n, d = X.shape
     for j in range(d):
         g[j] = 0.0
     for i in range(n):
-        s = 0.0
-        for j in range(d):
-            s += X[i, j] * w[j]
-        s -= y[i]
-        r[i] = s
-        for j in range(d):
-            g[j] += s * X[i, j]
+        _one_row(X, w, y, r, g, i)
 
 
 @njit(fastmath=FLAGS, nogil=True, cache=True, boundscheck=False)
@@ -82,13 +88,7 @@ def _quads(X, w, y, r, g):  # pragma: no cover - compiled
             g[j] += s0 * X[i, j] + s1 * X[i + 1, j] + s2 * X[i + 2, j] + s3 * X[i + 3, j]
         i += 4
     while i < n:
-        s = 0.0
-        for j in range(d):
-            s += X[i, j] * w[j]
-        s -= y[i]
-        r[i] = s
-        for j in range(d):
-            g[j] += s * X[i, j]
+        _one_row(X, w, y, r, g, i)
         i += 1
 
 
