@@ -99,11 +99,34 @@ def test_file_rows_declared_as_a_signal_get_the_ncp(tmp_path):
         spec_from_overrides(base + ["dataset.params.row_order=sorted"])
 
 
-def test_halting_on_ncp_needs_signal_rows():
-    spec = spec_from_overrides(["dataset=wellposed", "stopping=ncp", "stopping.params.criterion=first",
-                                "stopping.halt=true"])
-    with pytest.raises(ValueError, match="recorded only when the training rows are in signal order"):
-        execute(spec)
+@pytest.mark.parametrize("dataset,signal", [("illposed", True), ("integral_green", True), ("wellposed", False),
+                                            ("diabetes", False)])
+def test_declared_row_order_matches_the_built_problem(dataset, signal):
+    """The source's declared row order (known at spec time) is the built problem's."""
+    from stopwise.data import dataset_row_order
+
+    spec = spec_from_overrides([f"dataset={dataset}"])
+    assert (dataset_row_order(spec.dataset) == "signal") is signal
+    assert cached_problem(spec.dataset, spec.split, spec.seed).signal_rows is signal
+
+
+def test_halting_on_ncp_needs_signal_rows(tmp_path, monkeypatch, capsys):
+    from stopwise.cli import main
+
+    halt = ["stopping=ncp", "stopping.params.criterion=first", "stopping.halt=true"]
+    with pytest.raises(SpecError, match="recorded only when the training rows are in signal order"):
+        spec_from_overrides(["dataset=wellposed", *halt])
+    monkeypatch.chdir(tmp_path)  # from the shell: one line, exit 2, nothing written
+    assert main(["run", "dataset=wellposed", *halt, f"results_root={tmp_path / 'res'}"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "dataset.params.row_order=signal" in err
+    assert list(tmp_path.rglob("*")) == []
+    # a Problem handed to execute directly is checked too
+    spec = spec_from_overrides(["dataset=illposed", "budget.iterations=5", *halt])
+    wellposed = spec_from_overrides(["dataset=wellposed"])
+    with pytest.raises(ValueError, match="'wellposed' has exchangeable rows"):
+        execute(spec, cached_problem(wellposed.dataset, wellposed.split, wellposed.seed))
+    assert execute(spec).status in ("completed", "halted")
 
 
 def test_residual_statistics_can_be_left_out():

@@ -123,7 +123,8 @@ class Problem:
     def signal_rows(self) -> bool:
         """Whether the rows are samples of a signal in their order (sampling points of an
         integral equation, time), so that the training residual read in row order is a
-        signal too: the source says so as ``info["row_order"] = "signal"``. Splits keep
+        signal too: the source declares it (``SourceDef.row_order``) and the build writes
+        ``info["row_order"] = "signal"``. Splits keep
         the source's row order within each part."""
         return self.info.get("row_order") == "signal"
 

@@ -18,7 +18,7 @@ from .problem import Problem
 from .record import Recorder
 from .solvers import get_solver
 from .solvers.base import make_params
-from .spec import RunSpec, spec_from_overrides
+from .spec import RunSpec, ncp_halt_needs_signal_rows, spec_from_overrides
 from .store import Store
 
 
@@ -113,9 +113,7 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
                    residual=spec.record.get("residual", True))
     if (spec.stopping.get("halt") and spec.stopping.get("rule") == "ncp"
             and "ncp_distance" not in rec.columns):
-        raise ValueError(f"stopping.rule=ncp with halt needs ncp_distance, which is recorded only when the "
-                         f"training rows are in signal order; dataset {problem.name!r} has exchangeable rows "
-                         "(a file source can declare dataset.params.row_order=signal)")
+        raise ValueError(ncp_halt_needs_signal_rows(problem.name))  # a Problem given directly
     max_it = spec.budget["iterations"]
     max_passes = spec.budget["passes"]
     every = spec.record["every"]

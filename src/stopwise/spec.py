@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Dict, List, Optional
 
-from .data import DataError, dataset_task, normalize_dataset, split_rows  # noqa: F401
+from .data import DataError, dataset_row_order, dataset_task, normalize_dataset, split_rows  # noqa: F401
 from .data.split import SPLIT_KINDS
 from .solvers import SOLVERS, get_solver
 from .solvers.base import Choice, Flag, Interval, ParamError, UnknownSolver, make_params
@@ -112,6 +112,13 @@ class StopwiseConfig:
 
 # halting rules that read the residual columns (record.residual)
 RESIDUAL_RULES = ("monotone_error", "ncp")
+
+
+def ncp_halt_needs_signal_rows(dataset_name: Any) -> str:
+    """The one-line error for halting on the NCP rule where ``ncp_distance`` is not recorded."""
+    return (f"stopping.rule=ncp with halt needs ncp_distance, which is recorded only when the training "
+            f"rows are in signal order; dataset {dataset_name!r} has exchangeable rows (a file source "
+            "can declare dataset.params.row_order=signal)")
 
 # numeric constraints of the fixed schemas, as data (read by validation and by tests)
 FIELD_CONSTRAINTS: dict[str, Interval | Choice] = {
@@ -370,6 +377,8 @@ def spec_from_config(cfg: Any) -> RunSpec:
     if stopping.get("halt") and stopping.get("rule") in RESIDUAL_RULES and record.get("residual") is False:
         raise SpecError(f"stopping.rule={stopping['rule']} with halt needs the residual columns: "
                         "drop record.residual=false")
+    if stopping.get("halt") and stopping.get("rule") == "ncp" and dataset_row_order(dataset) != "signal":
+        raise SpecError(ncp_halt_needs_signal_rows(dataset.get("name")))
     return RunSpec(dataset=dataset, split=split, solver=name, params=params, budget=budget,
                    record=record, seed=seed, stopping=stopping)
 

@@ -121,6 +121,17 @@ def dataset_task(dataset: dict[str, Any]) -> str | None:
         return None
 
 
+def _row_order(src: SourceDef, params: Any) -> str:
+    return src.row_order(params) if src.row_order is not None else "exchangeable"
+
+
+def dataset_row_order(dataset: dict[str, Any]) -> str:
+    """``signal`` or ``exchangeable``: the row order of a (normalized) dataset config, as its
+    source declares it (known without loading data; see :attr:`Problem.signal_rows`)."""
+    src = get_source(dataset.get("source"))
+    return _row_order(src, make_params(src.params, dict(dataset.get("params") or {}), "dataset.params"))
+
+
 def _noise(raw: RawData, parts: list[np.ndarray]) -> list[np.ndarray]:
     """Noise for train/val/test rows. ``norm``: the training noise has exactly norm
     ``noise_level``, the other parts the same root-mean-square value."""
@@ -199,7 +210,8 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
     src = get_source(dataset["source"])
     name = str(dataset.get("name") or dataset["source"])
     where = f"dataset {name!r}"
-    raw = src.load(make_params(src.params, dataset["params"], "dataset.params"))
+    params = make_params(src.params, dataset["params"], "dataset.params")
+    raw = src.load(params)
     X, frame, names, w_true = _select(raw, dataset, where)
     try:
         parts = list(_split(raw, split, seed))
@@ -277,7 +289,8 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
         if w_true is not None:
             w_true = np.append(w_true, 0.0)
         prep["add_constant"] = True
-    info = dict(raw.info, rows={"train": tr.tolist(), "val": va.tolist(), "test": te.tolist()})
+    info = dict(raw.info, row_order=_row_order(src, params),
+                rows={"train": tr.tolist(), "val": va.tolist(), "test": te.tolist()})
     if classify:
         ys, classes = encode_labels(ys, raw.task, raw.info.get("classes"), where)
         info["classes"] = classes
@@ -360,6 +373,6 @@ def prepare_problems(specs: Iterable[Any]) -> int:
     return len(seen)
 
 
-__all__ = ["DataError", "RawData", "SourceDef", "SOURCES", "build_problem", "cached_problem", "get_source",
+__all__ = ["DataError", "RawData", "SourceDef", "SOURCES", "build_problem", "cached_problem", "dataset_row_order", "get_source",
            "normalize_dataset", "prepare_problems", "problem_key", "split_rows"]
 

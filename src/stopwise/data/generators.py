@@ -166,11 +166,12 @@ def load_integral(p: IntegralParams) -> RawData:
                    info={"generator": "integral", "kernel": p.kernel, "smoothness": p.smoothness,
                          "source_norm": float(np.sqrt(h) * np.linalg.norm(omega)),
                          "source_element": omega.tolist(), "points": s.tolist(), "grid": t.tolist(),
-                         "operator_scale": float(1.0 / np.sqrt(p.n * h)), "row_order": "signal"})
+                         "operator_scale": float(1.0 / np.sqrt(p.n * h))})
 
 
 register_source(SourceDef("integral", IntegralParams, load_integral,
-                          "first-kind integral equations (three kernels) with a source-condition truth"))
+                          "first-kind integral equations (three kernels) with a source-condition truth",
+                          row_order=lambda p: "signal"))
 
 
 # ---------------------------------------------------------------- chosen spectral decay

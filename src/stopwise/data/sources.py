@@ -61,6 +61,9 @@ class SourceDef:
     # optional check of the params at spec time: raises a one-line ValueError; may return the
     # task the params give when it is known without loading the data (else None)
     check: Callable[[Any], str | None] | None = None
+    # optional: the row order the params give, "signal" (rows are samples of a signal in
+    # order, see Problem.signal_rows) or "exchangeable" (the default when absent)
+    row_order: Callable[[Any], str] | None = None
 
 
 SOURCES: dict[str, SourceDef] = {}
@@ -245,9 +248,9 @@ def load_synthetic(p: SyntheticParams) -> RawData:
         names = tuple(f"t{j}" for j in range(p.d))
     return RawData(X=X, y=X @ w, feature_names=names, w_true=w, noise=p.noise,
                    noise_level=float(p.noise_level), noise_seed=(p.seed, 2),
-                   info={"generator": p.generator,
-                         **({"row_order": "signal"} if p.generator == "illposed" else {})})
+                   info={"generator": p.generator})
 
 
 register_source(SourceDef("synthetic", SyntheticParams, load_synthetic,
-                          "synthetic least-squares problems with known truth and noise"))
+                          "synthetic least-squares problems with known truth and noise",
+                          row_order=lambda p: "signal" if p.generator == "illposed" else "exchangeable"))

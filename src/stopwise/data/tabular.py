@@ -155,7 +155,7 @@ def load_file(p: FileParams) -> RawData:
     frame, y, task = split_target(df, p.target, p.task, f"file {p.path!r}")
     cat = tuple(c for c in frame.columns if is_categorical_dtype(frame[c]))
     return RawData(X=None, y=y, task=task, feature_names=tuple(frame.columns), frame=frame, categorical=cat,
-                   info={"origin": f"file ({fmt})", "path": p.path, "target": p.target, "row_order": p.row_order})
+                   info={"origin": f"file ({fmt})", "path": p.path, "target": p.target})
 
 
 def file_fingerprint(p: FileParams) -> str:
@@ -164,4 +164,4 @@ def file_fingerprint(p: FileParams) -> str:
 
 
 register_source(SourceDef("file", FileParams, load_file, "the user's own CSV or Parquet file",
-                          fingerprint=file_fingerprint, check=check_file))
+                          fingerprint=file_fingerprint, check=check_file, row_order=lambda p: p.row_order))
