@@ -60,7 +60,7 @@ def spectral_problem(n: int, d: int, decay: float = 1.0, sigma: float = 1.0, see
     into train / validation / test by the fractions ``1 - sum(parts)``, ``parts``."""
     import numpy as np
 
-    from stopwise.problem import Problem
+    from stopwise.problem.problem import Problem
 
     rng = np.random.default_rng([seed, 0xBE9C])
     scales = np.arange(1, d + 1, dtype=np.float64) ** -decay

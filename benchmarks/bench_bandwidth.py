@@ -22,8 +22,8 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).parent))
 from _common import blas_threads, best_of, machine  # noqa: E402
 
-from stopwise import fastpath, kernels  # noqa: E402
-from stopwise.problem import TrainingSet  # noqa: E402
+from stopwise.running import fastpath, kernels  # noqa: E402
+from stopwise.problem.problem import TrainingSet  # noqa: E402
 from stopwise.solvers import get_solver  # noqa: E402
 from stopwise.solvers.base import make_params  # noqa: E402
 

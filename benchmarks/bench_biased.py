@@ -13,7 +13,7 @@ import time
 
 import numpy as np
 
-from stopwise.problem import TrainingSet
+from stopwise.problem.problem import TrainingSet
 from stopwise.solvers import get_solver
 from stopwise.solvers.base import make_params
 

@@ -12,8 +12,8 @@ import timeit
 
 import numpy as np
 
-from stopwise.problem import Problem, TrainingSet
-from stopwise.record import Recorder
+from stopwise.problem.problem import Problem, TrainingSet
+from stopwise.running.record import Recorder
 from stopwise.solvers import get_solver
 
 N, D, K = 4000, 100, 5

@@ -21,9 +21,9 @@ from pathlib import Path
 
 import numpy as np
 
-from stopwise.query import load_traces
-from stopwise.rank import gather, rank, read_traces
-from stopwise.store import Store
+from stopwise.results.query import load_traces
+from stopwise.analysis.rank import gather, rank, read_traces
+from stopwise.results.store import Store
 
 ROWS = 301
 DATASETS = ("alpha", "beta", "gamma", "delta")

@@ -33,10 +33,10 @@ from _common import blas_threads, machine, spectral_problem  # noqa: E402
 
 import numpy as np  # noqa: E402
 
-from stopwise import kernels  # noqa: E402
+from stopwise.running import kernels  # noqa: E402
 from stopwise.data import cached_problem  # noqa: E402
-from stopwise.runner import execute  # noqa: E402
-from stopwise.spec import spec_from_overrides  # noqa: E402
+from stopwise.running.runner import execute  # noqa: E402
+from stopwise.config.spec import spec_from_overrides  # noqa: E402
 
 
 def measure(label, spec, problem, path="auto", record_path=None, repeat=3):

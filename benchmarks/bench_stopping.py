@@ -12,9 +12,9 @@ import time
 
 import numpy as np
 
-from stopwise.runner import execute
-from stopwise.spec import spec_from_overrides
-from stopwise.stopping import RULES, RuleContext, apply_rule
+from stopwise.running.runner import execute
+from stopwise.config.spec import spec_from_overrides
+from stopwise.stopping.rules import RULES, RuleContext, apply_rule
 
 
 def best_of(fn, repeat=3):

@@ -23,11 +23,11 @@ from sklearn.metrics import mean_squared_error
 sys.path.insert(0, str(Path(__file__).parent))
 from _common import blas_threads, machine  # noqa: E402
 
-from stopwise.campaign import expand  # noqa: E402
+from stopwise.sweep.campaign import expand  # noqa: E402
 from stopwise.data import cached_problem  # noqa: E402
-from stopwise.runner import execute, save  # noqa: E402
+from stopwise.running.runner import execute, save  # noqa: E402
 from stopwise.solvers.krylov import TOL as CGLS_TOL  # noqa: E402
-from stopwise.store import Store  # noqa: E402
+from stopwise.results.store import Store  # noqa: E402
 
 
 def hand_loop(problem, solver: str, params: dict, iterations: int, out: Path, factor: float = 1e10):

@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.optimize import linprog, minimize
 
-from stopwise.problem import Problem, TrainingSet
+from stopwise.problem.problem import Problem, TrainingSet
 from stopwise.solvers import get_solver
 from stopwise.solvers.base import make_params
 

@@ -6,11 +6,11 @@ import numpy as np
 import pytest
 
 from stopwise.data import build_problem
-from stopwise.runner import execute
+from stopwise.running.runner import execute
 from stopwise.solvers import get_solver
 from stopwise.solvers.averaging import AveragingError, AveragingParams, averaged, tail_start
 from stopwise.solvers.base import make_params
-from stopwise.spec import spec_from_overrides
+from stopwise.config.spec import spec_from_overrides
 
 
 def _problem(name):

@@ -20,8 +20,8 @@ from stopwise.cli import main
 from stopwise.data.sources import SOURCES
 from stopwise.solvers import SOLVERS
 from stopwise.solvers.base import Choice, Interval
-from stopwise.spec import FIELD_CONSTRAINTS, StopwiseConfig, conf_dir, spec_from_overrides
-from stopwise.errors import SpecError
+from stopwise.config.spec import FIELD_CONSTRAINTS, StopwiseConfig, conf_dir, spec_from_overrides
+from stopwise.core.errors import SpecError
 
 
 def dataset_configs_by_source() -> dict[str, str]:
@@ -39,7 +39,7 @@ def dataset_for_tasks(tasks) -> list[str]:
     if "regression" in tasks:
         return []
     try:
-        from stopwise.data.catalog import entries
+        from stopwise.config.catalog import entries
     except ImportError:
         return []
     for e in entries():

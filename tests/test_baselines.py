@@ -14,10 +14,18 @@ import pytest
 from sklearn.exceptions import ConvergenceWarning
 
 import stopwise
-from stopwise.baselines import (BASELINE_COLUMNS, BaselineError, baseline_params, ensure_baseline, fit_path,
-                                lasso_alpha_max, load_baselines, ridge_svd_path)
+from stopwise.analysis.baselines import (
+    BASELINE_COLUMNS,
+    BaselineError,
+    baseline_params,
+    ensure_baseline,
+    fit_path,
+    lasso_alpha_max,
+    load_baselines,
+    ridge_svd_path,
+)
 from stopwise.cli import main
-from stopwise.problem import Problem
+from stopwise.problem.problem import Problem
 
 
 def regression(name="diabetes", extra=()):
@@ -228,12 +236,12 @@ def test_ensure_baselines_stores_one_path_per_split_and_method(camp):
 def test_baselines_see_exactly_the_runs_splits(camp):
     """A huge ridge penalty gives w = 0, whose test error the runs recorded at iteration 0;
     equal errors mean the baseline rebuilt the very same test rows and targets."""
-    store = stopwise.store.Store(camp)
+    store = stopwise.results.store.Store(camp)
     runs = stopwise.load_runs(camp, "adhoc")
     traces = stopwise.load_traces(camp, "adhoc")
     for rid in runs["run_id"]:
         cfg = store.run_meta(rid)["config"]
-        from stopwise.baselines import data_spec
+        from stopwise.analysis.baselines import data_spec
 
         spec = data_spec(cfg["dataset"], cfg["split"], cfg["seed"])
         path = ensure_baseline(camp, spec, "ridge", {"penalties": [1e15]})
@@ -246,7 +254,7 @@ def test_baselines_see_exactly_the_runs_splits(camp):
 
 
 def test_stored_selection_matches_a_fresh_fit(camp):
-    from stopwise.baselines import baseline_id, data_spec
+    from stopwise.analysis.baselines import baseline_id, data_spec
 
     df = stopwise.ensure_baselines(camp, "adhoc", methods=["ridge"])
     spec_ = stopwise.spec_from_overrides(["dataset=diabetes", "seed=1"])

@@ -7,9 +7,9 @@ import pytest
 
 import stopwise
 from biased_helpers import as_problem, final, piecewise_constant, slsqp_elastic_limit, training, underdetermined
-from stopwise.record import Recorder
-from stopwise.runner import execute
-from stopwise.spec import spec_from_overrides
+from stopwise.running.record import Recorder
+from stopwise.running.runner import execute
+from stopwise.config.spec import spec_from_overrides
 
 
 def trace(problem, overrides):

@@ -6,7 +6,7 @@ from sklearn.datasets import load_iris
 from sklearn.linear_model import LogisticRegression
 
 import stopwise
-from stopwise.problem import TrainingSet
+from stopwise.problem.problem import TrainingSet
 from stopwise.solvers import SOLVERS, get_solver
 from stopwise.solvers.base import ParamError, make_params
 
@@ -117,7 +117,7 @@ def test_error_curves_with_zero_test_error():
     # report must still draw (a panel without positive errors gets a note instead)
     import pandas as pd
 
-    from stopwise.figures import curves
+    from stopwise.report.figures import curves
 
     traces = pd.DataFrame({"run_id": ["a"] * 3 + ["b"] * 3, "passes": [0.0, 1.0, 2.0] * 2,
                            "test_error": [1.0, 0.0, 0.0, 1.0, 0.2, 0.1]})

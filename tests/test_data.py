@@ -7,7 +7,7 @@ from sklearn.metrics import mean_squared_error, r2_score
 
 import stopwise
 from stopwise.data import build_problem
-from stopwise.spec import SpecError, spec_from_overrides
+from stopwise.config.spec import SpecError, spec_from_overrides
 
 
 def test_diabetes_shape_matches_the_loader_description():
@@ -134,8 +134,8 @@ def test_training_spectral_norm_matches_the_largest_singular_value(n, d, monkeyp
     eigenvalue of the smaller Gram matrix, and the full SVD above SPECTRUM_GRAM_MAX."""
     import scipy.linalg
 
-    from stopwise import problem as problem_module
-    from stopwise.problem import Problem
+    from stopwise.problem import problem as problem_module
+    from stopwise.problem.problem import Problem
 
     rng = np.random.default_rng(n * 1000 + d)
     X = rng.standard_normal((n, d)) * np.logspace(0, -3, d)  # decaying column scales

@@ -5,14 +5,14 @@ import numpy as np
 import pytest
 
 import stopwise
-from stopwise import fastpath
+from stopwise.running import fastpath
 from stopwise.data import build_problem
-from stopwise.problem import TrainingSet
-from stopwise.record import Recorder
-from stopwise.rerun import rerun_one
-from stopwise.runner import execute
-from stopwise.spec import spec_from_overrides
-from stopwise.store import Store
+from stopwise.problem.problem import TrainingSet
+from stopwise.running.record import Recorder
+from stopwise.running.rerun import rerun_one
+from stopwise.running.runner import execute
+from stopwise.config.spec import spec_from_overrides
+from stopwise.results.store import Store
 
 
 def _problem(*overrides):
@@ -50,7 +50,7 @@ def test_fused_kernel_variants_equal_numpy_on_every_remainder(kind, shape):
     """Both compiled variants against numpy's X w - y and X^T r on shapes that exercise the
     four-row loop's remainder (n mod 4 = 0..3), one-row and one-column inputs, an empty X,
     and non-contiguous (sliced) inputs; the variant rule is a function of d only."""
-    from stopwise import kernels
+    from stopwise.running import kernels
 
     n, d = shape
     rng = np.random.default_rng(n * 1000 + d)
@@ -65,7 +65,7 @@ def test_fused_kernel_variants_equal_numpy_on_every_remainder(kind, shape):
 
 def test_fused_kernel_keeps_non_finite_numbers():
     """Compiled without the no-NaN / no-infinity assumptions: a diverging iterate shows."""
-    from stopwise import kernels
+    from stopwise.running import kernels
 
     X = np.ones((5, 4))
     for bad in (np.inf, np.nan):
@@ -77,7 +77,7 @@ def test_fused_kernel_keeps_non_finite_numbers():
 
 def test_fused_kernel_is_deterministic():
     """The same call twice gives the same bits (reruns are exact)."""
-    from stopwise import kernels
+    from stopwise.running import kernels
 
     rng = np.random.default_rng(3)
     X, y, w = rng.standard_normal((1003, 500)), rng.standard_normal(1003), rng.standard_normal(500)

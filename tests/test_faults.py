@@ -15,8 +15,8 @@ import pytest
 
 import stopwise
 from stopwise.cli import main
-from stopwise.store import Store
-from stopwise.verify import TEMP_GRACE_SECONDS, check_trace, verify_root
+from stopwise.results.store import Store
+from stopwise.results.verify import TEMP_GRACE_SECONDS, check_trace, verify_root
 
 from sweep_helpers import assert_same_traces, cli, popen
 
@@ -102,7 +102,7 @@ def test_two_sweeps_of_one_campaign_at_once(uninterrupted, tmp_path):
 WRITER = """
 import sys, time
 from pathlib import Path
-from stopwise.store import _atomic_write
+from stopwise.results.store import _atomic_write
 
 def write(fh):
     fh.write(b"PAR1" + b"\\0" * 4096)   # the first bytes of a Parquet file, never finished

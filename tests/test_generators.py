@@ -7,7 +7,7 @@ from sklearn.svm import SVC
 
 from stopwise.data import build_problem
 from stopwise.data.generators import IntegralParams, load_integral
-from stopwise.spec import SpecError, spec_from_overrides
+from stopwise.config.spec import SpecError, spec_from_overrides
 
 
 def problem(overrides):

@@ -4,8 +4,8 @@ import pandas as pd
 import pytest
 
 import stopwise
-from stopwise.margins import normalized_margin
-from stopwise.problem import TrainingSet
+from stopwise.problem.margins import normalized_margin
+from stopwise.problem.problem import TrainingSet
 from stopwise.solvers import get_solver
 from stopwise.solvers.base import ParamError, make_params
 from stopwise.solvers.margin import HingeDiagonalParams
@@ -80,7 +80,7 @@ def test_through_the_runner(root):
     out = stopwise.run(["dataset=iris_setosa_versicolor", "solver=hinge_diagonal", "solver.update=primal_dual",
                         "solver.step_scale=0.9", "budget.iterations=3000", "record.every=500"], root=root)
     df = pd.read_parquet(out.path)
-    info = stopwise.store.Store(root).run_meta(out.run_id)["problem"]
+    info = stopwise.results.store.Store(root).run_meta(out.run_id)["problem"]
     assert info["loss"] == "hinge" and (df["loss"] == "hinge").all()
     assert df["svm_dist"].iloc[-1] < 1e-6
     assert df["margin"].iloc[-1] == pytest.approx(info["svm_margin"], rel=1e-5)

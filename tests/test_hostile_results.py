@@ -21,9 +21,9 @@ import pyarrow.parquet as pq
 import pytest
 
 import stopwise
-from stopwise.campaign import campaign_digest
+from stopwise.sweep.campaign import campaign_digest
 from stopwise.cli import main
-from stopwise.spec import canonical_json
+from stopwise.config.spec import canonical_json
 
 TRAP_MODULE = textwrap.dedent("""
     import os

@@ -9,7 +9,7 @@ import pytest
 
 import stopwise
 from stopwise.cli import main
-from stopwise.spec import spec_from_config, spec_from_overrides
+from stopwise.config.spec import spec_from_config, spec_from_overrides
 
 
 def files_under(path):

@@ -22,11 +22,11 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
 from stopwise.data.sources import SOURCES
-from stopwise.errors import SpecError
+from stopwise.core.errors import SpecError
 from stopwise.solvers import SOLVERS
 from stopwise.solvers.base import Choice, Interval
-from stopwise.spec import FIELD_CONSTRAINTS, spec_from_config, spec_from_overrides
-from stopwise.stopping import RULES
+from stopwise.config.spec import FIELD_CONSTRAINTS, spec_from_config, spec_from_overrides
+from stopwise.stopping.rules import RULES
 
 SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 

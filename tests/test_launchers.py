@@ -17,7 +17,7 @@ from omegaconf import OmegaConf
 
 import stopwise
 from stopwise.cli import cores, main
-from stopwise.spec import compose, spec_from_overrides
+from stopwise.config.spec import compose, spec_from_overrides
 
 from sweep_helpers import assert_same_traces, cli
 

@@ -8,8 +8,8 @@ import pandas as pd
 import pytest
 
 import stopwise
-from stopwise.margins import normalized_margin
-from stopwise.problem import TrainingSet
+from stopwise.problem.margins import normalized_margin
+from stopwise.problem.problem import TrainingSet
 from stopwise.solvers import get_solver
 
 from classif_refs import iris_setosa_versicolor, separable_gaussian, slsqp_hard_margin, svc_hard_margin
@@ -129,7 +129,7 @@ def test_loss_normalized_step_descends_log_loss():
     # normalize = loss is gradient descent on log f, which is R^2-smooth (R = max_i ||x_i||,
     # since sigma'(q) <= log(1 + e^-q)); with step 1/R^2 the descent lemma (Nesterov 2004,
     # Thm 2.1.5) gives log f(w_{t+1}) <= log f(w_t) - ||grad log f||^2 / (2 R^2)
-    from stopwise.losses import logistic_log_gradient
+    from stopwise.problem.losses import logistic_log_gradient
 
     X, y = separable_gaussian()
     tr = logistic_set(X, y)

@@ -5,10 +5,17 @@ from scipy.optimize import approx_fprime, check_grad
 from scipy.special import logsumexp, softmax
 from sklearn.metrics import accuracy_score, hinge_loss, log_loss, zero_one_loss
 
-from stopwise import losses
-from stopwise.losses import (LossError, check_loss, errors_from_scores, logistic_log_gradient, resolve_loss,
-                             softmax_log_gradient, value_from_scores)
-from stopwise.problem import TrainingSet
+from stopwise.problem import losses
+from stopwise.problem.losses import (
+    LossError,
+    check_loss,
+    errors_from_scores,
+    logistic_log_gradient,
+    resolve_loss,
+    softmax_log_gradient,
+    value_from_scores,
+)
+from stopwise.problem.problem import TrainingSet
 
 
 def data(n=40, d=5, k=None, seed=0):

@@ -10,9 +10,9 @@ from sklearn.metrics import accuracy_score, hinge_loss, log_loss, zero_one_loss
 
 import stopwise
 from stopwise.cli import main as cli_main
-from stopwise.margins import hard_margin, is_separable, normalized_margin, reference
-from stopwise.problem import Problem
-from stopwise.record import Recorder
+from stopwise.problem.margins import hard_margin, is_separable, normalized_margin, reference
+from stopwise.problem.problem import Problem
+from stopwise.running.record import Recorder
 
 from classif_refs import iris_setosa_versicolor, separable_gaussian, slsqp_hard_margin, svc_hard_margin
 
@@ -130,7 +130,7 @@ def test_run_stores_reference_and_columns(root):
     for c in ("val_loss", "test_loss", "margin", "svm_angle", "svm_dist"):
         assert c in df.columns
     assert (df["loss"] == "logistic").all() and (df["task"] == "binary").all()
-    meta = stopwise.store.Store(root).run_meta(out.run_id)
+    meta = stopwise.results.store.Store(root).run_meta(out.run_id)
     p = stopwise.load_problem(["dataset=iris_setosa_versicolor"])
     w_qp = slsqp_hard_margin(p.X_train, p.y_train)
     info = meta["problem"]
@@ -147,7 +147,7 @@ def test_cli_bad_input_writes_nothing(tmp_path, capsys):
 
 
 def test_reference_skipped_above_the_row_limit(monkeypatch):
-    from stopwise import margins
+    from stopwise.problem import margins
 
     X, y = separable_gaussian(n=60)
     monkeypatch.setattr(margins, "REFERENCE_MAX_ROWS", 20)

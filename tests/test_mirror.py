@@ -110,7 +110,7 @@ def test_a_newly_registered_prox_is_accepted_and_used():
     argmin (1/2)||w||^2 s.t. Xw = y, |w_j| <= 0.6, which SciPy SLSQP also finds."""
     from scipy.optimize import minimize
 
-    from stopwise.spec import spec_from_config
+    from stopwise.config.spec import spec_from_config
 
     register_prox(ProxDef("box_test", lambda v, t, o: np.clip(v, -0.6, 0.6),
                           lambda w, o: 0.0 if np.abs(w).max(initial=0) <= 0.6 + 1e-12 else np.inf,

@@ -7,9 +7,9 @@ from scipy.optimize import check_grad
 from sklearn.metrics import log_loss
 
 import stopwise
-from stopwise.models import TwoLayerReLU
-from stopwise.problem import TrainingSet
-from stopwise.record import Recorder
+from stopwise.problem.models import TwoLayerReLU
+from stopwise.problem.problem import TrainingSet
+from stopwise.running.record import Recorder
 from stopwise.solvers import get_solver
 
 from classif_refs import iris_setosa_versicolor
@@ -47,7 +47,7 @@ def test_homogeneous_of_degree_two():
 
 def test_recorder_uses_the_network_margin():
     X, y = iris_setosa_versicolor()
-    from stopwise.problem import Problem
+    from stopwise.problem.problem import Problem
 
     p = Problem(name="t", task="binary", X_train=X[::2], y_train=y[::2], X_val=X[1::4], y_val=y[1::4],
                 X_test=X[3::4], y_test=y[3::4])

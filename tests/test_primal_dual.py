@@ -3,7 +3,13 @@ import numpy as np
 import pytest
 
 from biased_helpers import final, linprog_basis_pursuit, piecewise_constant, linprog_tv, slsqp_group_limit, training
-from stopwise.solvers.primal_dual import ChambollePockParams, cp_init, cp_metrics, diff_t, operator_norm
+from stopwise.solvers.primal_dual import (
+    ChambollePockParams,
+    cp_init,
+    cp_metrics,
+    diff_t,
+    operator_norm,
+)
 
 
 def bp_system(seed=5, n=12, d=30):

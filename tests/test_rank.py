@@ -13,8 +13,8 @@ from hypothesis import strategies as st
 from scipy import stats
 
 from handbuilt import baseline_rows, random_campaign, selection_row, selections, trace
-from stopwise.rank import RankError, Target, passes_to_target, rank, tune
-from stopwise.tables import FormatError, render, to_markdown, to_text
+from stopwise.analysis.rank import RankError, Target, passes_to_target, rank, tune
+from stopwise.report.tables import FormatError, render, to_markdown, to_text
 
 
 def small_campaign():

@@ -12,11 +12,11 @@ import pytest
 from PIL import Image
 
 import stopwise
-from stopwise.campaign import expand
+from stopwise.sweep.campaign import expand
 from stopwise.cli import main
-from stopwise.rank import rank_campaign, read_traces
-from stopwise.runner import run_spec
-from stopwise.store import Store
+from stopwise.analysis.rank import rank_campaign, read_traces
+from stopwise.running.runner import run_spec
+from stopwise.results.store import Store
 
 SWEEP = ["dataset=wellposed,illposed", "solver=gd,nesterov,cgls", "solver.step_scale=0.5,1.0", "seed=0,1",
          "budget.iterations=60"]

@@ -3,10 +3,10 @@ import doctest
 
 import pytest
 
-import stopwise.rankstats
+import stopwise.analysis.rankstats
 
 
-@pytest.mark.parametrize("module", [stopwise.rankstats])
+@pytest.mark.parametrize("module", [stopwise.analysis.rankstats])
 def test_docstring_examples(module):
     result = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
     assert result.attempted > 0 and result.failed == 0

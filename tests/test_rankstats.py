@@ -6,9 +6,18 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from stopwise.rankstats import (StatsError, critical_difference, data_profile, friedman_from_ranks,
-                                friedman_test, nemenyi_q, performance_profile, performance_ratios, rank_table,
-                                student_interval)
+from stopwise.analysis.rankstats import (
+    StatsError,
+    critical_difference,
+    data_profile,
+    friedman_from_ranks,
+    friedman_test,
+    nemenyi_q,
+    performance_profile,
+    performance_ratios,
+    rank_table,
+    student_interval,
+)
 
 # Demsar, "Statistical Comparisons of Classifiers over Multiple Data Sets", JMLR 7 (2006),
 # worked example of section 3.2.2 (Table 6): N = 14 data sets, k = 4 variants of C4.5.

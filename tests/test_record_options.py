@@ -5,9 +5,9 @@ import numpy as np
 import pytest
 
 from stopwise.data import cached_problem
-from stopwise.residual import COLUMNS as RESIDUAL_COLUMNS, ncp_distance
-from stopwise.runner import execute
-from stopwise.spec import SpecError, spec_from_overrides
+from stopwise.stopping.residual import COLUMNS as RESIDUAL_COLUMNS, ncp_distance
+from stopwise.running.runner import execute
+from stopwise.config.spec import SpecError, spec_from_overrides
 
 
 def _gd_residuals(p, iterations, step_scale=1.0):

@@ -10,8 +10,13 @@ import numpy as np
 import pytest
 
 import stopwise
-from stopwise.references import (REFERENCE_COLUMNS, load_references, parse_method, protocol_problem,
-                                 reproduce)
+from stopwise.analysis.references import (
+    REFERENCE_COLUMNS,
+    load_references,
+    parse_method,
+    protocol_problem,
+    reproduce,
+)
 
 REFS = load_references()
 

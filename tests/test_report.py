@@ -8,10 +8,10 @@ import pytest
 from PIL import Image
 
 from handbuilt import baseline_rows
-from stopwise import figures as F
-from stopwise.rank import rank
-from stopwise.rankstats import friedman_from_ranks
-from stopwise.report import ReportPage, render_html, standard_plots, write_report
+from stopwise.report import figures as F
+from stopwise.analysis.rank import rank
+from stopwise.analysis.rankstats import friedman_from_ranks
+from stopwise.report.report import ReportPage, render_html, standard_plots, write_report
 from test_rank import small_baselines, small_campaign, small_traces
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"

@@ -13,11 +13,11 @@ import pytest
 
 import stopwise
 from stopwise.cli import main
-from stopwise.runner import Trace, execute, run_spec, save
-from stopwise.selection import SELECT_COLUMNS
-from stopwise.spec import spec_from_overrides
-from stopwise.stopping import RuleContext, apply_rule
-from stopwise.store import Store
+from stopwise.running.runner import Trace, execute, run_spec, save
+from stopwise.analysis.selection import SELECT_COLUMNS
+from stopwise.config.spec import spec_from_overrides
+from stopwise.stopping.rules import RuleContext, apply_rule
+from stopwise.results.store import Store
 
 
 @pytest.fixture(scope="module")
@@ -179,7 +179,7 @@ def test_halting_decision_deep_in_the_trace_is_exact(tmp_path):
     assert got["iteration"].iloc[-1] == 135 == math.ceil(10 * math.sqrt(180))
     assert out.message.startswith("halted by a_priori at iteration 135")
     # recomputing the halted run from its stored identity reproduces it
-    from stopwise.rerun import rerun_one
+    from stopwise.running.rerun import rerun_one
 
     c = rerun_one(Store(tmp_path), out.run_id)
     assert c.ok, c.problems

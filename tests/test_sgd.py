@@ -13,12 +13,12 @@ from sklearn.linear_model import SGDRegressor
 
 import stopwise
 from stopwise.data import build_problem
-from stopwise.problem import TrainingSet
-from stopwise.runner import execute, run_rng
+from stopwise.problem.problem import TrainingSet
+from stopwise.running.runner import execute, run_rng
 from stopwise.solvers import get_solver
 from stopwise.solvers.base import make_params
 from stopwise.solvers.stochastic import batch_count, batch_smoothness, next_rows, sample_smoothness
-from stopwise.spec import SpecError, spec_from_overrides
+from stopwise.config.spec import SpecError, spec_from_overrides
 
 SGD = get_solver("sgd")
 

@@ -6,11 +6,11 @@ import pytest
 import scipy.sparse.linalg
 
 import stopwise
-from stopwise.problem import Problem, TrainingSet
-from stopwise.runner import execute
+from stopwise.problem.problem import Problem, TrainingSet
+from stopwise.running.runner import execute
 from stopwise.solvers import SOLVERS, get_solver
 from stopwise.solvers.base import ParamError, make_params
-from stopwise.spec import spec_from_overrides
+from stopwise.config.spec import spec_from_overrides
 
 
 def training(X, y):

@@ -16,11 +16,19 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 import stopwise
-from stopwise.residual import ncp, ncp_distance, periodogram_tail, white_noise_limit
-from stopwise.runner import execute
-from stopwise.spec import SpecError, spec_from_overrides
-from stopwise.stopping import (RULES, RuleContext, RuleError, Selection, apply_rule, make_rule_params,
-                               normalize_stopping, rule_label)
+from stopwise.stopping.residual import ncp, ncp_distance, periodogram_tail, white_noise_limit
+from stopwise.running.runner import execute
+from stopwise.config.spec import SpecError, spec_from_overrides
+from stopwise.stopping.rules import (
+    RULES,
+    RuleContext,
+    RuleError,
+    Selection,
+    apply_rule,
+    make_rule_params,
+    normalize_stopping,
+    rule_label,
+)
 
 
 def trace(**cols):

@@ -14,7 +14,7 @@ import pytest
 
 import stopwise
 from stopwise.cli import main
-from stopwise.verify import verify_root
+from stopwise.results.verify import verify_root
 
 
 @pytest.fixture(scope="module")

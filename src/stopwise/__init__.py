@@ -20,34 +20,34 @@ Public API::
 """
 from __future__ import annotations
 
-__version__ = "0.1.0"
+from stopwise.core.version import __version__  # noqa: E402
 
-from .losses import LOSSES, get_loss, minibatch_gradient  # noqa: E402
-from .margins import HardMargin, hard_margin, is_separable, normalized_margin  # noqa: E402
-from .models import LinearModel, TwoLayerReLU  # noqa: E402
-from .data import RawData, SourceDef, build_problem, cached_problem  # noqa: E402
-from .data.sources import register_source  # noqa: E402
-from .problem import Problem, TrainingSet  # noqa: E402
-from .query import load_runs, load_traces  # noqa: E402
-from .runner import RunOutcome, execute, run  # noqa: E402
-from .solvers import PROX_OPERATORS, SOLVERS, ProxDef, get_solver, register_prox  # noqa: E402
-from . import sparsity  # noqa: E402,F401  (registers the nnz / support columns)
-from .solvers.averaging import AveragingParams, averaged  # noqa: E402
-from .solvers.stochastic import SGDParams  # noqa: E402
-from .spec import RunSpec, SpecError, spec_from_overrides  # noqa: E402
+from stopwise.problem.losses import LOSSES, get_loss, minibatch_gradient  # noqa: E402
+from stopwise.problem.margins import HardMargin, hard_margin, is_separable, normalized_margin  # noqa: E402
+from stopwise.problem.models import LinearModel, TwoLayerReLU  # noqa: E402
+from stopwise.data import RawData, SourceDef, build_problem, cached_problem  # noqa: E402
+from stopwise.data.sources import register_source  # noqa: E402
+from stopwise.problem.problem import Problem, TrainingSet  # noqa: E402
+from stopwise.results.query import load_runs, load_traces  # noqa: E402
+from stopwise.running.runner import RunOutcome, execute, run  # noqa: E402
+from stopwise.solvers import PROX_OPERATORS, SOLVERS, ProxDef, get_solver, register_prox  # noqa: E402
+from stopwise.running import sparsity  # noqa: E402,F401  (registers the nnz / support columns)
+from stopwise.solvers.averaging import AveragingParams, averaged  # noqa: E402
+from stopwise.solvers.stochastic import SGDParams  # noqa: E402
+from stopwise.config.spec import RunSpec, SpecError, spec_from_overrides  # noqa: E402
 # Ranking, baselines, selection and verification load on first use (PEP 562), so a launcher
 # worker that only runs solvers does not pay for SciPy's statistics and scikit-learn's models.
 _LAZY = {
-    "select": "selection",
-    "BASELINES": "baselines", "ensure_baselines": "baselines", "fit_path": "baselines",
-    "load_baselines": "baselines",
-    "load_references": "references",
-    "RULES": "stopping", "RuleContext": "stopping", "Selection": "stopping", "apply_rule": "stopping",
-    "Ranking": "rank", "RankError": "rank", "Target": "rank", "rank": "rank", "rank_campaign": "rank",
-    "RankTest": "rankstats", "critical_difference": "rankstats", "data_profile": "rankstats",
-    "friedman_from_ranks": "rankstats", "friedman_test": "rankstats", "nemenyi_q": "rankstats",
-    "performance_profile": "rankstats", "rank_table": "rankstats", "student_interval": "rankstats",
-    "verify_root": "verify",
+    "select": "analysis.selection",
+    "BASELINES": "analysis.baselines", "ensure_baselines": "analysis.baselines", "fit_path": "analysis.baselines",
+    "load_baselines": "analysis.baselines",
+    "load_references": "analysis.references",
+    "RULES": "stopping.rules", "RuleContext": "stopping.rules", "Selection": "stopping.rules", "apply_rule": "stopping.rules",
+    "Ranking": "analysis.rank", "RankError": "analysis.rank", "Target": "analysis.rank", "rank": "analysis.rank", "rank_campaign": "analysis.rank",
+    "RankTest": "analysis.rankstats", "critical_difference": "analysis.rankstats", "data_profile": "analysis.rankstats",
+    "friedman_from_ranks": "analysis.rankstats", "friedman_test": "analysis.rankstats", "nemenyi_q": "analysis.rankstats",
+    "performance_profile": "analysis.rankstats", "rank_table": "analysis.rankstats", "student_interval": "analysis.rankstats",
+    "verify_root": "results.verify",
 }
 
 
@@ -65,11 +65,11 @@ def __getattr__(name: str):
 
 
 def report_campaign(root="results", campaign="", out=None, rule="holdout", **options):
-    """Write the static HTML report of a stored campaign; see :func:`stopwise.report.report_campaign`.
+    """Write the static HTML report of a stored campaign; see :func:`stopwise.report.report.report_campaign`.
 
     (Imported on first use: it is the only part of stopwise that needs matplotlib.)
     """
-    from .report import report_campaign as write
+    from stopwise.report.report import report_campaign as write
 
     return write(root, campaign, out, rule=rule, **options)
 
@@ -83,7 +83,7 @@ def load_problem(overrides: list[str] | None = None) -> Problem:
     >>> p.X_train.shape[1], p.task
     (10, 'regression')
     """
-    from .data import build_problem
+    from stopwise.data import build_problem
 
     spec = spec_from_overrides(list(overrides or []))
     return build_problem(spec.dataset, spec.split, spec.seed)

@@ -59,7 +59,7 @@ def cores() -> int:
 def parallel_overrides(jobs_arg: str, rest: list[str]) -> tuple[list[str], str]:
     """Hydra overrides for ``--jobs N``: the joblib launcher with N workers, and BLAS threads
     per run so that workers x threads <= cores (unless ``threads=`` is given)."""
-    from .spec import SpecError
+    from stopwise.config.spec import SpecError
 
     try:
         n = int(jobs_arg)
@@ -99,8 +99,8 @@ def _split_jobs(args: list[str]) -> tuple[list[str], str | None]:
 
 
 def cmd_sweep(argv: list[str]) -> int:
-    from .campaign import expand, launch, tally
-    from .spec import SpecError
+    from stopwise.sweep.campaign import expand, launch, tally
+    from stopwise.config.spec import SpecError
 
     campaign = None
     rest, jobs = _split_jobs(list(argv))
@@ -138,14 +138,14 @@ def cmd_sweep(argv: list[str]) -> int:
 
 
 def cmd_run(argv: list[str]) -> int:
-    from .app import outcome_line
-    from .runner import run_spec
-    from .spec import SpecError, compose, spec_from_config
+    from stopwise.sweep.task import outcome_line
+    from stopwise.running.runner import run_spec
+    from stopwise.config.spec import SpecError, compose, spec_from_config
 
     bad = [a for a in argv if a.startswith("-")]
     if bad:
         return _fail(f"unknown option {bad[0]!r}; run takes key=value overrides")
-    from .campaign import check_data
+    from stopwise.sweep.campaign import check_data
 
     try:
         cfg = compose(argv)
@@ -160,8 +160,8 @@ def cmd_run(argv: list[str]) -> int:
 
 
 def cmd_rerun(argv: list[str]) -> int:
-    from .rerun import rerun_one, resolve
-    from .store import Store, StoreError
+    from stopwise.running.rerun import rerun_one, resolve
+    from stopwise.results.store import Store, StoreError
 
     ap = ArgParser(prog="stopwise rerun")
     ap.add_argument("id", help="run id (or unique prefix) or campaign id / name")
@@ -194,8 +194,8 @@ def cmd_rerun(argv: list[str]) -> int:
 def cmd_ls(argv: list[str]) -> int:
     import pandas as pd
 
-    from .query import load_runs
-    from .store import StoreError
+    from stopwise.results.query import load_runs
+    from stopwise.results.store import StoreError
 
     ap = ArgParser(prog="stopwise ls")
     ap.add_argument("--campaign", default=None, help="campaign name or id")
@@ -220,8 +220,8 @@ def cmd_ls(argv: list[str]) -> int:
 
 
 def cmd_verify(argv: list[str]) -> int:
-    from .spec import SpecError
-    from .verify import QUARANTINE, verify_root
+    from stopwise.config.spec import SpecError
+    from stopwise.results.verify import QUARANTINE, verify_root
 
     ap = ArgParser(prog="stopwise verify")
     ap.add_argument("root", nargs="?", default="results", help="results root (default: results)")
@@ -288,7 +288,7 @@ def cmd_datasets(argv: list[str]) -> int:
                    description="List every dataset a run can use; 'stopwise datasets fetch ID' warms "
                                "the OpenML cache.")
     ap.parse_args(argv)
-    from .data.catalog import entries, format_table
+    from stopwise.config.catalog import entries, format_table
 
     items = entries()
     print(format_table(items))
@@ -298,7 +298,7 @@ def cmd_datasets(argv: list[str]) -> int:
 
 def _openml_cache_dir() -> str:
     try:
-        from .data.openml_source import cache_root
+        from stopwise.data.openml_source import cache_root
 
         return str(cache_root())
     except Exception as e:  # noqa: BLE001 - informational only
@@ -322,7 +322,7 @@ def _datasets_fetch(argv: list[str]) -> int:
     for t in a.task:
         if not re.fullmatch(r"[1-9][0-9]*", t):
             return _fail(f"--task {t!r} is not an OpenML task id (a positive integer)")
-    from .data.openml_source import fetch_dataset, fetch_task
+    from stopwise.data.openml_source import fetch_dataset, fetch_task
 
     failed = 0
     jobs = [("dataset", r, fetch_dataset) for r in a.refs] + [("task", t, fetch_task) for t in a.task]
@@ -338,9 +338,9 @@ def _datasets_fetch(argv: list[str]) -> int:
 
 
 def cmd_select(argv: list[str]) -> int:
-    from .selection import format_table, parse_rule_arg, select
-    from .stopping import RuleError
-    from .store import StoreError
+    from stopwise.analysis.selection import format_table, parse_rule_arg, select
+    from stopwise.stopping.rules import RuleError
+    from stopwise.results.store import StoreError
 
     ap = ArgParser(prog="stopwise select",
                    description="selected iterate per run and stopping rule (oracle = reference only)")
@@ -367,9 +367,9 @@ def cmd_select(argv: list[str]) -> int:
 def cmd_baselines(argv: list[str]) -> int:
     import pandas as pd
 
-    from .baselines import BaselineError, ensure_baselines
-    from .spec import SpecError
-    from .store import StoreError
+    from stopwise.analysis.baselines import BaselineError, ensure_baselines
+    from stopwise.config.spec import SpecError
+    from stopwise.results.store import StoreError
 
     ap = ArgParser(prog="stopwise baselines",
                    description="explicit-regularization baselines selected on validation error")
@@ -397,7 +397,7 @@ def cmd_baselines(argv: list[str]) -> int:
 
 
 def _ranking_parser(prog: str, description: str) -> ArgParser:
-    from .rank import RANK_BY, TUNINGS, UNITS
+    from stopwise.analysis.rank import RANK_BY, TUNINGS, UNITS
 
     ap = ArgParser(prog=prog, description=description)
     ap.add_argument("campaign", help="campaign name or id")
@@ -430,10 +430,10 @@ def _ranking_options(a) -> dict:
 
 
 def cmd_rank(argv: list[str]) -> int:
-    from .errors import SpecError
-    from .rank import rank_campaign
-    from .store import StoreError, atomic_write_bytes
-    from .tables import FORMATS, render
+    from stopwise.core.errors import SpecError
+    from stopwise.analysis.rank import rank_campaign
+    from stopwise.results.store import StoreError, atomic_write_bytes
+    from stopwise.report.tables import FORMATS, render
 
     ap = _ranking_parser("stopwise rank", "tune every method on validation error under one stopping rule and "
                                           "rank the methods across datasets")
@@ -454,9 +454,9 @@ def cmd_rank(argv: list[str]) -> int:
 
 
 def cmd_report(argv: list[str]) -> int:
-    from .errors import SpecError
-    from .report import MARKED_RULES, report_campaign
-    from .store import StoreError
+    from stopwise.core.errors import SpecError
+    from stopwise.report.report import MARKED_RULES, report_campaign
+    from stopwise.results.store import StoreError
 
     ap = _ranking_parser("stopwise report", "write a static HTML report of a campaign: tables and PNG figures")
     ap.add_argument("--out", default=None, metavar="DIR", help="output folder (default: ROOT/reports/CAMPAIGN)")

@@ -14,15 +14,22 @@ from typing import Any, Iterable
 
 import numpy as np
 
-from ..problem import Problem
-from ..solvers.base import ParamError, make_params
-from . import cache as _cache
-from .errors import DataError
-from .preprocess import (MISSING, RandomFeaturesParams, drop_constant, encode_labels, random_features,
-                         standardize, table_to_numeric)
-from .sources import SOURCES, RawData, SourceDef  # noqa: F401
-from .split import SPLIT_KINDS, SplitError, carve_validation, split_rows  # noqa: F401
-from . import generators, openml_source, tabular  # noqa: E402,F401  (register their sources)
+from stopwise.problem.problem import Problem
+from stopwise.solvers.base import ParamError, make_params
+from stopwise.data import cache as _cache
+from stopwise.data.errors import DataError
+from stopwise.data.preprocess import (
+    MISSING,
+    RandomFeaturesParams,
+    drop_constant,
+    encode_labels,
+    random_features,
+    standardize,
+    table_to_numeric,
+)
+from stopwise.data.sources import SOURCES, RawData, SourceDef  # noqa: F401
+from stopwise.data.split import SPLIT_KINDS, SplitError, carve_validation, split_rows  # noqa: F401
+from stopwise.data import generators, openml_source, tabular  # noqa: E402,F401  (register their sources)
 
 # Preprocessing options added after the first release. A key at its default is left out
 # of the normalized config, so configs that do not use them keep their run ids.
@@ -96,7 +103,7 @@ def normalize_dataset(cfg: dict[str, Any]) -> dict[str, Any]:
     # source can tell the task), so runs that do not choose a loss keep their identity.
     loss = out.pop("loss", None)
     if loss is not None:
-        from ..losses import DEFAULT_LOSS, LOSS_NAMES, TASK_LOSSES
+        from stopwise.problem.losses import DEFAULT_LOSS, LOSS_NAMES, TASK_LOSSES
 
         if loss not in LOSS_NAMES:
             raise DataError(f"dataset.loss={loss!r} is invalid: must be one of {', '.join(LOSS_NAMES)} "
@@ -301,7 +308,7 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
         ys = [y - ybar for y in ys]
         prep["center_target"] = {"mean": ybar}
     noise_kind = None if raw.noise == "none" else raw.noise
-    from ..losses import LossError, check_loss
+    from stopwise.problem.losses import LossError, check_loss
 
     try:
         check_loss(raw.task, dataset.get("loss"))

@@ -30,7 +30,7 @@ from typing import Any
 
 import numpy as np
 
-from ..problem import Problem
+from stopwise.problem.problem import Problem
 
 CACHE_FORMAT = 2  # 2: Problem.info carries row_order
 ENV = "STOPWISE_CACHE"
@@ -121,7 +121,7 @@ def read(key: str, root: Path | None = None) -> Problem | None:
 
 def write(key: str, problem: Problem, root: Path | None = None) -> Path | None:
     """Store ``problem`` under ``key`` (atomic; arrays first). Returns the JSON path."""
-    from ..store import atomic_write_bytes
+    from stopwise.results.store import atomic_write_bytes
 
     root = root if root is not None else cache_dir()
     if root is None:

@@ -1,7 +1,7 @@
 """The one error type of the data layer: bad dataset input, reported as one line."""
 from __future__ import annotations
 
-from ..errors import SpecError
+from stopwise.core.errors import SpecError
 
 
 class DataError(SpecError):

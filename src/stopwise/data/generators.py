@@ -23,9 +23,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import DataError
-from ..solvers.base import Choice, Interval, param
-from .sources import NOISE_MODELS, RawData, SourceDef, register_source
+from stopwise.data.errors import DataError
+from stopwise.solvers.base import Choice, Interval, param
+from stopwise.data.sources import NOISE_MODELS, RawData, SourceDef, register_source
 
 NOISE = Choice(NOISE_MODELS)
 POS = Interval(0.0, None, low_closed=False)

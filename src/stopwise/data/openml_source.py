@@ -25,10 +25,10 @@ from typing import Any, Iterator
 
 import numpy as np
 
-from .errors import DataError
-from ..solvers.base import Choice, Interval, param
-from .sources import RawData, SourceDef, register_source
-from .tabular import TASK_CHOICES, is_categorical_dtype, split_target
+from stopwise.data.errors import DataError
+from stopwise.solvers.base import Choice, Interval, param
+from stopwise.data.sources import RawData, SourceDef, register_source
+from stopwise.data.tabular import TASK_CHOICES, is_categorical_dtype, split_target
 
 OML_NS = "{http://openml.org/openml}"
 ID = Interval(1, None, integer=True)

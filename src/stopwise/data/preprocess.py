@@ -23,8 +23,8 @@ from typing import Any
 
 import numpy as np
 
-from .errors import DataError
-from ..solvers.base import Choice, Interval, param
+from stopwise.data.errors import DataError
+from stopwise.solvers.base import Choice, Interval, param
 
 MISSING = ("impute", "drop")
 RF_KINDS = ("rbf_sampler", "nystroem")

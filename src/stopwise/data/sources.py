@@ -11,7 +11,7 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..solvers.base import Choice, Flag, Interval, param
+from stopwise.solvers.base import Choice, Flag, Interval, param
 
 NOISE_MODELS = ("none", "gaussian", "norm")
 

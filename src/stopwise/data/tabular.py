@@ -13,9 +13,9 @@ from typing import Any
 
 import numpy as np
 
-from .errors import DataError
-from ..solvers.base import Choice, param
-from .sources import RawData, SourceDef, register_source
+from stopwise.data.errors import DataError
+from stopwise.solvers.base import Choice, param
+from stopwise.data.sources import RawData, SourceDef, register_source
 
 TASK_CHOICES = ("auto", "regression", "binary", "multiclass")
 FORMATS = ("auto", "csv", "parquet")

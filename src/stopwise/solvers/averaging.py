@@ -30,8 +30,8 @@ from typing import Any
 
 import numpy as np
 
-from ..problem import TrainingSet
-from .base import Choice, Interval, SolverDef, State, frozen, param  # noqa: F401
+from stopwise.problem.problem import TrainingSet
+from stopwise.solvers.base import Choice, Interval, SolverDef, State, frozen, param  # noqa: F401
 
 AVERAGES = ("none", "full", "tail", "ema")
 PASS_EPS = 1e-12  # the runner's tolerance on pass budgets

@@ -18,8 +18,8 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..errors import SpecError
-from ..problem import TrainingSet
+from stopwise.core.errors import SpecError
+from stopwise.problem.problem import TrainingSet
 
 
 def frozen(a: np.ndarray) -> np.ndarray:
@@ -188,7 +188,7 @@ class SolverDef:
 
     ``loss`` is the training loss the solver is built for (None: it follows the dataset's
     loss option or the task's default). ``model(params, train)`` returns the prediction
-    model its iterates parameterize (None: linear scores ``X w``, see stopwise.models).
+    model its iterates parameterize (None: linear scores ``X w``, see stopwise.problem.models).
     """
 
     name: str

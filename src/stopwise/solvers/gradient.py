@@ -1,6 +1,6 @@
 """Full-batch first-order methods: gradient descent, Nesterov, heavy ball.
 
-They run on every smooth loss of :mod:`stopwise.losses` (least squares, logistic, softmax;
+They run on every smooth loss of :mod:`stopwise.problem.losses` (least squares, logistic, softmax;
 on the hinge, gradient descent is the subgradient method), through ``train.gradient``."""
 from __future__ import annotations
 
@@ -8,8 +8,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..problem import TrainingSet
-from .base import Interval, SolverDef, State, frozen, param, register, step_size
+from stopwise.problem.problem import TrainingSet
+from stopwise.solvers.base import Interval, SolverDef, State, frozen, param, register, step_size
 
 POSITIVE = Interval(0.0, None, low_closed=False)
 ALL_TASKS = ("regression", "binary", "multiclass")
@@ -30,7 +30,7 @@ def gd_step(train: TrainingSet, params: GDParams, state: State) -> State:
     """Gradient descent (Landweber): ``w_{t+1} = w_t - (s / L) X^T (X w_t - y) / n``.
 
     >>> import numpy as np
-    >>> from stopwise.problem import TrainingSet
+    >>> from stopwise.problem.problem import TrainingSet
     >>> X = np.eye(2); tr = TrainingSet(X, np.array([1.0, 2.0]), L=0.5)
     >>> s = gd_step(tr, GDParams(1.0), gd_init(tr, GDParams(1.0), None))
     >>> s.w.tolist(), s.iteration, s.passes

@@ -5,8 +5,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..problem import TrainingSet
-from .base import SolverDef, State, frozen, register
+from stopwise.problem.problem import TrainingSet
+from stopwise.solvers.base import SolverDef, State, frozen, register
 
 
 TOL = 1e-14  # relative accuracy at which CGLS declares a least-squares solution reached

@@ -38,8 +38,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..problem import TrainingSet
-from .base import Choice, Interval, ParamError, SolverDef, State, frozen, param, register
+from stopwise.problem.problem import TrainingSet
+from stopwise.solvers.base import (
+    Choice,
+    Interval,
+    ParamError,
+    SolverDef,
+    State,
+    frozen,
+    param,
+    register,
+)
 
 UPDATES = ("dual", "dual_accelerated", "primal_dual")
 
@@ -84,7 +93,7 @@ def hinge_diagonal_step(train: TrainingSet, params: HingeDiagonalParams,
 
     Two points x = +-1 with labels +-1: the hard-margin solution is w* = 1.
 
-    >>> from stopwise.problem import TrainingSet
+    >>> from stopwise.problem.problem import TrainingSet
     >>> tr = TrainingSet(np.array([[1.0], [-1.0]]), np.array([1.0, -1.0]), L=1.0, task="binary", loss="hinge")
     >>> p = HingeDiagonalParams(update="primal_dual", step_scale=0.9)
     >>> s = hinge_diagonal_init(tr, p, None)

@@ -33,9 +33,18 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..problem import TrainingSet
-from .base import Choice, Interval, SolverDef, State, frozen, param, register, step_size
-from .prox import PROX_OPERATORS, RegistryChoice, get_prox
+from stopwise.problem.problem import TrainingSet
+from stopwise.solvers.base import (
+    Choice,
+    Interval,
+    SolverDef,
+    State,
+    frozen,
+    param,
+    register,
+    step_size,
+)
+from stopwise.solvers.prox import PROX_OPERATORS, RegistryChoice, get_prox
 
 POSITIVE = Interval(0.0, None, low_closed=False)
 BIAS = RegistryChoice(PROX_OPERATORS)
@@ -72,7 +81,7 @@ def mirror_step(train: TrainingSet, params: MirrorParams, state: MirrorState) ->
         v_{t+1} = v_t - (s / L) X^T (X w_t - y) / n,     w_{t+1} = prox_{lam C}(v_{t+1})
 
     >>> import numpy as np
-    >>> from stopwise.problem import TrainingSet
+    >>> from stopwise.problem.problem import TrainingSet
     >>> tr = TrainingSet(np.eye(2), np.array([3.0, 0.5]), L=0.5)
     >>> p = MirrorParams(step_scale=1.0, bias="l1", lam=1.0)
     >>> s = mirror_step(tr, p, mirror_init(tr, p, None))

@@ -29,9 +29,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..models import TwoLayerReLU
-from ..problem import TrainingSet
-from .base import Interval, SolverDef, State, frozen, param, register, step_size
+from stopwise.problem.models import TwoLayerReLU
+from stopwise.problem.problem import TrainingSet
+from stopwise.solvers.base import Interval, SolverDef, State, frozen, param, register, step_size
 
 
 @dataclass(frozen=True)
@@ -71,7 +71,7 @@ def relu_net_init(train: TrainingSet, params: ReluNetParams, rng: np.random.Gene
 def relu_net_step(train: TrainingSet, params: ReluNetParams, state: ReluNetState) -> ReluNetState:
     """One (minibatch) gradient step on the mean logistic loss of the network (module docstring).
 
-    >>> from stopwise.problem import TrainingSet
+    >>> from stopwise.problem.problem import TrainingSet
     >>> X = np.array([[1.0, 0.5], [-1.0, 0.2], [0.3, -1.0], [-0.2, 1.0]]); y = np.array([1.0, -1.0, 1.0, -1.0])
     >>> tr = TrainingSet(X, y, L=0.5, task="binary", loss="logistic")
     >>> p = ReluNetParams(width=3, batch_size=2)

@@ -40,9 +40,9 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..problem import TrainingSet
-from .base import Interval, SolverDef, State, frozen, param, register
-from .prox import PROX_OPERATORS, RegistryChoice, get_prox
+from stopwise.problem.problem import TrainingSet
+from stopwise.solvers.base import Interval, SolverDef, State, frozen, param, register
+from stopwise.solvers.prox import PROX_OPERATORS, RegistryChoice, get_prox
 
 POSITIVE = Interval(0.0, None, low_closed=False)
 POWER_TOL = 1e-9      # relative change of the norm estimate that ends the power iteration
@@ -144,7 +144,7 @@ def cp_step(train: TrainingSet, params: ChambollePockParams, state: PrimalDualSt
         w+ = prox_{tau G}(w - tau (X^T z+ / s + D^T q+));   w^+ = 2 w+ - w
 
     >>> import numpy as np
-    >>> from stopwise.problem import TrainingSet
+    >>> from stopwise.problem.problem import TrainingSet
     >>> tr = TrainingSet(np.array([[1.0, 1.0]]), np.array([2.0]), L=2.0)
     >>> p = ChambollePockParams()
     >>> s = cp_init(tr, p, np.random.default_rng(0))

@@ -40,7 +40,7 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
-from .base import Choice
+from stopwise.solvers.base import Choice
 
 
 @dataclass(frozen=True)

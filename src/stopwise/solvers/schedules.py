@@ -24,7 +24,7 @@ The wrapper hands the base step a training set whose ``gradient`` returns ``(t +
 computed in one pass at the point where the base method evaluates its gradient (for
 Nesterov: the extrapolated point; Ji, Srebro and Telgarsky, ICML 2021, show that momentum
 on loss-normalized steps speeds margin maximization further). ``grad log f`` is evaluated
-in the log domain (see stopwise.losses.logistic_log_gradient), so the step stays exact after
+in the log domain (see stopwise.problem.losses.logistic_log_gradient), so the step stays exact after
 the loss itself has underflowed to zero.
 """
 from __future__ import annotations
@@ -36,9 +36,9 @@ from typing import Any
 
 import numpy as np
 
-from ..losses import log_gradient
-from ..problem import TrainingSet
-from .base import Choice, Interval, SolverDef, State, get_solver, param, register
+from stopwise.problem.losses import log_gradient
+from stopwise.problem.problem import TrainingSet
+from stopwise.solvers.base import Choice, Interval, SolverDef, State, get_solver, param, register
 
 NORMALIZE = ("loss", "gradient", "none")
 
@@ -87,7 +87,7 @@ def _schedule_fields() -> list[tuple[str, Any, Any]]:
 def scheduled(base_name: str, name: str, summary: str) -> SolverDef:
     """Register ``name``: the solver ``base_name`` with the schedule above on its gradient.
 
-    >>> from stopwise.problem import TrainingSet
+    >>> from stopwise.problem.problem import TrainingSet
     >>> X = np.array([[1.0, 0.0], [0.0, 1.0]]); y = np.array([1.0, 1.0])
     >>> tr = TrainingSet(X, y, L=0.125, task="binary", loss="logistic")
     >>> sd = get_solver("gd_normalized"); p = sd.params(normalize="loss")

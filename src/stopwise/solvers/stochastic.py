@@ -20,7 +20,7 @@ a sequence of blocks of ``n`` indices, block ``k`` being
 
 so a batch may straddle two blocks and every step takes exactly ``b`` rows. A batch of all
 ``n`` rows without replacement is the full gradient whatever the order, and is computed
-as such (through the evaluation paths of :mod:`stopwise.fastpath`). Block ``k``
+as such (through the evaluation paths of :mod:`stopwise.running.fastpath`). Block ``k``
 is drawn from its own generator seeded with ``(key, k)``, where ``key`` is drawn once from
 the run's generator at ``init`` and kept in the state: the sample order depends only on
 the run's seed and the training-set size (the data spec), not on the step size, the
@@ -55,10 +55,10 @@ from typing import Any
 
 import numpy as np
 
-from ..losses import CURVATURE, minibatch_gradient
-from ..problem import TrainingSet
-from .averaging import AveragingParams, averaged
-from .base import Choice, Interval, SolverDef, State, frozen, param, register
+from stopwise.problem.losses import CURVATURE, minibatch_gradient
+from stopwise.problem.problem import TrainingSet
+from stopwise.solvers.averaging import AveragingParams, averaged
+from stopwise.solvers.base import Choice, Interval, SolverDef, State, frozen, param, register
 
 SAMPLINGS = ("epochs", "replacement", "cyclic")
 SCHEDULES = ("constant", "sqrt", "inverse", "decay")
@@ -190,7 +190,7 @@ def sgd_step(train: TrainingSet, params: SGDParams, state: SGDState) -> SGDState
     """``w_{t+1} = w_t - eta_0 factor(t) g_{B_t}(w_t)`` on the next ``b`` rows of the stream.
 
     >>> import numpy as np
-    >>> from stopwise.problem import TrainingSet
+    >>> from stopwise.problem.problem import TrainingSet
     >>> tr = TrainingSet(np.eye(2), np.array([1.0, 2.0]), L=0.5)
     >>> p = SGDParams(step=1.0, batch=2, sampling="cyclic")
     >>> s = sgd_step(tr, p, sgd_init(tr, p, np.random.default_rng(0)))

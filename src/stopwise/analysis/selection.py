@@ -1,0 +1,160 @@
+"""Post-hoc selection: every stopping rule on every stored trace of a campaign.
+
+Rules read stored traces, so evaluating another rule, or the same rule with other
+parameters, costs no run. One output row per (run, rule).
+"""
+from __future__ import annotations
+
+import math
+import warnings
+from pathlib import Path
+from typing import Any, Iterable
+
+import numpy as np
+import pandas as pd
+import pyarrow.parquet as pq
+
+from stopwise.stopping.rules import (
+    NUMERIC,
+    RuleContext,
+    RuleError,
+    get_rule,
+    make_rule_params,
+    rule_specs,
+)
+from stopwise.results.store import Store, StoreError
+
+SELECT_COLUMNS = ("run_id", "dataset", "solver", "seed", "status", "rule", "reference", "selected_iteration",
+                  "selected_passes", "passes_spent", "val_error", "test_error", "train_error", "reason")
+_HEAD = SELECT_COLUMNS[:4]
+_TAIL = SELECT_COLUMNS[4:]
+
+
+def _campaign_rules(store: Store, campaign: str | None, metas: list[dict]) -> list[Any]:
+    if campaign is not None:
+        listed = store.find_campaign(campaign).get("stopping") or []
+    else:
+        listed = [(m.get("config") or {}).get("stopping") for m in metas]
+    rules = [{"rule": r.get("rule"), "params": r.get("params") or {}} for r in listed if isinstance(r, dict)]
+    return rules + ["oracle"]
+
+
+def _read(store: Store, rid: str) -> tuple[dict | None, pd.DataFrame | None, str]:
+    path = store.run_path(rid)
+    if not path.exists():
+        return None, None, "no trace stored (run not executed yet)"
+    try:
+        meta = store.read_meta(path)
+        names = pq.read_schema(path).names
+        cols = [c for c in NUMERIC if c in names]
+        table = pq.read_table(path, columns=cols)
+        return meta, table.to_pandas(), ""
+    except Exception as e:  # an unreadable file must not sink the whole selection
+        warnings.warn(f"skipping unreadable trace {path}: {type(e).__name__}: {e}", stacklevel=3)
+        return None, None, f"unreadable trace: {type(e).__name__}"
+
+
+def select(root: str | Path = "results", campaign: str | None = None,
+           rules: Iterable[Any] | None = None) -> pd.DataFrame:
+    """Evaluate stopping rules on stored traces; one row per (run, rule).
+
+    ``rules``: rule names, ``{"rule": NAME, "params": {...}}`` mappings or ``(NAME, params)``
+    pairs. ``None`` means the rules named in the campaign manifest's ``stopping`` list
+    (every stopping config its jobs used) plus ``oracle``; without a campaign, the
+    stopping configs of the stored runs plus ``oracle``. The ``oracle`` rows carry
+    ``reference=True`` and must never be ranked as a method.
+
+    Columns: run_id, dataset, solver, seed, <solver params>, status, rule, reference,
+    selected_iteration (nullable), selected_passes, passes_spent, val_error, test_error,
+    train_error, reason. Errors are those of the selected iterate (NaN when none).
+    """
+    store = Store(root)
+    if campaign is not None:
+        run_ids = list(store.find_campaign(campaign)["run_ids"])
+    else:
+        run_ids = [p.stem for p in store.run_files()]
+    loaded = [(rid, *_read(store, rid)) for rid in run_ids]
+    specs = rule_specs(rules if rules is not None else
+                       _campaign_rules(store, campaign, [m for _, m, _, _ in loaded if m]))
+    # oracle last, once
+    specs = [s for s in specs if s["rule"] != "oracle"] + [s for s in specs if s["rule"] == "oracle"]
+    defs = [(s, get_rule(s["rule"]), make_rule_params(s["rule"], s["params"])) for s in specs]
+
+    rows: list[dict[str, Any]] = []
+    param_names: list[str] = []
+    for rid, meta, trace, why in loaded:
+        cfg = (meta or {}).get("config") or {}
+        base: dict[str, Any] = {"run_id": rid if meta is None else meta.get("run_id", rid),
+                                "dataset": (cfg.get("dataset") or {}).get("name"),
+                                "solver": cfg.get("solver"), "seed": cfg.get("seed")}
+        for k, v in (cfg.get("params") or {}).items():
+            if k not in param_names:
+                param_names.append(k)
+            base[k] = v
+        status = (meta or {}).get("status", "missing" if why.startswith("no trace") else "failed")
+        ctx = RuleContext.from_problem_info((meta or {}).get("problem"))
+        empty = trace is None or len(trace) == 0
+        for spec, rdef, params in defs:
+            row = dict(base, status=status, rule=spec["label"], reference=bool(rdef.reference))
+            if empty:
+                reason = why or (f"run {status}: {(meta or {}).get('message', '')}".rstrip(": ")
+                                 if status == "failed" else "empty trace")
+                row.update(selected_iteration=None, selected_passes=math.nan, passes_spent=0.0,
+                           val_error=math.nan, test_error=math.nan, train_error=math.nan, reason=reason)
+            else:
+                sel = rdef.select(trace, ctx, params)
+                r = sel.row
+
+                def at(col: str) -> float:
+                    return float(trace[col].iloc[r]) if r is not None and col in trace else math.nan
+
+                row.update(selected_iteration=sel.iteration, selected_passes=sel.passes_selected,
+                           passes_spent=sel.passes_spent, val_error=at("val_error"), test_error=at("test_error"),
+                           train_error=at("train_error"), reason=sel.reason)
+            rows.append(row)
+    columns = list(_HEAD) + param_names + list(_TAIL)
+    if not rows:
+        return pd.DataFrame({c: pd.Series(dtype=object) for c in columns})
+    df = pd.DataFrame(rows)
+    for c in columns:
+        if c not in df:
+            df[c] = None
+    df = df[columns]
+    df["selected_iteration"] = df["selected_iteration"].astype("Int64")
+    df["reference"] = df["reference"].astype(bool)
+    for c in ("selected_passes", "passes_spent", "val_error", "test_error", "train_error"):
+        df[c] = df[c].astype(np.float64)
+    return df.reset_index(drop=True)
+
+
+def parse_rule_arg(text: str) -> dict[str, Any]:
+    """``NAME`` or ``NAME:key=value[,key=value...]`` (values read as YAML scalars)."""
+    import yaml
+
+    name, _, rest = text.partition(":")
+    name = name.strip()
+    get_rule(name)  # one-line error for an unknown rule
+    params: dict[str, Any] = {}
+    for item in filter(None, (s.strip() for s in rest.split(","))):
+        key, eq, value = item.partition("=")
+        if not eq or not key.strip():
+            raise RuleError(f"--rule {text!r}: parameters must be key=value, e.g. holdout:patience=5")
+        try:
+            params[key.strip()] = yaml.safe_load(value)
+        except yaml.YAMLError:
+            raise RuleError(f"--rule {text!r}: cannot read value {value!r}") from None
+    make_rule_params(name, params)
+    return {"rule": name, "params": params}
+
+
+def format_table(df: pd.DataFrame) -> str:
+    """An aligned plain-text table of a selection (reason last, floats to 4 digits)."""
+    show = df.copy()
+    show["reference"] = np.where(show["reference"], "yes", "")
+    show["selected_iteration"] = show["selected_iteration"].map(lambda v: "-" if pd.isna(v) else str(int(v)))
+    with pd.option_context("display.max_rows", 100000, "display.width", 250, "display.max_columns", 60,
+                           "display.max_colwidth", 90, "display.float_format", "{:.4g}".format):
+        return show.to_string(index=False, na_rep="-")
+
+
+__all__ = ["SELECT_COLUMNS", "select", "parse_rule_arg", "format_table", "StoreError"]

@@ -1,0 +1,1 @@
+"""From Hydra configs to a validated, hashed RunSpec (spec), and the dataset catalog."""

@@ -1,0 +1,502 @@
+"""Typed config schemas, validation into a RunSpec, and the run hash.
+
+The schemas are registered in Hydra's ConfigStore under ``schema/`` (never inside a
+group that users sweep with ``glob(*)``). A composed config becomes a :class:`RunSpec`
+through :func:`spec_from_config`, which checks every value against the constraints that
+the solver and source params declare, and raises :class:`SpecError` with one line.
+"""
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import math
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Dict, List, Optional
+
+from stopwise.data import DataError, dataset_row_order, dataset_task, normalize_dataset, split_rows  # noqa: F401
+from stopwise.data.split import SPLIT_KINDS
+from stopwise.solvers import SOLVERS, get_solver
+from stopwise.solvers.base import Choice, Flag, Interval, ParamError, UnknownSolver, make_params
+from stopwise.stopping.rules import RuleError, normalize_stopping
+
+TRACE_FORMAT = 2  # 2: residual statistics from the split statistics; ncp_distance on signal rows only
+
+# Keys common to every solver config: a solver without a step size ignores step_scale,
+# and an ignored key never enters the run identity (so a sweep over step scales runs
+# CGLS once).
+COMMON_SOLVER_KEYS = ("step_scale",)
+
+
+from stopwise.core.errors import SpecError  # noqa: E402,F401  (re-exported)
+
+
+# ---------------------------------------------------------------- schemas (Hydra ConfigStore)
+
+@dataclass
+class RandomFeaturesConfig:
+    """Optional random-features map (off while ``kind`` is null); see docs/datasets.md."""
+
+    kind: Optional[str] = None
+    n_components: int = 256
+    gamma: Optional[float] = None
+    seed: int = 0
+
+
+@dataclass
+class DatasetConfig:
+    name: str = "diabetes"
+    source: str = "sklearn"
+    params: Dict[str, Any] = field(default_factory=dict)
+    features: Optional[List[str]] = None
+    standardize: bool = True
+    center_target: bool = True
+    drop_features: Optional[List[str]] = None
+    categorical: Optional[List[str]] = None
+    missing: str = "impute"
+    drop_constant: bool = True
+    random_features: RandomFeaturesConfig = field(default_factory=RandomFeaturesConfig)
+    center_features: bool = False  # without standardize: subtract training means only
+    loss: Optional[str] = None       # classification: logistic | hinge | softmax | squares; null = task default
+    add_constant: bool = False       # append a column of ones after standardization
+
+
+@dataclass
+class SplitConfig:
+    kind: str = "random"
+    test: float = 0.2
+    val: float = 0.2
+    train_rows: Optional[List[int]] = None
+    val_rows: Optional[List[int]] = None
+    test_rows: Optional[List[int]] = None
+    fold: int = 0
+    repeat: int = 0
+
+
+@dataclass
+class BudgetConfig:
+    iterations: int = 500
+    passes: Optional[float] = None
+    diverge_factor: float = 1e10
+
+
+@dataclass
+class RecordConfig:
+    every: int = 1
+    per_pass: Optional[float] = None  # rows per data pass; replaces `every` when set
+    residual: bool = True  # regression: record the residual statistics (see stopwise.stopping.residual)
+
+
+@dataclass
+class StoppingConfig:
+    rule: str = "budget"
+    halt: bool = False
+    params: Dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass
+class StopwiseConfig:
+    dataset: DatasetConfig = field(default_factory=DatasetConfig)
+    solver: Any = None
+    split: SplitConfig = field(default_factory=SplitConfig)
+    budget: BudgetConfig = field(default_factory=BudgetConfig)
+    record: RecordConfig = field(default_factory=RecordConfig)
+    stopping: StoppingConfig = field(default_factory=StoppingConfig)
+    seed: int = 0
+    results_root: str = "results"
+    campaign_id: Optional[str] = None
+    threads: Optional[int] = None  # BLAS/OpenMP threads per run (not identity); see docs/cluster.md
+
+
+# halting rules that read the residual columns (record.residual)
+RESIDUAL_RULES = ("monotone_error", "ncp")
+
+
+def ncp_halt_needs_signal_rows(dataset_name: Any) -> str:
+    """The one-line error for halting on the NCP rule where ``ncp_distance`` is not recorded."""
+    return (f"stopping.rule=ncp with halt needs ncp_distance, which is recorded only when the training "
+            f"rows are in signal order; dataset {dataset_name!r} has exchangeable rows (a file source "
+            "can declare dataset.params.row_order=signal)")
+
+# numeric constraints of the fixed schemas, as data (read by validation and by tests)
+FIELD_CONSTRAINTS: dict[str, Interval | Choice] = {
+    "split.kind": Choice(SPLIT_KINDS),
+    "budget.iterations": Interval(1, None, integer=True),
+    "budget.passes": Interval(0.0, None, low_closed=False),
+    "budget.diverge_factor": Interval(1.0, None, low_closed=False),
+    "record.every": Interval(1, None, integer=True),
+    "record.per_pass": Interval(0.0, None, low_closed=False),
+    "record.residual": Flag(),
+    "split.test": Interval(0.0, None),
+    "split.val": Interval(0.0, None),
+    "split.fold": Interval(0, None, integer=True),
+    "split.repeat": Interval(0, None, integer=True),
+    "seed": Interval(0, 2**32 - 1, integer=True),
+    "threads": Interval(1, None, integer=True),
+}
+
+# Names that end up in file or folder names under a results root: no separators, no
+# leading dot, so nothing named in a config can reach outside the root.
+SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_-]{0,63}$")
+
+
+def check_results_root(value: Any) -> str:
+    """A results root is a plain, non-empty path string (no NUL or line breaks)."""
+    if not isinstance(value, str) or not value.strip():
+        raise SpecError(f"results_root={value!r} is invalid: must be a non-empty folder path")
+    if any(ch in value for ch in "\0\n\r"):
+        raise SpecError(f"results_root={value!r} is invalid: a path may not contain NUL or line breaks")
+    return value
+
+
+def check_campaign_id(value: Any) -> Optional[str]:
+    if value is None:
+        return None
+    if not isinstance(value, str) or not SAFE_NAME.match(value):
+        raise SpecError(f"campaign_id={value!r} is invalid: letters, digits, '_' and '-' only "
+                        "(it is set by stopwise sweep)")
+    return value
+
+
+def solver_schema(name: str) -> type:
+    """The Hydra schema of one solver: ``name``, the common keys, and its params."""
+    d = get_solver(name)
+    fields: list = [("name", str, dataclasses.field(default=name))]
+    own = {f.name for f in dataclasses.fields(d.params)}
+    for key in COMMON_SOLVER_KEYS:
+        if key not in own:
+            fields.append((key, Optional[float], dataclasses.field(default=None)))
+    for f in dataclasses.fields(d.params):
+        fields.append((f.name, f.type if not isinstance(f.type, str) else _TYPES.get(f.type, Any),
+                       dataclasses.field(default=f.default)))
+    return dataclasses.make_dataclass(f"{name}_solver_config", fields)
+
+
+_TYPES = {"float": float, "int": int, "str": str, "bool": bool,
+          "float | None": Optional[float], "int | None": Optional[int], "str | None": Optional[str]}
+
+
+_REGISTERED = False
+
+
+def register_configs() -> None:
+    """Store the schemas in Hydra's ConfigStore (idempotent)."""
+    global _REGISTERED
+    if _REGISTERED:
+        return
+    from hydra.core.config_store import ConfigStore
+
+    cs = ConfigStore.instance()
+    cs.store(name="stopwise_schema", node=StopwiseConfig)
+    cs.store(group="schema/dataset", name="base", node=DatasetConfig, package="dataset")
+    for name in SOLVERS:
+        cs.store(group="schema/solver", name=name, node=solver_schema(name), package="solver")
+    _REGISTERED = True
+
+
+# ---------------------------------------------------------------- RunSpec
+
+@dataclass(frozen=True)
+class RunSpec:
+    """Everything that changes a run's numbers, validated and typed."""
+
+    dataset: dict
+    split: dict
+    solver: str
+    params: dict
+    budget: dict
+    record: dict
+    seed: int
+    stopping: dict  # the halting rule (part of identity only when halt is true)
+
+    def identity(self) -> dict:
+        ident = {
+            "format": TRACE_FORMAT,
+            "dataset": self.dataset,
+            "split": self.split,
+            "solver": {"name": self.solver, "params": self.params},
+            "budget": self.budget,
+            "record": self.record,
+            "seed": self.seed,
+        }
+        if self.stopping.get("halt"):
+            ident["halt"] = {"rule": self.stopping["rule"], "params": self.stopping.get("params", {})}
+        return ident
+
+    @property
+    def digest(self) -> str:
+        return hashlib.sha256(canonical_json(self.identity()).encode()).hexdigest()
+
+    @property
+    def run_id(self) -> str:
+        return self.digest[:16]
+
+    def to_dict(self) -> dict:
+        return dataclasses.asdict(self)
+
+    def label(self) -> str:
+        """Short human label: the solver, its step scale and every param that differs from
+        the solver's default (the full params are in the trace)."""
+        defaults = {f.name: f.default for f in dataclasses.fields(get_solver(self.solver).params)}
+        shown = {k: v for k, v in self.params.items() if k == "step_scale" or v != defaults.get(k, v)}
+        ps = " ".join(f"{k}={_fmt(v)}" for k, v in sorted(shown.items()))
+        return f"{self.solver}{(' ' + ps) if ps else ''} seed={self.seed} on {self.dataset.get('name')}"
+
+
+def _fmt(v: Any) -> str:
+    return f"{v:g}" if isinstance(v, float) else str(v)
+
+
+def canonical_json(obj: Any) -> str:
+    """Key-order independent JSON; floats in shortest round-trip form; no NaN."""
+    return json.dumps(_canon(obj), sort_keys=True, separators=(",", ":"), allow_nan=False)
+
+
+def _canon(obj: Any) -> Any:
+    if isinstance(obj, dict):
+        return {str(k): _canon(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_canon(v) for v in obj]
+    if isinstance(obj, float):
+        if not math.isfinite(obj):
+            raise SpecError(f"non-finite number {obj!r} in a run identity")
+        return obj + 0.0  # -0.0 and 0.0 are one number: one spelling
+    return obj
+
+
+def _plain(cfg: Any) -> Any:
+    try:
+        from omegaconf import DictConfig, ListConfig, OmegaConf
+
+        if isinstance(cfg, (DictConfig, ListConfig)):
+            return OmegaConf.to_container(cfg, resolve=True)
+    except ImportError:  # pragma: no cover
+        pass
+    return cfg
+
+
+def _check(path: str, value: Any, allow_none: bool = False) -> Any:
+    c = FIELD_CONSTRAINTS[path]
+    if value is None and allow_none:
+        return None
+    if not c.contains(value):
+        raise SpecError(f"{path}={value!r} is invalid: must be {c.describe()}")
+    return value
+
+
+def spec_from_config(cfg: Any) -> RunSpec:
+    """Validate a composed config (DictConfig or plain dict) into a RunSpec."""
+    c = _plain(cfg)
+    if not isinstance(c, dict):
+        raise SpecError("config must be a mapping")
+    for key in ("dataset", "solver"):
+        if not isinstance(c.get(key), dict):
+            raise SpecError(f"config has no {key}; choose one with {key}=NAME")
+    try:
+        dataset = normalize_dataset(c["dataset"])
+    except DataError as e:
+        raise SpecError(str(e)) from None
+
+    split = dict(SplitConfig().__dict__, **(c.get("split") or {}))
+    _check("split.kind", split["kind"])
+    split["test"] = float(_check("split.test", split["test"]))
+    split["val"] = float(_check("split.val", split["val"]))
+    if split["test"] < 1 and split["val"] < 1 and split["test"] + split["val"] >= 1:
+        raise SpecError(f"split.test + split.val = {split['test'] + split['val']:g} leaves no training rows: "
+                        "fractions must sum to < 1")
+    if split["kind"] != "indices":
+        split["train_rows"] = split["val_rows"] = split["test_rows"] = None
+    # a bad value is refused even where the key is unused (one line, exit 2), never ignored
+    fold = int(_check("split.fold", split.get("fold", 0)))
+    repeat = int(_check("split.repeat", split.get("repeat", 0)))
+    if split["kind"] != "indices" or split["train_rows"] is not None or split["test_rows"] is not None:
+        # fold and repeat pick a predefined fold (an OpenML task's); elsewhere they change
+        # nothing, so they stay out of the run identity
+        split.pop("fold", None)
+        split.pop("repeat", None)
+    else:
+        split["fold"], split["repeat"] = fold, repeat
+
+    solver_cfg = dict(c["solver"])
+    name = solver_cfg.pop("name", None)
+    try:
+        sdef = get_solver(name)
+    except UnknownSolver as e:
+        raise SpecError(str(e)) from None
+    task = dataset_task(dataset)
+    if task is not None and task not in sdef.tasks:
+        raise SpecError(f"solver {name!r} does not handle {task} problems such as dataset {dataset.get('name')!r}; "
+                        f"valid solvers: {', '.join(n for n, d in SOLVERS.items() if task in d.tasks)}")
+    asked = c["dataset"].get("loss")
+    if sdef.loss is not None and asked not in (None, sdef.loss):
+        raise SpecError(f"dataset.loss={asked!r} conflicts with solver {name!r}, which trains the "
+                        f"{sdef.loss} loss; drop dataset.loss or set it to {sdef.loss!r}")
+    own = {f.name for f in dataclasses.fields(sdef.params)}
+    for key in COMMON_SOLVER_KEYS:
+        if key not in own:
+            solver_cfg.pop(key, None)
+    solver_cfg = {k: v for k, v in solver_cfg.items() if not (v is None and k in own and
+                  getattr(sdef.params, k, None) is not None)}
+    try:
+        params = dataclasses.asdict(make_params(sdef.params, solver_cfg, "solver"))
+    except ParamError as e:
+        raise SpecError(str(e)) from None
+
+    budget = dict(BudgetConfig().__dict__, **(c.get("budget") or {}))
+    budget["iterations"] = int(_check("budget.iterations", budget["iterations"]))
+    if budget["passes"] is not None:
+        budget["passes"] = float(_check("budget.passes", budget["passes"]))
+    budget["diverge_factor"] = float(_check("budget.diverge_factor", budget["diverge_factor"]))
+    record = dict(RecordConfig().__dict__, **(c.get("record") or {}))
+    unknown = sorted(set(record) - set(RecordConfig().__dict__))
+    if unknown:
+        raise SpecError(f"record has no key {unknown[0]!r}; valid: {', '.join(RecordConfig().__dict__)}")
+    record["every"] = int(_check("record.every", record["every"]))
+    _check("record.residual", record["residual"])
+    if record["residual"]:
+        del record["residual"]  # the default is absent from the identity (runs keep their ids)
+    if record["per_pass"] is None:
+        del record["per_pass"]  # absent from the identity, so runs without it keep their ids
+    else:
+        record["per_pass"] = float(_check("record.per_pass", record["per_pass"]))
+        if record["every"] != 1:
+            raise SpecError(f"record.every={record['every']} and record.per_pass={record['per_pass']:g} "
+                            "are exclusive: set one of them")
+    seed = int(_check("seed", c.get("seed", 0)))
+    if c.get("threads") is not None:
+        _check("threads", c["threads"])
+    if "results_root" in c:
+        check_results_root(c["results_root"])
+    check_campaign_id(c.get("campaign_id"))
+    try:
+        stopping = normalize_stopping(dict(StoppingConfig().__dict__, **(c.get("stopping") or {})))
+    except RuleError as e:
+        raise SpecError(str(e)) from None
+    if stopping.get("halt") and stopping.get("rule") in RESIDUAL_RULES and record.get("residual") is False:
+        raise SpecError(f"stopping.rule={stopping['rule']} with halt needs the residual columns: "
+                        "drop record.residual=false")
+    if stopping.get("halt") and stopping.get("rule") == "ncp" and dataset_row_order(dataset) != "signal":
+        raise SpecError(ncp_halt_needs_signal_rows(dataset.get("name")))
+    return RunSpec(dataset=dataset, split=split, solver=name, params=params, budget=budget,
+                   record=record, seed=seed, stopping=stopping)
+
+
+def spec_from_identity(ident: dict) -> RunSpec:
+    """Rebuild a RunSpec from a stored identity (data only: nothing is imported or called)."""
+    if not isinstance(ident, dict) or ident.get("format") != TRACE_FORMAT:
+        raise SpecError("stored config has an unknown trace format")
+    try:
+        for key in ("dataset", "split", "solver", "budget", "record"):
+            if not isinstance(ident[key], dict):
+                raise SpecError(f"stored config: {key} is not a mapping")
+        if not isinstance(ident["solver"]["params"], dict):
+            raise SpecError("stored config: solver.params is not a mapping")
+        cfg = {
+            "dataset": ident["dataset"], "split": ident["split"],
+            "solver": dict(ident["solver"]["params"], name=ident["solver"]["name"]),
+            "budget": ident["budget"], "record": ident["record"], "seed": ident["seed"],
+        }
+        if "halt" in ident:
+            halt = ident["halt"]
+            if not isinstance(halt, dict) or not isinstance(halt.get("params"), dict):
+                raise SpecError("stored config: halt is not a mapping with params")
+            cfg["stopping"] = {"rule": halt["rule"], "halt": True, "params": halt["params"]}
+        return spec_from_config(cfg)
+    except SpecError:
+        raise
+    except (KeyError, TypeError, ValueError, AttributeError) as e:
+        raise SpecError(f"stored config is malformed: {type(e).__name__}: {e}") from None
+
+
+# ---------------------------------------------------------------- composing with Hydra
+
+def conf_dir() -> Path:
+    """The Hydra config directory: packaged copy when installed, else the checkout's conf/."""
+    here = Path(__file__).resolve().parent.parent  # the stopwise package
+    packaged = here / "_conf"
+    if packaged.is_dir():
+        return packaged
+    return here.parent.parent / "conf"
+
+
+def campaigns_dir() -> Path:
+    return conf_dir() / "campaign"
+
+
+def group_options(group: str) -> list[str]:
+    """Options of a config group: Hydra's own view when it is initialized (which includes
+    plugin configs such as ``hydra/launcher``), else the yaml files under conf/."""
+    try:
+        from hydra.core.global_hydra import GlobalHydra
+
+        gh = GlobalHydra.instance()
+        if gh.is_initialized():
+            opts = gh.config_loader().get_group_options(group)
+            if opts:
+                return sorted(set(opts))
+    except Exception:  # an error message must never fail
+        pass
+    d = conf_dir() / group
+    return sorted(p.stem for p in d.glob("*.yaml")) if d.is_dir() else []
+
+
+def hydra_error_line(e: BaseException) -> str:
+    """Turn a Hydra / OmegaConf composition error into one line."""
+    msg = str(e)
+    m = re.search(r"Could not find '([^']+)/([^'/]+)'", msg)
+    if m:
+        group, option = m.group(1), m.group(2)
+        noun = {"campaign": "campaign"}.get(group, group)
+        return f"unknown {noun} {option!r}; valid: {', '.join(group_options(group))}"
+    m = re.search(r"Could not override '([^']+)'", msg)
+    cause = e.__cause__
+    first = msg.strip().splitlines()[0] if msg.strip() else type(e).__name__
+    if cause is not None and str(cause).strip():
+        c = str(cause).strip().splitlines()[0]
+        if m:
+            return f"cannot set {m.group(1)}: {c}"
+        m = re.search(r"Error merging override (\S+)", first)
+        if m:
+            valid = constraint_for(m.group(1).lstrip("+~").split("=", 1)[0])
+            if valid is not None:
+                return f"{m.group(1)} is invalid: must be {valid.describe()} ({c})"
+            return f"{m.group(1)} is invalid: {c}"
+        return f"{first} {c}"
+    return first
+
+
+def constraint_for(key: str) -> Interval | Choice | None:
+    """The declared constraint of a config key, when one is known without composing:
+    the fixed schemas' fields, and ``solver.X`` when every solver with a param X agrees."""
+    if key in FIELD_CONSTRAINTS:
+        return FIELD_CONSTRAINTS[key]
+    if key.startswith("solver.") and key.count(".") == 1:
+        name = key.split(".", 1)[1]
+        found = {f.metadata.get("constraint") for d in SOLVERS.values()
+                 for f in dataclasses.fields(d.params) if f.name == name}
+        if len(found) == 1:
+            return found.pop()
+    return None
+
+
+def compose(overrides: list[str], return_hydra_config: bool = False):
+    """Compose the config for a list of Hydra overrides (no files written)."""
+    from hydra import compose as hcompose
+    from hydra import initialize_config_dir
+    from hydra.errors import HydraException
+    from omegaconf.errors import OmegaConfBaseException
+
+    register_configs()
+    with initialize_config_dir(config_dir=str(conf_dir()), version_base="1.3"):
+        try:
+            return hcompose(config_name="config", overrides=list(overrides),
+                            return_hydra_config=return_hydra_config)
+        except (HydraException, OmegaConfBaseException) as e:
+            line = hydra_error_line(e)  # while Hydra is initialized, so it can list group options
+    raise SpecError(line)
+
+
+def spec_from_overrides(overrides: list[str]) -> RunSpec:
+    return spec_from_config(compose(overrides))

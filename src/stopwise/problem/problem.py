@@ -1,0 +1,216 @@
+"""The Problem: what a run sees of a dataset after splitting and preprocessing.
+
+A solver never receives the Problem itself, only its :class:`TrainingSet` (training rows
+and the smoothness constant), so no solver can look at validation or test data.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+TASKS = ("regression", "binary", "multiclass")
+NOISE_KINDS = ("norm", "gaussian")
+SPECTRUM_GRAM_MAX = 4096  # ||X_train||_2 from a Gram matrix up to this many rows (128 MiB)
+
+
+@dataclass(frozen=True)
+class TrainingSet:
+    """Training rows only: what a solver may use.
+
+    ``loss`` names the training objective (see :mod:`stopwise.problem.losses`) and ``L`` is its
+    smoothness constant: ``||X||_2^2 / n`` for least squares ``f(w) = (1 / (2 n)) ||X w - y||^2``,
+    ``||X||_2^2 / (4 n)`` for logistic, ``||X||_2^2 / (2 n)`` for softmax, and the scale
+    ``||X||_2^2 / n`` for the (non-smooth) hinge. ``k`` is the number of columns of the weight
+    matrix (the number of classes for softmax, 1 otherwise); iterates are flat vectors of
+    length ``dim = d * k``.
+    """
+
+    X: np.ndarray
+    y: np.ndarray
+    L: float
+    task: str = "regression"
+    loss: str = "squares"
+    k: int = 1
+
+    def gradient(self, w: np.ndarray) -> np.ndarray:
+        """Gradient of the training objective at ``w`` as a new array (one data pass)."""
+        from stopwise.problem.losses import gradient
+
+        return gradient(self, w)
+
+    def value(self, w: np.ndarray) -> float:
+        """Training objective at ``w``."""
+        from stopwise.problem.losses import value
+
+        return value(self, w)
+
+    @property
+    def row_norm_max2(self) -> float:
+        """``R^2 = max_i ||x_i||^2`` (computed once per training set)."""
+        hit = self.__dict__.get("_row_norm_max2")
+        if hit is None:
+            hit = float(np.einsum("ij,ij->i", self.X, self.X).max()) if self.X.size else 0.0
+            object.__setattr__(self, "_row_norm_max2", hit)
+        return hit
+
+    @property
+    def n(self) -> int:
+        return self.X.shape[0]
+
+    @property
+    def d(self) -> int:
+        return self.X.shape[1]
+
+    @property
+    def dim(self) -> int:
+        """Length of an iterate: ``d`` (``d * K`` for softmax, W stored row-major)."""
+        return self.X.shape[1] * self.k
+
+
+@dataclass(frozen=True)
+class Problem:
+    """Float64 train/validation/test arrays plus what is known about the truth.
+
+    ``noise_kind`` is ``"norm"`` when ``noise_level`` is the exact Euclidean norm of the
+    noise added to the training targets (worst-case model, the ``delta`` of the
+    discrepancy principle), ``"gaussian"`` when it is the standard deviation ``sigma`` of
+    i.i.d. Gaussian noise on every target, and ``None`` when unknown.
+    """
+
+    name: str
+    task: str
+    X_train: np.ndarray
+    y_train: np.ndarray
+    X_val: np.ndarray
+    y_val: np.ndarray
+    X_test: np.ndarray
+    y_test: np.ndarray
+    w_true: np.ndarray | None = None
+    noise_level: float | None = None
+    noise_kind: str | None = None
+    feature_names: tuple[str, ...] = ()
+    preprocessing: dict[str, Any] = field(default_factory=dict)
+    info: dict[str, Any] = field(default_factory=dict)
+    loss: str | None = None  # the dataset's loss option; None = the task's default
+
+    def __post_init__(self) -> None:
+        if self.task not in TASKS:
+            raise ValueError(f"task {self.task!r} is not one of {', '.join(TASKS)}")
+        from stopwise.problem.losses import check_loss
+
+        check_loss(self.task, self.loss)
+        if self.noise_kind is not None and self.noise_kind not in NOISE_KINDS:
+            raise ValueError(f"noise kind {self.noise_kind!r} is not one of {', '.join(NOISE_KINDS)}")
+        for name in ("X_train", "y_train", "X_val", "y_val", "X_test", "y_test"):
+            arr = getattr(self, name)
+            if arr.dtype != np.float64:
+                raise TypeError(f"Problem.{name} must be float64, got {arr.dtype}")
+            arr.flags.writeable = False
+        if self.w_true is not None:
+            self.w_true.flags.writeable = False
+
+    @property
+    def n_train(self) -> int:
+        return self.X_train.shape[0]
+
+    @property
+    def d(self) -> int:
+        return self.X_train.shape[1]
+
+    @property
+    def signal_rows(self) -> bool:
+        """Whether the rows are samples of a signal in their order (sampling points of an
+        integral equation, time), so that the training residual read in row order is a
+        signal too: the source declares it (``SourceDef.row_order``) and the build writes
+        ``info["row_order"] = "signal"``. Splits keep
+        the source's row order within each part."""
+        return self.info.get("row_order") == "signal"
+
+    @property
+    def L(self) -> float:
+        """Smoothness constant of the default training objective (``||X_train||_2^2 / n_train``
+        for least squares; see :class:`TrainingSet`)."""
+        return self.training.L
+
+    @property
+    def objective(self) -> str:
+        """The loss trained by default: the dataset's ``loss`` option or the task's default."""
+        from stopwise.problem.losses import check_loss
+
+        return check_loss(self.task, self.loss)
+
+    @property
+    def n_classes(self) -> int:
+        """Number of classes (0 for regression): from ``info["classes"]`` when the source
+        recorded them, else 2 for binary and the largest label + 1 for multiclass."""
+        if self.task == "regression":
+            return 0
+        classes = self.info.get("classes")
+        if classes:
+            return len(classes)
+        if self.task == "binary":
+            return 2
+        top = max(float(a.max()) for a in (self.y_train, self.y_val, self.y_test) if a.size)
+        return int(top) + 1
+
+    @property
+    def training(self) -> TrainingSet:
+        """Training rows with the default loss (see :meth:`training_set`)."""
+        return self.training_set(None)
+
+    def training_set(self, loss: str | None = None) -> TrainingSet:
+        """Training rows with ``loss`` (default: :attr:`objective`), cached per loss."""
+        from stopwise.problem.losses import CURVATURE, check_loss, n_outputs
+
+        loss = check_loss(self.task, loss if loss is not None else self.loss)
+        cache = self.__dict__.setdefault("_training_sets", {})
+        hit = cache.get(loss)
+        if hit is None:
+            X = self.X_train
+            L = CURVATURE[loss] * self.train_norm2_sq / max(X.shape[0], 1)
+            hit = TrainingSet(X=X, y=self.y_train, L=L, task=self.task, loss=loss,
+                              k=n_outputs(loss, self.n_classes))
+            cache[loss] = hit
+        return hit
+
+    def gram_matrix(self, split: str = "train") -> np.ndarray:
+        """``X_s^T X_s`` of a split (``train``, ``val``, ``test``), computed once per problem
+        and read-only (shared by the smoothness constant and the Gram evaluation path)."""
+        cache = self.__dict__.setdefault("_gram_matrices", {})
+        G = cache.get(split)
+        if G is None:
+            X = getattr(self, "X_" + split)
+            G = X.T @ X
+            G.flags.writeable = False
+            cache[split] = G
+        return G
+
+    @property
+    def train_norm2_sq(self) -> float:
+        """``||X_train||_2^2``, the largest eigenvalue of the smaller of ``X^T X`` and ``X X^T``
+        (LAPACK ``syevd``; its relative error is a small multiple of the machine epsilon), or
+        of a full SVD when that matrix would have more than ``SPECTRUM_GRAM_MAX`` rows.
+        Computed once per problem."""
+        hit = self.__dict__.get("_train_norm2_sq")
+        if hit is None:
+            X = self.X_train
+            n, d = X.shape
+            if X.size == 0:
+                hit = 0.0
+            elif min(n, d) > SPECTRUM_GRAM_MAX:
+                hit = float(np.linalg.norm(X, 2)) ** 2
+            else:
+                hit = float(np.linalg.eigvalsh(self.gram_matrix("train") if n >= d else X @ X.T)[-1])
+            object.__setattr__(self, "_train_norm2_sq", hit)
+        return hit
+
+    @property
+    def noise_norm(self) -> float | None:
+        """Norm of the training noise (exact for ``norm``, expected for ``gaussian``)."""
+        if self.noise_level is None:
+            return None
+        if self.noise_kind == "norm":
+            return float(self.noise_level)
+        return float(self.noise_level) * float(np.sqrt(self.n_train))

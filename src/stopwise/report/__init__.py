@@ -1,0 +1,1 @@
+"""Tables, figures and the static HTML report of a campaign."""

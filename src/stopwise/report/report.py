@@ -1,0 +1,279 @@
+"""A campaign report: one static HTML page with PNG figures, plus the same tables as
+Markdown and CSV, written into one folder that works offline.
+
+Layout of the output folder::
+
+    index.html          the page (no scripts, no external resources)
+    tables.md           the page's tables in Markdown
+    results.csv         per (dataset, method) numbers at full precision
+    ranks.csv, tests.csv
+    figures/<name>.png  every figure the page shows
+
+Everything is computed before the first file is written; each file is written
+atomically, so a failed report leaves no partial page behind.
+"""
+from __future__ import annotations
+
+import html
+import os
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Sequence
+
+import pandas as pd
+
+from stopwise.core.version import __version__
+from stopwise.report.figures import Plot
+from stopwise.analysis.rank import Ranking
+from stopwise.results.store import atomic_write_bytes
+from stopwise.report.tables import display_tables, heading, to_csv, to_markdown
+
+FIGURE_DIR = "figures"
+
+STYLE = """
+body { font-family: Georgia, 'DejaVu Serif', serif; max-width: 76rem; margin: 1.5rem auto; padding: 0 1rem;
+       color: #1d2327; line-height: 1.45; }
+h1 { font-size: 1.6rem; border-bottom: 3px double #7a8b99; padding-bottom: .3rem; }
+h2 { font-size: 1.25rem; margin-top: 2.2rem; color: #243b53; }
+p.setting { background: #f3f6f9; border-left: 4px solid #7a8b99; padding: .5rem .8rem; }
+table { border-collapse: collapse; font-family: 'DejaVu Sans Mono', monospace; font-size: .8rem; margin: .6rem 0; }
+th, td { padding: .2rem .55rem; border-bottom: 1px solid #d9e2ec; }
+th { background: #e4ebf1; text-align: left; }
+td.n { text-align: right; }
+figure { margin: 1.4rem 0; }
+figure img { max-width: 100%; border: 1px solid #d9e2ec; }
+figcaption { font-size: .9rem; color: #334e68; margin-top: .3rem; }
+ul.notes { color: #8d2b0b; }
+"""
+
+
+@dataclass
+class ReportPage:
+    """What goes on the page: a ranking, its figures and a few lines of context."""
+
+    title: str
+    ranking: Ranking
+    plots: list[Plot]
+    context: list[str] = field(default_factory=list)   # plain-text lines shown under the title
+    notes: list[str] = field(default_factory=list)
+
+
+def _html_table(df: pd.DataFrame) -> str:
+    if df.empty:
+        return "<p>(empty)</p>"
+    from stopwise.report.tables import _looks_numeric
+
+    numeric = [all(_looks_numeric(str(v)) for v in df[c]) for c in df.columns]
+    head = "".join(f"<th>{html.escape(str(c))}</th>" for c in df.columns)
+    body = []
+    for row in df.itertuples(index=False):
+        cells = "".join(f'<td class="n">{html.escape(str(v))}</td>' if numeric[j] else f"<td>{html.escape(str(v))}</td>"
+                        for j, v in enumerate(row))
+        body.append(f"<tr>{cells}</tr>")
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+TABLE_TITLES = {"results": "Per dataset and method", "ranks": "Ranks (1 = best, ties averaged)",
+                "tests": "Rank tests (Friedman, Iman-Davenport, Nemenyi)"}
+
+
+def render_html(page: ReportPage) -> str:
+    """The page as one HTML string (figures referenced as figures/<name>.png)."""
+    r = page.ranking
+    tabs = display_tables(r)
+    esc = html.escape
+    parts = ["<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
+             f"<title>{esc(page.title)}</title>", f"<style>{STYLE}</style>", "</head>", "<body>",
+             f"<h1>{esc(page.title)}</h1>", f'<p class="setting">{esc(heading(r))}</p>']
+    for line in page.context:
+        parts.append(f"<p>{esc(line)}</p>")
+    parts.append("<h2>Tables</h2>")
+    for key, df in tabs.items():
+        if df.empty:
+            continue
+        parts.append(f"<h3>{esc(TABLE_TITLES[key])}</h3>")
+        parts.append(_html_table(df))
+    notes = list(r.notes) + list(page.notes)
+    if notes:
+        parts.append('<ul class="notes">' + "".join(f"<li>{esc(n)}</li>" for n in notes) + "</ul>")
+    parts.append("<h2>Figures</h2>")
+    for i, p in enumerate(page.plots, 1):
+        parts.append(f'<figure id="{esc(p.name)}"><img src="{FIGURE_DIR}/{esc(p.name)}.png" alt="{esc(p.alt, quote=True)}">'
+                     f"<figcaption>Figure {i}. {esc(p.caption)}</figcaption></figure>")
+    parts.append(f"<p><small>Written by stopwise {esc(__version__)} on "
+                 f"{esc(time.strftime('%Y-%m-%d %H:%M'))}. Tables are also in tables.md and the CSV files "
+                 "beside this page.</small></p>")
+    parts += ["</body>", "</html>"]
+    return "\n".join(parts) + "\n"
+
+
+def render_markdown(page: ReportPage) -> str:
+    r = page.ranking
+    out = [f"# {page.title}", "", f"_{heading(r)}_", ""] + [f"{c}  " for c in page.context]
+    for key, df in display_tables(r).items():
+        if df.empty:
+            continue
+        out += ["", f"## {TABLE_TITLES[key]}", "", to_markdown(df)]
+    notes = list(r.notes) + list(page.notes)
+    if notes:
+        out += [""] + [f"- note: {n}" for n in notes]
+    out += ["", "## Figures", ""]
+    for i, p in enumerate(page.plots, 1):
+        out += [f"![{p.alt}]({FIGURE_DIR}/{p.name}.png)", "", f"*Figure {i}. {p.caption}*", ""]
+    return "\n".join(out) + "\n"
+
+
+def write_report(page: ReportPage, out_dir: str | Path) -> Path:
+    """Write the page, its tables and figures into ``out_dir``; returns the index.html path."""
+    out = Path(out_dir)
+    names = [p.name for p in page.plots]
+    if len(set(names)) != len(names):
+        raise ValueError(f"two figures share a name: {', '.join(names)}")
+    raw = display_tables(page.ranking, raw=True)
+    files: list[tuple[Path, bytes]] = [(out / FIGURE_DIR / f"{p.name}.png", p.png) for p in page.plots]
+    files.append((out / "results.csv", to_csv(raw["results"]).encode()))
+    if not raw["ranks"].empty:
+        files.append((out / "ranks.csv", to_csv(raw["ranks"]).encode()))
+    if not raw["tests"].empty:
+        files.append((out / "tests.csv", to_csv(raw["tests"]).encode()))
+    files.append((out / "tables.md", render_markdown(page).encode()))
+    files.append((out / "index.html", render_html(page).encode()))  # last: the page appears when all is there
+    mode = 0o666 & ~_umask()
+    for path, data in files:
+        atomic_write_bytes(path, data)
+        os.chmod(path, mode)  # a page is for reading: not the 0600 of a temporary file
+    return out / "index.html"
+
+
+def _umask() -> int:
+    m = os.umask(0o022)
+    os.umask(m)
+    return m
+
+
+def standard_plots(ranking: Ranking, *, traces: pd.DataFrame | None = None, selections: pd.DataFrame | None = None,
+                   implicit_panels: Sequence[dict] = (), method_by: str = "solver") -> tuple[list[Plot], list[str]]:
+    """The report's figures from the ranking and its inputs; figures that cannot be drawn
+    (no traces, fewer than two datasets, ...) are left out with a note saying why."""
+    from stopwise.report import figures as F
+
+    plots: list[Plot] = []
+    notes: list[str] = []
+    r = ranking
+    rep = r.replicates
+    tuned = rep[(rep["kind"] == "iterative") & rep["valid"].astype(bool)]
+    first = tuned.sort_values("seed", kind="stable").groupby(["dataset", "method"], sort=True).head(1)
+    if traces is not None and selections is not None and not first.empty:
+        stops = selections[selections["run_id"].isin(first["run_id"])]
+        plots.append(F.curves(traces, first, stops, r.rule))
+    else:
+        notes.append("error-versus-passes curves left out: no traces of the tuned runs")
+    if implicit_panels:
+        plots.append(F.implicit_explicit(list(implicit_panels)))
+    else:
+        notes.append("implicit-versus-explicit figure left out: needs a gradient descent run and a ridge "
+                     "path on the same dataset and seed")
+    if not r.performance.empty:
+        plots.append(F.profiles(r.performance, r.data, r.target.describe(), r.unit))
+    else:
+        notes.append("profiles left out: no target or no passes to target")
+    if r.test is not None:
+        plots.append(F.critical_difference_diagram(r.test, r.by))
+    else:
+        notes.append("critical-difference diagram left out: needs at least 2 datasets and 2 methods")
+    if selections is not None:
+        hm = F.heatmaps(selections, r.rule, r.params, method_by=method_by)
+        if hm is not None:
+            plots.append(hm)
+        else:
+            notes.append("heat maps left out: no method has a parameter that varies")
+    return plots, notes
+
+
+# ---------------------------------------------------------------- a stored campaign
+
+MARKED_RULES = ("budget", "holdout", "discrepancy", "monotone_error", "ncp", "oracle")
+
+
+def implicit_panels(data, ranked_rule: str, max_panels: int = 4) -> list[dict]:
+    """Inputs of the implicit-versus-explicit figure for up to ``max_panels`` datasets.
+
+    Per dataset, on its first seed that has both: the gradient descent run with the largest
+    step scale <= 1 (its filter factors ``1 - (1 - eta s_i^2)^t`` are then monotone; the
+    smallest step scale when all exceed 1) and the stored ridge path. The ridge penalty
+    ``alpha`` of ``||y - X w||^2 + alpha ||w||^2`` is put on the scale of the training
+    objective gradient descent minimizes, ``lambda = alpha / n_train``.
+    """
+    from stopwise.analysis.rank import read_traces
+    from stopwise.results.store import Store
+
+    sel, bl = data.selections, data.baselines
+    if bl is None or bl.empty or sel.empty or "step_scale" not in sel.columns:
+        return []
+    ridge = bl[bl["method"] == "ridge"]
+    gd = sel[(sel["solver"] == "gd") & (sel["rule"] == ranked_rule) & sel["step_scale"].notna()]
+    store = Store(data.root)
+    panels = []
+    for d in sorted(gd["dataset"].unique()):
+        for seed in sorted(gd.loc[gd["dataset"] == d, "seed"].unique()):
+            rd = ridge[(ridge["dataset"] == d) & (ridge["seed"] == seed)]
+            cand = gd[(gd["dataset"] == d) & (gd["seed"] == seed) & (gd["status"] != "failed")]
+            if rd.empty or cand.empty:
+                continue
+            small = cand[cand["step_scale"] <= 1.0]
+            row = small.loc[small["step_scale"].idxmax()] if len(small) else cand.loc[cand["step_scale"].idxmin()]
+            meta = store.run_meta(str(row["run_id"])) or {}
+            prob = meta.get("problem") or {}
+            L, n = prob.get("L"), prob.get("n_train")
+            if not L or not n:
+                continue
+            tr = read_traces(data.root, [row["run_id"]], ("run_id", "iteration", "test_error"))
+            stop = row["selected_iteration"]
+            panels.append(dict(dataset=d, seed=int(seed), step_scale=float(row["step_scale"]),
+                               eta=float(row["step_scale"]) / float(L), gd=tr,
+                               ridge=rd.assign(lam=rd["penalty"].to_numpy(dtype=float) / float(n)),
+                               gd_stop=None if pd.isna(stop) else int(stop), rule=ranked_rule))
+            break
+        if len(panels) >= max_panels:
+            break
+    return panels
+
+
+def report_campaign(root: str | Path = "results", campaign: str = "", out: str | Path | None = None,
+                    rule: str = "holdout", marked_rules: Sequence[str] | None = None, baselines: str = "ensure",
+                    **options) -> Path:
+    """Rank a stored campaign and write its report folder; returns the path of index.html.
+
+    ``marked_rules`` are the rules whose stopping points the curves show (default: every
+    rule that needs no parameters, the oracle as a reference). ``options`` go to
+    :func:`stopwise.analysis.rank.rank` (target, eps, tau, by, alpha, confidence, tuning, unit, ...).
+    """
+    from stopwise.analysis.rank import gather, rank_campaign, read_traces, rule_spec
+    from stopwise.results.store import Store
+
+    main = rule_spec(rule)
+    extra = [r for r in (MARKED_RULES if marked_rules is None else marked_rules) if rule_spec(r)["label"] != main["label"]]
+    data = gather(root, campaign, rule, extra_rules=extra, baselines=baselines)
+    ranking = rank_campaign(root, campaign, rule, data=data, **options)
+    rep = ranking.replicates
+    tuned = rep[(rep["kind"] == "iterative") & rep["valid"].astype(bool)]
+    first = tuned.sort_values("seed", kind="stable").groupby(["dataset", "method"]).head(1)
+    traces = read_traces(data.root, first["run_id"], ("run_id", "iteration", "passes", "test_error"))
+    plots, notes = standard_plots(ranking, traces=traces, selections=data.selections,
+                                  implicit_panels=implicit_panels(data, data.rule))
+    manifest = Store(root).find_campaign(campaign)
+    n_runs = len(manifest.get("run_ids", []))
+    status = data.selections.drop_duplicates("run_id")["status"].value_counts()
+    context = [f"Campaign {manifest.get('name', campaign)} ({str(manifest.get('campaign_id', ''))[:16]}) under "
+               f"{Path(root)}: {n_runs} runs (" + ", ".join(f"{v} {k}" for k, v in status.items()) + ").",
+               f"Seeds are repeated random splits and initializations; intervals are two-sided Student t intervals "
+               f"at {ranking.confidence:g} over seeds. Stopping points are marked for rules: "
+               + ", ".join(dict.fromkeys([data.rule] + [rule_spec(r)["label"] for r in extra])) + "."]
+    page = ReportPage(f"stopwise report: campaign {manifest.get('name', campaign)}", ranking, plots, context, notes)
+    target = Path(out) if out is not None else Path(root) / "reports" / str(manifest.get("name", campaign))
+    return write_report(page, target)
+
+
+__all__ = ["MARKED_RULES", "ReportPage", "implicit_panels", "render_html", "render_markdown", "report_campaign",
+           "standard_plots", "write_report"]

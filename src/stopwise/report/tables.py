@@ -1,0 +1,200 @@
+"""Render a Ranking as an aligned terminal table, CSV or Markdown.
+
+The display tables are built once (:func:`display_tables`) and rendered in any of the
+three formats, so the terminal, the CSV files and the HTML report always show the same
+numbers. CSV keeps full precision; text and Markdown round to four significant digits.
+"""
+from __future__ import annotations
+
+import io
+import math
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from stopwise.core.errors import SpecError
+from stopwise.analysis.rank import Ranking
+
+FORMATS = ("text", "csv", "markdown")
+
+
+class FormatError(SpecError):
+    """Unknown output format; one line."""
+
+
+def num(x: Any, digits: int = 4) -> str:
+    """Four significant digits; ``inf`` prints as ``never``, NaN as ``-``."""
+    if x is None:
+        return "-"
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return str(x)
+    if math.isnan(v):
+        return "-"
+    if math.isinf(v):
+        return "never" if v > 0 else "-inf"
+    if v == int(v) and abs(v) < 1e6:
+        return str(int(v))
+    return f"{v:.{digits}g}"
+
+
+def with_interval(mean: float, low: float, high: float) -> str:
+    if mean is None or (isinstance(mean, float) and math.isnan(mean)):
+        return "-"
+    if low is None or high is None or not (np.isfinite(low) and np.isfinite(high)):
+        return num(mean)
+    return f"{num(mean)} ± {num((high - low) / 2, 2)}"
+
+
+def _frac(k: Any, n: Any) -> str:
+    if k is None or (isinstance(k, float) and math.isnan(k)):
+        return "-"
+    return f"{int(k)}/{int(n)}"
+
+
+def results_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
+    """One row per (dataset, method). ``raw`` keeps numbers (for CSV), else display strings."""
+    t = r.table.copy()
+    if "average_rank" not in t.columns:
+        t["average_rank"] = np.nan
+    if raw:
+        return t
+    pc = int(round(r.confidence * 100))
+    out = pd.DataFrame({
+        "dataset": t["dataset"], "method": t["method"],
+        "tuned config": t["config"].replace("", "-"),
+        f"test error (mean ± {pc}% t-CI)": [with_interval(m, lo, hi) for m, lo, hi in
+                                           zip(t["test_error"], t["test_error_low"], t["test_error_high"])],
+        "val error": t["val_error"].map(num),
+        "passes spent": [with_interval(m, lo, hi) for m, lo, hi in
+                         zip(t["passes_spent"], t["passes_spent_low"], t["passes_spent_high"])],
+        "passes to target": t["passes_to_target"].map(num),
+        "reached": [_frac(k, n) for k, n in zip(t["reached"], t["seeds"])],
+        "target": t["target"].map(num),
+        "gap to reference": t["gap"].map(num),
+        "avg rank": t["average_rank"].map(lambda v: num(v, 3)),
+    })
+    return out
+
+
+def ranks_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
+    """Datasets x methods ranks with an ``average`` row, methods sorted by average rank."""
+    if r.ranks.empty:
+        return pd.DataFrame()
+    order = list(r.average_ranks.index)
+    ranks = r.ranks[order]
+    full = pd.concat([ranks, ranks.mean(axis=0).to_frame("average").T])
+    full.index.name = "dataset"
+    full = full.reset_index()
+    if raw:
+        return full
+    return full.apply(lambda c: c.map(lambda v: num(v, 3)) if c.name != "dataset" else c)
+
+
+def tests_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
+    if r.test is None:
+        return pd.DataFrame(columns=["quantity", "value"])
+    f = r.test.as_frame()
+    if raw:
+        return f
+    f["value"] = f["value"].map(num)
+    groups = r.test.groups()
+    f.loc[len(f)] = ["not significantly different (Nemenyi)",
+                     "; ".join("{" + ", ".join(g) + "}" for g in groups) if groups else "(no such group)"]
+    return f
+
+
+def display_tables(r: Ranking, raw: bool = False) -> dict[str, pd.DataFrame]:
+    """The named tables of a ranking: ``results``, ``ranks``, ``tests``."""
+    return {"results": results_frame(r, raw), "ranks": ranks_frame(r, raw), "tests": tests_frame(r, raw)}
+
+
+def heading(r: Ranking) -> str:
+    by = {"test_error": "selected test error", "passes_to_target": "passes to reach the target"}[r.by]
+    return (f"rule: {r.rule}; tuning: {r.tuning.replace('_', ' ')} on validation error; ranked by {by}; "
+            f"target: {r.target.describe()}")
+
+
+# ---------------------------------------------------------------- renderers
+
+def to_text(df: pd.DataFrame) -> str:
+    """Aligned columns: text left, numbers right, two spaces between columns."""
+    if df.empty:
+        return "(empty)"
+    cells = [[str(c) for c in df.columns]] + [[str(v) for v in row] for row in df.itertuples(index=False)]
+    widths = [max(len(r[j]) for r in cells) for j in range(len(cells[0]))]
+    numeric = [all(_looks_numeric(r[j]) for r in cells[1:]) for j in range(len(widths))]
+    lines = []
+    for i, row in enumerate(cells):
+        parts = [(c.rjust(w) if numeric[j] else c.ljust(w)) for j, (c, w) in enumerate(zip(row, widths))]
+        lines.append("  ".join(parts).rstrip())
+        if i == 0:
+            lines.append("  ".join("-" * w for w in widths))
+    return "\n".join(lines)
+
+
+def _looks_numeric(s: str) -> bool:
+    if s in ("-", "never"):
+        return True
+    head = s.split(" ")[0].split("/")[0]
+    try:
+        float(head)
+        return True
+    except ValueError:
+        return False
+
+
+def _md_cell(v: Any) -> str:
+    return str(v).replace("|", "\\|").replace("\n", " ")
+
+
+def to_markdown(df: pd.DataFrame) -> str:
+    """A pipe table (GitHub-flavoured Markdown); numeric columns right-aligned."""
+    if df.empty:
+        return "(empty)"
+    cols = [str(c) for c in df.columns]
+    rows = [[_md_cell(v) for v in row] for row in df.itertuples(index=False)]
+    numeric = [all(_looks_numeric(r[j]) for r in rows) for j in range(len(cols))]
+    lines = ["| " + " | ".join(_md_cell(c) for c in cols) + " |",
+             "|" + "|".join("---:" if n else ":---" for n in numeric) + "|"]
+    lines += ["| " + " | ".join(r) + " |" for r in rows]
+    return "\n".join(lines)
+
+
+def to_csv(df: pd.DataFrame) -> str:
+    buf = io.StringIO()
+    df.to_csv(buf, index=False, float_format="%.17g")
+    return buf.getvalue()
+
+
+def render(r: Ranking, fmt: str = "text") -> str:
+    """The whole ranking in one format (CSV: the per-(dataset, method) table at full precision)."""
+    if fmt not in FORMATS:
+        raise FormatError(f"format {fmt!r} is invalid; valid: {', '.join(FORMATS)}")
+    if fmt == "csv":
+        return to_csv(results_frame(r, raw=True))
+    tabs = display_tables(r)
+    out = []
+    if fmt == "text":
+        out.append(heading(r))
+        out += ["", "per dataset and method", to_text(tabs["results"])]
+        if not tabs["ranks"].empty:
+            out += ["", "ranks (1 = best, ties averaged)", to_text(tabs["ranks"])]
+        if not tabs["tests"].empty:
+            out += ["", "rank tests (Friedman, Iman-Davenport, Nemenyi)", to_text(tabs["tests"])]
+        out += [f"note: {n}" for n in r.notes]
+        return "\n".join(out) + "\n"
+    out.append(f"_{heading(r)}_")
+    out += ["", "### Per dataset and method", "", to_markdown(tabs["results"])]
+    if not tabs["ranks"].empty:
+        out += ["", "### Ranks (1 = best, ties averaged)", "", to_markdown(tabs["ranks"])]
+    if not tabs["tests"].empty:
+        out += ["", "### Rank tests", "", to_markdown(tabs["tests"])]
+    if r.notes:
+        out += [""] + [f"- note: {n}" for n in r.notes]
+    return "\n".join(out) + "\n"
+
+
+__all__ = ["FORMATS", "FormatError", "display_tables", "render", "to_csv", "to_markdown", "to_text"]

@@ -1,0 +1,119 @@
+"""Compiled one-pass kernels for the least-squares gradient (numba).
+
+``residual_gradient(X, w, y, r, g)`` computes, in one pass over the rows of ``X``::
+
+    r_i = x_i . w - y_i          (the training residual, written to r)
+    g   = sum_i r_i x_i          (= X^T (X w - y), written to g)
+
+Each row is used for its dot product and for its share of ``g`` while it is in the
+first-level cache, so ``X`` is read from memory once per call; a product with BLAS reads
+it once for ``X w`` and once more for ``X^T r`` (blocked into cache-sized row groups it
+still streams each group from memory at the speed of a matrix-vector product, below that
+of a plain read). This is the ``fused`` evaluation path of :mod:`stopwise.running.fastpath`.
+
+Floating point: the kernels are compiled with the ``reassoc`` and ``contract`` flags only
+(sums may be reordered into SIMD lanes and multiply-adds fused; NaN and infinity keep
+their meaning, so a diverging run still shows non-finite numbers). The order of the sums
+is fixed by the compiled code, so a call repeated on the same machine gives the same bits;
+its rounding differs from BLAS's by a few units of ``eps * sum_i |r_i| |x_i|``, as two BLAS
+builds differ from each other.
+
+Two variants, chosen from the row length ``d`` alone (so a rerun takes the same one):
+one row at a time, and four rows at a time (each element of ``w`` loaded once for four
+rows, each element of ``g`` updated once for four rows). Four rows are faster for long
+rows (``d >= QUAD_MIN_D``) and for very short ones (``d < QUAD_MAX_SHORT_D``, where the
+per-row overhead dominates); in between, one row at a time streams better on the
+machine of ``docs/performance.md`` (``benchmarks/bench_bandwidth.py`` measures both).
+
+The first call in a process compiles the kernels (about a second) unless numba's cache
+(``__pycache__`` beside this file, or ``NUMBA_CACHE_DIR``) already holds them.
+"""
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+FLAGS = {"reassoc", "contract"}
+QUAD_MIN_D = 384
+QUAD_MAX_SHORT_D = 32
+
+
+@njit(fastmath=FLAGS, nogil=True, cache=True, boundscheck=False, inline="always")
+def _one_row(X, w, y, r, g, i):  # pragma: no cover - compiled
+    d = X.shape[1]
+    s = 0.0
+    for j in range(d):
+        s += X[i, j] * w[j]
+    s -= y[i]
+    r[i] = s
+    for j in range(d):
+        g[j] += s * X[i, j]
+
+
+@njit(fastmath=FLAGS, nogil=True, cache=True, boundscheck=False)
+def _rows(X, w, y, r, g):  # pragma: no cover - compiled
+    n, d = X.shape
+    for j in range(d):
+        g[j] = 0.0
+    for i in range(n):
+        _one_row(X, w, y, r, g, i)
+
+
+@njit(fastmath=FLAGS, nogil=True, cache=True, boundscheck=False)
+def _quads(X, w, y, r, g):  # pragma: no cover - compiled
+    n, d = X.shape
+    for j in range(d):
+        g[j] = 0.0
+    i = 0
+    while i + 4 <= n:
+        s0 = 0.0
+        s1 = 0.0
+        s2 = 0.0
+        s3 = 0.0
+        for j in range(d):
+            wj = w[j]
+            s0 += X[i, j] * wj
+            s1 += X[i + 1, j] * wj
+            s2 += X[i + 2, j] * wj
+            s3 += X[i + 3, j] * wj
+        s0 -= y[i]
+        s1 -= y[i + 1]
+        s2 -= y[i + 2]
+        s3 -= y[i + 3]
+        r[i] = s0
+        r[i + 1] = s1
+        r[i + 2] = s2
+        r[i + 3] = s3
+        for j in range(d):
+            g[j] += s0 * X[i, j] + s1 * X[i + 1, j] + s2 * X[i + 2, j] + s3 * X[i + 3, j]
+        i += 4
+    while i < n:
+        _one_row(X, w, y, r, g, i)
+        i += 1
+
+
+def variant(d: int) -> str:
+    """``"quads"`` or ``"rows"``: the kernel used for rows of length ``d``."""
+    return "quads" if d >= QUAD_MIN_D or d < QUAD_MAX_SHORT_D else "rows"
+
+
+_KERNELS = {"rows": _rows, "quads": _quads}
+
+
+def residual_gradient(X: np.ndarray, w: np.ndarray, y: np.ndarray, r: np.ndarray,
+                      g: np.ndarray, kind: str | None = None) -> None:
+    """Write ``X w - y`` into ``r`` and ``X^T (X w - y)`` into ``g`` (one read of ``X``).
+
+    ``X`` is (n, d) float64, ``w`` and ``g`` (d,), ``y`` and ``r`` (n,); ``kind`` forces a
+    variant (default: :func:`variant` of ``d``).
+
+    >>> import numpy as np
+    >>> X = np.arange(6.0).reshape(3, 2); y = np.ones(3); r = np.empty(3); g = np.empty(2)
+    >>> residual_gradient(X, np.array([1.0, -1.0]), y, r, g)
+    >>> r.tolist(), g.tolist(), (X.T @ (X @ [1.0, -1.0] - y)).tolist()
+    ([-2.0, -2.0, -2.0], [-12.0, -18.0], [-12.0, -18.0])
+    """
+    _KERNELS[kind or variant(X.shape[1])](X, w, y, r, g)
+
+
+__all__ = ["FLAGS", "QUAD_MIN_D", "QUAD_MAX_SHORT_D", "residual_gradient", "variant"]

@@ -1,0 +1,269 @@
+"""Recorder: the one place where per-iterate metrics are computed.
+
+The recorder owns preallocated columns and scratch buffers; recording an iterate writes
+one row in place. It never knows which solver produced the iterate.
+
+Regression traces carry the residual statistics of :mod:`stopwise.stopping.residual` after the
+base columns (unless ``residual=False``). Two extension points add columns after those:
+
+``METRIC_SETS``
+    functions ``problem -> {column: f(w) -> float}``: extras that depend on the problem
+    and the iterate only (sparsity and support against the truth, margins). Every run of
+    a problem gets them; a function may return ``{}`` for problems it does not apply to.
+``state_metrics`` (argument of :class:`Recorder`)
+    ``{column: f(state) -> float}`` supplied by the runner from the solver's own
+    ``SolverDef.metrics(train, params)``: extras that depend on the solver's params or on
+    more of its state than ``w`` (bias value, primal-dual gap). Only runs of that solver
+    have these columns; traces of different solvers concatenate with nulls
+    (:func:`stopwise.load_traces`).
+
+Both are computed here, on recorded iterates only, outside the solver's timed work.
+Classification problems replace the squared-error columns by the task's own
+(misclassification, loss per split, margins; see :mod:`stopwise.running.classify`), which come
+between the base columns and the extras.
+
+Regression: the squared errors ``||X_s w - y_s||^2`` of the train / validation / test
+splits come either from the rows directly or, for splits with more rows than features, from sufficient
+statistics computed once per problem (``w^T G_s w - 2 c_s^T w + y_s^T y_s``, one stacked
+product for all such splits); where that form would lose digits to cancellation the split
+is evaluated from its compressed rows ``||R_s [w; -1]||^2`` (QR of ``[X_s y_s]``), which
+are as accurate as the rows. See :mod:`stopwise.running.fastpath`.
+"""
+from __future__ import annotations
+
+import math
+from typing import Any, Callable, Mapping
+
+import numpy as np
+
+from stopwise.running import fastpath
+from stopwise.problem.problem import Problem
+from stopwise.stopping.residual import COLUMNS as RESIDUAL_COLUMNS, NCPDistance
+
+# Columns every trace has, in order (see docs/schema.md).
+BASE_COLUMNS = ("iteration", "passes", "seconds", "train_loss", "train_error", "val_error",
+                "test_error", "w_norm", "residual_norm", "dist_truth")
+
+# Extension point: functions (problem) -> {column: f(w) -> float} for task extras.
+METRIC_SETS: list[Callable[[Problem], dict[str, Callable[[np.ndarray], float]]]] = []
+
+
+class Recorder:
+    """Records iterates of one run. Regression problems get squared errors; classification
+    problems (``problem.task`` binary or multiclass) get the columns of
+    :class:`stopwise.running.classify.ClassificationMetrics` for the run's ``loss`` and ``model``
+    (default: the problem's loss and a linear model)."""
+
+    def __init__(self, problem: Problem, capacity: int = 256,
+                 state_metrics: Mapping[str, Callable[[Any], float]] | None = None,
+                 loss: str | None = None, model: Any = None,
+                 statistics: "fastpath.SplitStatistics | None | str" = "auto",
+                 residual: bool = True):
+        """``statistics`` (regression): the split statistics to use, None for direct
+        evaluation only, or an evaluation path name (``auto``, ``gram``, ``direct``,
+        ``fused``); see :mod:`stopwise.running.fastpath`. ``residual`` (regression): record the
+        residual statistics of :mod:`stopwise.stopping.residual` (``residual_dot_prev`` always,
+        ``ncp_distance`` when ``problem.signal_rows``)."""
+        self.problem = problem
+        self._cls = None
+        self.info: dict = {}
+        if problem.task != "regression":
+            from stopwise.running.classify import ClassificationMetrics
+
+            self._cls = ClassificationMetrics(problem, loss or problem.objective, model)
+            self.info = self._cls.info
+        self._extras: dict[str, Callable[[np.ndarray], float]] = {}
+        for make in METRIC_SETS:
+            self._extras.update(make(problem) or {})
+        regression = self._cls is None
+        self._dot = bool(residual) and regression
+        self._ncp = NCPDistance(problem.n_train) if self._dot and problem.signal_rows else None
+        res_cols = RESIDUAL_COLUMNS[: 2 if self._ncp is not None else 1] if self._dot else ()
+        cls_cols = self._cls.columns if self._cls is not None else ()
+        self._state_extras = dict(state_metrics or {})
+        clash = sorted(set(self._state_extras) & (set(BASE_COLUMNS) | set(cls_cols) | set(res_cols)
+                                                  | set(self._extras)))
+        if clash:
+            raise ValueError(f"solver metric column {clash[0]!r} clashes with a recorder column")
+        self.columns = BASE_COLUMNS + cls_cols + res_cols + tuple(self._extras) + tuple(self._state_extras)
+        self._cap = max(int(capacity), 1)
+        self._data = {c: np.empty(self._cap, dtype=np.int64 if c == "iteration" else np.float64)
+                      for c in self.columns}
+        self.size = 0
+        p = problem
+        self._buf = {k: np.empty(getattr(p, "X_" + k).shape[0]) for k in ("train", "val", "test")}
+        self._dbuf = np.empty(p.d)
+        if isinstance(statistics, str):
+            statistics = fastpath.split_statistics(p, statistics)
+        self.statistics = statistics
+        self._sq = np.full(3, math.nan)
+        splits = fastpath.SPLITS
+        used = statistics.splits if statistics is not None else ()
+        self._stat_idx = tuple(splits.index(s) for s in used)
+        self._direct_idx = tuple(i for i, s in enumerate(splits)
+                                 if s not in used and getattr(p, "X_" + s).shape[0] > 0)
+        if used:
+            k = len(used)
+            self._ua = np.empty(k * p.d + k)
+            self._u = self._ua[: k * p.d]
+            self._uk = self._u.reshape(k, p.d)
+            self._l = self._ua[k * p.d:]
+            self._v = np.empty(k)
+            self._wa = np.empty(p.d + 1)
+            self._wa[p.d] = -1.0
+        self.fallbacks = 0  # Gram-form errors recomputed from compressed rows (cancellation guard)
+        # Residual statistics (regression). The training residual vector is evaluated at
+        # every row when the training error is direct or the NCP is recorded; then the
+        # inner product comes from two residual vectors (alternating buffers), else from
+        # the training split's statistics (O(d) beyond the error, see _gram_dot).
+        self._train_stat = used.index("train") if "train" in used else None
+        self._res_rows = self._dot and (self._ncp is not None or self._train_stat is None)
+        if self._dot:
+            n = p.n_train
+            self._rb = (self._buf["train"], np.empty(n)) if self._res_rows else ()
+            self._rk = 0                       # buffer holding this row's residual
+            self._wprev = np.empty(p.d)        # previous recorded iterate, its c^T w and scale
+            self._lprev = self._sprev = math.nan
+            self._ltr = self._str = math.nan   # this row's c^T w and scale (statistics path)
+            self._za = np.empty(p.d + 1)       # [w_prev; -1] for the compressed-rows fall back
+            self._za[p.d] = -1.0
+
+    def _sq_error(self, split: str, w: np.ndarray) -> float:
+        X = getattr(self.problem, "X_" + split)
+        if X.shape[0] == 0:
+            return math.nan
+        buf = self._buf[split]
+        np.dot(X, w, out=buf)
+        buf -= getattr(self.problem, "y_" + split)
+        return float(buf @ buf)
+
+    def _compressed_error(self, split: str, w: np.ndarray) -> float:
+        self.fallbacks += 1
+        R = fastpath.row_factor(self.problem, split)
+        self._wa[:-1] = w
+        r = R @ self._wa
+        return float(r @ r)
+
+    def squared_errors(self, w: np.ndarray) -> np.ndarray:
+        """``||X_s w - y_s||^2`` for train, val, test (NaN for an empty split), in a
+        scratch array that the next call overwrites."""
+        sq = self._sq
+        if self._stat_idx:
+            st = self.statistics
+            np.dot(st.A, w, out=self._ua)      # G_j w and c_j^T w for every split j
+            self._u -= st.C2                   # G_j w - 2 c_j
+            np.dot(self._uk, w, out=self._v)   # w^T G_j w - 2 c_j^T w
+            guard = fastpath.GUARD
+            for j, (i, v, l, yy) in enumerate(zip(self._stat_idx, self._v.tolist(), self._l.tolist(), st.yy)):
+                v += yy
+                scale = v + 2.0 * l            # w^T G_j w + y_j^T y_j, the scale
+                if j == self._train_stat:
+                    self._ltr, self._str = l, scale
+                if v >= guard * scale:
+                    sq[i] = v
+                else:
+                    sq[i] = self._compressed_error(fastpath.SPLITS[i], w)
+        for i in self._direct_idx:
+            sq[i] = self._sq_error(fastpath.SPLITS[i], w)
+        return sq
+
+    def record(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
+               state: Any = None) -> float:
+        """Write one row for iterate ``w`` (of solver ``state``); returns the training objective."""
+        if self.size == self._cap:
+            self._grow()
+        if self._cls is not None:
+            return self._record_classification(iteration, passes, seconds, w, state)
+        p, i, col = self.problem, self.size, self._data
+        if self._res_rows:
+            self._buf["train"] = self._rb[self._rk]   # the direct training error writes this row's residual
+        sq_tr, sq_va, sq_te = self.squared_errors(w).tolist()
+        n = p.n_train
+        col["iteration"][i] = iteration
+        col["passes"][i] = passes
+        col["seconds"][i] = seconds
+        col["train_loss"][i] = sq_tr / (2 * n)
+        col["train_error"][i] = sq_tr / n
+        col["residual_norm"][i] = math.sqrt(sq_tr) if sq_tr >= 0 else math.nan
+        col["val_error"][i] = sq_va / p.X_val.shape[0] if p.X_val.shape[0] else math.nan
+        col["test_error"][i] = sq_te / p.X_test.shape[0]
+        if self._dot:
+            self._residual_row(i, w)
+        self._finish_row(i, w, state)
+        return sq_tr / (2 * n)
+
+    def _residual_row(self, i: int, w: np.ndarray) -> None:
+        col, first = self._data, i == 0
+        if self._res_rows:
+            cur = self._rb[self._rk]
+            if self._train_stat is not None:  # the training error came from statistics: evaluate r
+                np.dot(self.problem.X_train, w, out=cur)
+                cur -= self.problem.y_train
+            col["residual_dot_prev"][i] = math.nan if first else float(cur @ self._rb[1 - self._rk])
+            if self._ncp is not None:
+                col["ncp_distance"][i] = self._ncp(cur)
+            self._rk = 1 - self._rk
+        else:
+            col["residual_dot_prev"][i] = math.nan if first else self._gram_dot(w)
+            self._lprev, self._sprev = self._ltr, self._str
+        self._wprev[:] = w
+
+    def _gram_dot(self, w: np.ndarray) -> float:
+        """``<r_prev, r_t>`` from the training statistics: ``w_prev^T (G w - 2 c) + c^T w_prev
+        - c^T w + y^T y``, exact up to rounding of size eps times ``2 sqrt(s_prev s_t)`` (s the
+        errors' scales); below ``GUARD`` times that, from the compressed rows instead
+        (``(R [w_prev; -1]) . (R [w; -1])``, as accurate as the residual vectors)."""
+        j = self._train_stat
+        dot = float(self._wprev @ self._uk[j]) + self._lprev - self._ltr + self.statistics.yy[j]
+        if abs(dot) >= fastpath.GUARD * math.sqrt(max(self._sprev * self._str, 0.0)):
+            return dot
+        self.fallbacks += 1
+        R = fastpath.row_factor(self.problem, "train")
+        self._wa[:-1] = w
+        self._za[:-1] = self._wprev
+        return float((R @ self._za) @ (R @ self._wa))
+
+    def _record_classification(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
+                               state: Any = None) -> float:
+        p, i, col = self.problem, self.size, self._data
+        col["iteration"][i] = iteration
+        col["passes"][i] = passes
+        col["seconds"][i] = seconds
+        loss = self._cls.fill(col, i, w)
+        self._finish_row(i, w, state)
+        return loss
+
+    def _finish_row(self, i: int, w: np.ndarray, state: Any) -> None:
+        """Columns every task shares: ||w||, distance to the truth, metric sets; then count the row."""
+        p, col = self.problem, self._data
+        col["w_norm"][i] = math.sqrt(float(w @ w))
+        if p.w_true is not None and p.w_true.shape == w.shape:
+            buf = self._dbuf if self._dbuf.shape == w.shape else np.empty_like(w)
+            np.subtract(w, p.w_true, out=buf)
+            col["dist_truth"][i] = math.sqrt(float(buf @ buf))
+        else:
+            col["dist_truth"][i] = math.nan
+        for name, fn in self._extras.items():
+            col[name][i] = fn(w)
+        for name, fn in self._state_extras.items():
+            col[name][i] = fn(state) if state is not None else math.nan
+        self.size += 1
+
+    def _grow(self) -> None:
+        self._cap *= 2
+        for c, a in self._data.items():
+            b = np.empty(self._cap, dtype=a.dtype)
+            b[: self.size] = a[: self.size]
+            self._data[c] = b
+
+    def view(self) -> dict[str, np.ndarray]:
+        """The rows recorded so far as read-only views (no copy; valid until the next record)."""
+        out = {}
+        for c, a in self._data.items():
+            v = a[: self.size]
+            v.flags.writeable = False
+            out[c] = v
+        return out
+
+    def result(self) -> dict[str, np.ndarray]:
+        return {c: a[: self.size].copy() for c, a in self._data.items()}
