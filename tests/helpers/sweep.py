@@ -10,7 +10,7 @@ from pathlib import Path
 import pandas as pd
 import pyarrow.parquet as pq
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 
 
 def traces(root) -> dict[str, pd.DataFrame]:

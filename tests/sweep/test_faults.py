@@ -18,7 +18,7 @@ from stopwise.cli import main
 from stopwise.results.store import Store
 from stopwise.results.verify import TEMP_GRACE_SECONDS, check_trace, verify_root
 
-from sweep_helpers import assert_same_traces, cli, popen
+from helpers.sweep import assert_same_traces, cli, popen
 
 # 6 runs of a few tenths of a second each: long enough to kill the sweep in the middle
 SWEEP = ["sweep", "dataset=illposed", "solver=gd,nesterov", "seed=0,1,2", "budget.iterations=1500"]

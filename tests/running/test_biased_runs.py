@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 import stopwise
-from biased_helpers import as_problem, final, piecewise_constant, slsqp_elastic_limit, training, underdetermined
+from helpers.biased import as_problem, final, piecewise_constant, slsqp_elastic_limit, training, underdetermined
 from stopwise.running.record import Recorder
 from stopwise.running.runner import execute
 from stopwise.config.spec import spec_from_overrides

@@ -12,7 +12,7 @@ from stopwise.problem.problem import TrainingSet
 from stopwise.running.record import Recorder
 from stopwise.solvers import get_solver
 
-from classif_refs import iris_setosa_versicolor
+from helpers.classif_refs import iris_setosa_versicolor
 
 
 def small(seed=0, n=30, d=4):

@@ -12,7 +12,7 @@ from stopwise.problem.margins import normalized_margin
 from stopwise.problem.problem import TrainingSet
 from stopwise.solvers import get_solver
 
-from classif_refs import iris_setosa_versicolor, separable_gaussian, slsqp_hard_margin, svc_hard_margin
+from helpers.classif_refs import iris_setosa_versicolor, separable_gaussian, slsqp_hard_margin, svc_hard_margin
 
 
 def logistic_set(X, y):

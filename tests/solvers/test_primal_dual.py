@@ -2,7 +2,7 @@
 import numpy as np
 import pytest
 
-from biased_helpers import final, linprog_basis_pursuit, piecewise_constant, linprog_tv, slsqp_group_limit, training
+from helpers.biased import final, linprog_basis_pursuit, piecewise_constant, linprog_tv, slsqp_group_limit, training
 from stopwise.solvers.primal_dual import (
     ChambollePockParams,
     cp_init,

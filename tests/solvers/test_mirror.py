@@ -5,7 +5,7 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
-from biased_helpers import (FTOL, final, iterate, slsqp_elastic_limit, slsqp_group_limit, slsqp_nonneg_limit,
+from helpers.biased import (FTOL, final, iterate, slsqp_elastic_limit, slsqp_group_limit, slsqp_nonneg_limit,
                             training, underdetermined)
 from stopwise.solvers import PROX_OPERATORS, ProxDef, register_prox
 from stopwise.solvers.prox import get_prox

@@ -10,7 +10,7 @@ from stopwise.solvers import get_solver
 from stopwise.solvers.base import ParamError, make_params
 from stopwise.solvers.margin import HingeDiagonalParams
 
-from classif_refs import iris_setosa_versicolor, separable_gaussian, slsqp_hard_margin, svc_hard_margin
+from helpers.classif_refs import iris_setosa_versicolor, separable_gaussian, slsqp_hard_margin, svc_hard_margin
 
 
 def hinge_set(X, y):

@@ -1,7 +1,7 @@
 """Tuning on validation error, targets, passes to target, aggregation and ranking tables.
 
 All inputs are hand-built tables in the shapes of stopwise.select / load_baselines /
-load_traces (tests/handbuilt.py); each expected value is computed by hand in a comment.
+load_traces (tests/helpers/handbuilt.py); each expected value is computed by hand in a comment.
 """
 import math
 
@@ -12,7 +12,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from handbuilt import baseline_rows, random_campaign, selection_row, selections, trace
+from helpers.handbuilt import baseline_rows, random_campaign, selection_row, selections, trace
 from stopwise.analysis.rank import RankError, Target, passes_to_target, rank, tune
 from stopwise.report.tables import FormatError, render, to_markdown, to_text
 

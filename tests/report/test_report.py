@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 from PIL import Image
 
-from handbuilt import baseline_rows
+from helpers.handbuilt import baseline_rows
 from stopwise.report import figures as F
 from stopwise.analysis.rank import rank
 from stopwise.analysis.rankstats import friedman_from_ranks

@@ -14,7 +14,7 @@ from stopwise.problem.margins import hard_margin, is_separable, normalized_margi
 from stopwise.problem.problem import Problem
 from stopwise.running.record import Recorder
 
-from classif_refs import iris_setosa_versicolor, separable_gaussian, slsqp_hard_margin, svc_hard_margin
+from helpers.classif_refs import iris_setosa_versicolor, separable_gaussian, slsqp_hard_margin, svc_hard_margin
 
 
 def with_constant(X):

@@ -19,7 +19,7 @@ import stopwise
 from stopwise.cli import cores, main
 from stopwise.config.spec import compose, spec_from_overrides
 
-from sweep_helpers import assert_same_traces, cli
+from helpers.sweep import assert_same_traces, cli
 
 SWEEP = ["sweep", "dataset=wellposed,illposed", "solver=gd,cgls", "budget.iterations=40"]
 PROGRESS = re.compile(r"^\[\s*(\d+)/(\d+)\] (completed|diverged|failed|skipped \(done\))\s")

@@ -1,0 +1,1 @@
+"""Shared test helpers: independent references and hand-built traces (one place)."""
