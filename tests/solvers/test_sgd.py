@@ -16,7 +16,7 @@ from stopwise.data import build_problem
 from stopwise.problem.problem import TrainingSet
 from stopwise.running.runner import execute, run_rng
 from stopwise.solvers import get_solver
-from stopwise.solvers.base import make_params
+from stopwise.core.params import make_params
 from stopwise.solvers.stochastic import batch_count, batch_smoothness, next_rows, sample_smoothness
 from stopwise.config.spec import SpecError, spec_from_overrides
 

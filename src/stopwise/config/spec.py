@@ -19,7 +19,8 @@ from typing import Any, Dict, List, Optional
 from stopwise.data import DataError, dataset_row_order, dataset_task, normalize_dataset, split_rows  # noqa: F401
 from stopwise.data.split import SPLIT_KINDS
 from stopwise.solvers import SOLVERS, get_solver
-from stopwise.solvers.base import Choice, Flag, Interval, ParamError, UnknownSolver, make_params
+from stopwise.core.params import Choice, Flag, Interval, ParamError, field_types, make_params
+from stopwise.solvers.base import UnknownSolver
 from stopwise.stopping.rules import RuleError, normalize_stopping
 
 TRACE_FORMAT = 2  # 2: residual statistics from the split statistics; ncp_distance on signal rows only
@@ -168,14 +169,10 @@ def solver_schema(name: str) -> type:
     for key in COMMON_SOLVER_KEYS:
         if key not in own:
             fields.append((key, Optional[float], dataclasses.field(default=None)))
+    types = field_types(d.params)
     for f in dataclasses.fields(d.params):
-        fields.append((f.name, f.type if not isinstance(f.type, str) else _TYPES.get(f.type, Any),
-                       dataclasses.field(default=f.default)))
+        fields.append((f.name, types[f.name], dataclasses.field(default=f.default)))
     return dataclasses.make_dataclass(f"{name}_solver_config", fields)
-
-
-_TYPES = {"float": float, "int": int, "str": str, "bool": bool,
-          "float | None": Optional[float], "int | None": Optional[int], "str | None": Optional[str]}
 
 
 _REGISTERED = False

@@ -18,7 +18,7 @@ from stopwise.problem.losses import resolve_loss
 from stopwise.problem.problem import Problem
 from stopwise.running.record import Recorder
 from stopwise.solvers import get_solver
-from stopwise.solvers.base import make_params
+from stopwise.core.params import make_params
 from stopwise.config.spec import RunSpec, ncp_halt_needs_signal_rows, spec_from_overrides
 from stopwise.results.store import Store
 

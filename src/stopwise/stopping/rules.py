@@ -37,7 +37,8 @@ import numpy as np
 
 from stopwise.core.errors import SpecError
 from stopwise.stopping.residual import white_noise_limit
-from stopwise.solvers.base import Choice, Flag, Interval, ParamError, make_params, param
+from stopwise.core.params import Choice, Flag, Interval, ParamError, make_params, param
+from stopwise.core.registry import Registry
 
 POS = Interval(0.0, None, low_closed=False)
 NONNEG = Interval(0.0, None)
@@ -476,14 +477,12 @@ class RuleDef:
     can_halt: Callable[[Any], str | None] = field(default=lambda p: None)  # None: may halt, else why not
 
 
-RULES: dict[str, RuleDef] = {}
+RULES: Registry[RuleDef] = Registry("stopping rule", RuleError)
 
 
 def register_rule(defn: RuleDef) -> RuleDef:
-    if defn.name in RULES:
-        raise ValueError(f"stopping rule {defn.name!r} registered twice")
-    RULES[defn.name] = defn
-    return defn
+    """Add a stopping rule (a name registered twice raises ValueError)."""
+    return RULES.register(defn.name, defn)
 
 
 def _budget_halt(p: BudgetParams) -> str | None:
@@ -516,26 +515,14 @@ register_rule(RuleDef("oracle", OracleParams, oracle, "minimum test error (refer
 
 
 def get_rule(name: str) -> RuleDef:
-    try:
-        return RULES[name]
-    except (KeyError, TypeError):
-        raise RuleError(f"unknown stopping rule {name!r}; valid: {', '.join(RULES)}") from None
+    return RULES.get(name)
 
 
 def make_rule_params(name: str, values: Mapping[str, Any] | None = None):
     """Validated params dataclass of rule ``name`` (unknown keys and bad values raise RuleError)."""
     d = get_rule(name)
-    values = dict(values or {})
-    for f in dataclasses.fields(d.params):  # canonical numbers: 10 -> 10.0 for floats, 5.0 -> 5 for ints
-        v = values.get(f.name)
-        if isinstance(v, bool) or v is None:
-            continue
-        if str(f.type).startswith("float") and isinstance(v, int):
-            values[f.name] = float(v)
-        elif str(f.type).startswith("int") and isinstance(v, float) and v.is_integer():
-            values[f.name] = int(v)
     try:
-        return make_params(d.params, values, f"stopping.params ({name})")
+        return make_params(d.params, dict(values or {}), f"stopping.params ({name})")
     except ParamError as e:
         raise RuleError(str(e)) from None
     except TypeError as e:  # pragma: no cover - dataclass construction on odd input
