@@ -19,7 +19,7 @@ from stopwise.problem.problem import Problem
 from stopwise.running.record import Recorder
 from stopwise.solvers import get_solver
 from stopwise.core.params import make_params
-from stopwise.config.spec import RunSpec, ncp_halt_needs_signal_rows, spec_from_overrides
+from stopwise.config.spec import RunSpec, halt_missing_column, spec_from_overrides
 from stopwise.results.store import Store
 
 
@@ -112,9 +112,12 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
                    state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None,
                    loss=train.loss, model=model, statistics=stats,
                    residual=spec.record.get("residual", True))
-    if (spec.stopping.get("halt") and spec.stopping.get("rule") == "ncp"
-            and "ncp_distance" not in rec.columns):
-        raise ValueError(ncp_halt_needs_signal_rows(problem.name))  # a Problem given directly
+    if spec.stopping.get("halt"):  # a Problem given directly may lack a column the rule reads
+        from stopwise.stopping.rules import get_rule
+
+        missing = [c for c in get_rule(spec.stopping["rule"]).columns if c not in rec.columns]
+        if missing:
+            raise ValueError(halt_missing_column(spec.stopping["rule"], missing[0], problem.name))
     max_it = spec.budget["iterations"]
     max_passes = spec.budget["passes"]
     every = spec.record["every"]

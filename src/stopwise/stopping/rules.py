@@ -115,15 +115,13 @@ def _columns(trace: Any) -> Columns:
     if not isinstance(trace, pd.DataFrame):
         return trace
     out: dict[str, np.ndarray] = {}
-    for c in NUMERIC:
+    for c in trace_columns():
         if c in trace.columns:
             out[c] = (trace[c].to_numpy(dtype=np.int64) if c == "iteration"
                       else trace[c].to_numpy(dtype=np.float64, na_value=np.nan))
     return out
 
 
-NUMERIC = ("iteration", "passes", "train_error", "val_error", "test_error", "residual_norm",
-           "residual_dot_prev", "ncp_distance")
 
 
 def _n(cols: Columns) -> int:
@@ -475,6 +473,17 @@ class RuleDef:
     source: str
     reference: bool = False
     can_halt: Callable[[Any], str | None] = field(default=lambda p: None)  # None: may halt, else why not
+    # trace columns the rule reads besides iteration and passes: they are read from stored
+    # traces, and a config halting on the rule must record them (config.spec checks it)
+    columns: tuple[str, ...] = ()
+
+
+def trace_columns() -> tuple[str, ...]:
+    """Every column some registered rule reads (iteration and passes first)."""
+    out = ["iteration", "passes"]
+    for d in RULES.values():
+        out += [c for c in d.columns if c not in out]
+    return tuple(out)
 
 
 RULES: Registry[RuleDef] = Registry("stopping rule", RuleError)
@@ -496,22 +505,26 @@ register_rule(RuleDef("holdout", HoldoutParams, holdout,
                       "best validation error with patience (passes) and minimum improvement",
                       "Prechelt, Early stopping - but when? (1998); scikit-learn SGD n_iter_no_change",
                       can_halt=lambda p: None if p.patience is not None else
-                      "holdout without stopping.params.patience never decides early"))
+                      "holdout without stopping.params.patience never decides early", columns=("val_error",)))
 register_rule(RuleDef("discrepancy", DiscrepancyParams, discrepancy, "first iterate with ||Xw - y|| <= tau delta",
-                      "Morozov (1966); Engl, Hanke and Neubauer, Regularization of Inverse Problems (1996)"))
+                      "Morozov (1966); Engl, Hanke and Neubauer, Regularization of Inverse Problems (1996)",
+                      columns=("residual_norm",)))
 register_rule(RuleDef("monotone_error", MonotoneErrorParams, monotone_error,
                       "first k with (||r_k||^2 + <r_k, r_k+1>) / (2||r_k||) <= tau delta",
-                      "Hamarik and Tautenhahn, BIT 41 (2001); Elfving and Nikazad, Inverse Problems 23 (2007)"))
+                      "Hamarik and Tautenhahn, BIT 41 (2001); Elfving and Nikazad, Inverse Problems 23 (2007)",
+                      columns=("residual_norm", "residual_dot_prev")))
 register_rule(RuleDef("ncp", NCPParams, ncp, "training residual closest to / accepted as white noise (NCP)",
                       "Hansen, Kilmer and Kjeldsen, BIT 46 (2006); Rust and O'Leary, Inverse Problems 24 (2008)",
                       can_halt=lambda p: None if p.criterion == "first" else
-                      "ncp with criterion=min needs the whole trace; use stopping.params.criterion=first to halt"))
+                      "ncp with criterion=min needs the whole trace; use stopping.params.criterion=first to halt",
+                      columns=("ncp_distance",)))
 register_rule(RuleDef("a_priori", APrioriParams, a_priori, "iteration ceil(c n^a) or ceil(c delta^(-b))",
                       "a priori parameter choice, e.g. Engl, Hanke and Neubauer (1996); Yao, Rosasco and "
                       "Caponnetto, Constr. Approx. 26 (2007)"))
 register_rule(RuleDef("oracle", OracleParams, oracle, "minimum test error (reference only, never ranked)",
                       "-", reference=True,
-                      can_halt=lambda p: "the oracle reads test error and cannot halt a run"))
+                      can_halt=lambda p: "the oracle reads test error and cannot halt a run",
+                      columns=("test_error",)))
 
 
 def get_rule(name: str) -> RuleDef:
@@ -608,5 +621,5 @@ def rule_specs(rules: Iterable[Any] | None) -> list[dict[str, Any]]:
 
 
 __all__ = ["RULES", "RuleContext", "RuleDef", "RuleError", "Selection", "apply_rule", "get_rule",
-           "make_rule_params", "normalize_stopping", "register_rule", "rule_label", "rule_specs",
+           "make_rule_params", "normalize_stopping", "register_rule", "rule_label", "rule_specs", "trace_columns",
            "budget", "holdout", "discrepancy", "monotone_error", "ncp", "a_priori", "oracle"]
