@@ -118,7 +118,7 @@ def test_a_newly_registered_prox_is_accepted_and_used():
     try:
         spec = spec_from_config({"dataset": {"name": "d", "source": "synthetic"},
                                  "solver": {"name": "mirror_descent", "bias": "box_test", "lam": 1.0}})
-        assert spec.params["bias"] == "box_test"
+        assert spec.params.bias == "box_test"
         X, y, _ = underdetermined()
         y = 0.5 * y
         w = final("mirror_descent", training(X, y), {"bias": "box_test"}, 20000).w

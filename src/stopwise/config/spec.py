@@ -19,7 +19,7 @@ from typing import Any, Dict, List, Optional
 from stopwise.data import DataError, dataset_row_order, dataset_task, normalize_dataset, split_rows  # noqa: F401
 from stopwise.data.split import SPLIT_KINDS
 from stopwise.solvers import SOLVERS, get_solver
-from stopwise.core.params import Choice, Flag, Interval, ParamError, field_types, make_params
+from stopwise.core.params import Choice, Flag, Interval, ParamError, field_types, make_params, params_data
 from stopwise.solvers.base import UnknownSolver
 from stopwise.stopping.residual import NEEDS_RESIDUAL, NEEDS_SIGNAL_ROWS
 from stopwise.stopping.rules import RULES, RuleError, get_rule, normalize_stopping
@@ -196,24 +196,47 @@ def solver_schema(name: str) -> type:
     return dataclasses.make_dataclass(f"{name}_solver_config", fields)
 
 
-_REGISTERED = False
+_STORED: set[tuple[str, str]] = set()  # (group, name) already in the ConfigStore
 
 
 def register_configs() -> None:
-    """Store the schemas in Hydra's ConfigStore (idempotent)."""
-    global _REGISTERED
-    if _REGISTERED:
-        return
+    """Store the schemas in Hydra's ConfigStore: ``schema/solver/<name>`` and
+    ``schema/stopping/<rule>`` for every registered solver and rule (what conf/solver and
+    conf/stopping select), and ``solver/<name>`` / ``stopping/<rule>`` themselves for one
+    registered without a yaml file there. Repeated calls add only what was registered since."""
     from hydra.core.config_store import ConfigStore
 
     cs = ConfigStore.instance()
-    cs.store(name="stopwise_schema", node=StopwiseConfig)
-    cs.store(group="schema/dataset", name="base", node=DatasetConfig, package="dataset")
-    for name in SOLVERS:
-        cs.store(group="schema/solver", name=name, node=solver_schema(name), package="solver")
-    for name in RULES:
-        cs.store(group="schema/stopping", name=name, node=stopping_schema(name), package="stopping")
-    _REGISTERED = True
+
+    def put(group: str | None, name: str, node: Any, package: str | None) -> None:
+        if (str(group), name) not in _STORED:
+            cs.store(group=group, name=name, node=node, package=package)
+            _STORED.add((str(group), name))
+
+    put(None, "stopwise_schema", StopwiseConfig, None)
+    put("schema/dataset", "base", DatasetConfig, "dataset")
+    for kind, registry, schema in (("solver", SOLVERS, solver_schema), ("stopping", RULES, stopping_schema)):
+        for name in registry:
+            if (f"schema/{kind}", name) in _STORED:
+                continue
+            node = schema(name)
+            put(f"schema/{kind}", name, node, kind)
+            if not (conf_dir() / kind / f"{name}.yaml").is_file():
+                put(kind, name, node, kind)
+
+
+def forget_configs(kind: str, name: str) -> None:
+    """Drop what :func:`register_configs` stored for solver or stopping rule ``name`` (for a
+    registration that is undone, as in tests)."""
+    from hydra.core.config_store import ConfigStore
+
+    repo = ConfigStore.instance().repo
+    for group in (f"schema/{kind}", kind):
+        node = repo
+        for part in group.split("/"):
+            node = node.get(part, {})
+        node.pop(f"{name}.yaml", None)
+        _STORED.discard((group, name))
 
 
 # ---------------------------------------------------------------- RunSpec
@@ -225,7 +248,7 @@ class RunSpec:
     dataset: dict
     split: dict
     solver: str
-    params: dict
+    params: Any  # the solver's validated params dataclass (plain data only in identity())
     budget: dict
     record: dict
     seed: int
@@ -236,7 +259,7 @@ class RunSpec:
             "format": TRACE_FORMAT,
             "dataset": self.dataset,
             "split": self.split,
-            "solver": {"name": self.solver, "params": self.params},
+            "solver": {"name": self.solver, "params": params_data(self.params)},
             "budget": self.budget,
             "record": self.record,
             "seed": self.seed,
@@ -260,7 +283,8 @@ class RunSpec:
         """Short human label: the solver, its step scale and every param that differs from
         the solver's default (the full params are in the trace)."""
         defaults = {f.name: f.default for f in dataclasses.fields(get_solver(self.solver).params)}
-        shown = {k: v for k, v in self.params.items() if k == "step_scale" or v != defaults.get(k, v)}
+        values = {f.name: getattr(self.params, f.name) for f in dataclasses.fields(self.params)}
+        shown = {k: v for k, v in values.items() if k == "step_scale" or v != defaults.get(k, v)}
         ps = " ".join(f"{k}={_fmt(v)}" for k, v in sorted(shown.items()))
         return f"{self.solver}{(' ' + ps) if ps else ''} seed={self.seed} on {self.dataset.get('name')}"
 
@@ -356,7 +380,7 @@ def _split_section(raw: dict | None) -> dict:
     return split
 
 
-def _solver_section(raw: dict, dataset: dict, asked_loss: Any) -> tuple[str, dict]:
+def _solver_section(raw: dict, dataset: dict, asked_loss: Any) -> tuple[str, Any]:
     solver_cfg = dict(raw)
     name = solver_cfg.pop("name", None)
     try:
@@ -377,7 +401,7 @@ def _solver_section(raw: dict, dataset: dict, asked_loss: Any) -> tuple[str, dic
     solver_cfg = {k: v for k, v in solver_cfg.items() if not (v is None and k in own and
                   getattr(sdef.params, k, None) is not None)}
     try:
-        return name, dataclasses.asdict(make_params(sdef.params, solver_cfg, "solver"))
+        return name, make_params(sdef.params, solver_cfg, "solver")
     except ParamError as e:
         raise SpecError(str(e)) from None
 

@@ -153,31 +153,20 @@ def number_kind(tp: Any) -> type | None:
 def normalize_number(tp: Any, v: Any) -> Any:
     """One spelling per number for a field of type ``tp``, so a run hash never depends on it.
 
-    For a float field an int or a numeric string becomes a float (``1``, ``"1e0"`` ->
-    ``1.0``); for an int field an integral float or a numeric string becomes an int
-    (``400.0``, ``"4e2"`` -> ``400``). Anything else (booleans, non-integral values for an
-    int field, other types) is returned unchanged for the constraint to judge.
+    For a float field an int becomes a float (``1`` -> ``1.0``; the command line's ``1e0``
+    and ``1.0`` already arrive as that float); for an int field an integral float becomes
+    an int (``400.0`` -> ``400``). Anything else (booleans, strings, non-integral values
+    for an int field) is returned unchanged for the constraint to judge: a string is never
+    a number.
     """
     kind = number_kind(tp)
-    if kind is None or isinstance(v, bool) or v is None:
-        return v
-    if isinstance(v, str):
-        try:
-            v = int(v.strip()) if kind is int and _is_int_text(v) else float(v)
-        except ValueError:
-            return v
-    if not isinstance(v, (int, float)):
+    if kind is None or isinstance(v, bool) or not isinstance(v, (int, float)):
         return v
     if kind is float and isinstance(v, int):
         return float(v)
     if kind is int and isinstance(v, float) and v.is_integer():
         return int(v)
     return v
-
-
-def _is_int_text(s: str) -> bool:
-    t = s.strip().lstrip("+-").replace("_", "")
-    return t.isdigit()
 
 
 def validate_params(params: Any, owner: str) -> None:
