@@ -89,6 +89,8 @@ def test_the_new_rule_is_configured_checked_and_hashed_like_the_built_ins(extens
     assert halting.identity()["halt"] == {"rule": "ext_cap", "params": {"cap": 9}}
     with pytest.raises(SpecError, match=r"cap=0 is invalid: must be an integer in \[1, inf\)"):
         spec_from_overrides(["stopping=ext_cap", "stopping.params.cap=0"])
+    with pytest.raises(SpecError, match=r"ext_cap has no parameter 'bogus'; valid: cap$"):
+        spec_from_overrides(["stopping=ext_cap", "stopping.params.bogus=1"])
 
 
 def test_the_identity_checks_cover_the_new_solver(extension):

@@ -535,6 +535,12 @@ def hydra_error_line(e: BaseException) -> str:
     first = msg.strip().splitlines()[0] if msg.strip() else type(e).__name__
     if cause is not None and str(cause).strip():
         c = str(cause).strip().splitlines()[0]
+        k = re.search(r"Key '([^']+)' not in '(\w+?)_(solver_config|stopping_params)'", c)
+        if k:  # a key a solver's or a stopping rule's schema lacks: name the valid ones
+            reg, extra = (SOLVERS, COMMON_SOLVER_KEYS) if k.group(3) == "solver_config" else (RULES, ())
+            if k.group(2) in reg:
+                valid = sorted({f.name for f in dataclasses.fields(reg[k.group(2)].params)} | set(extra))
+                c = f"{k.group(2)} has no parameter {k.group(1)!r}; valid: {', '.join(valid) or '(none)'}"
         if m:
             return f"cannot set {m.group(1)}: {c}"
         m = re.search(r"Error merging override (\S+)", first)
