@@ -25,7 +25,7 @@ from _common import blas_threads, best_of, machine  # noqa: E402
 from stopwise.running import fastpath, kernels  # noqa: E402
 from stopwise.problem.problem import TrainingSet  # noqa: E402
 from stopwise.solvers import get_solver  # noqa: E402
-from stopwise.solvers.base import make_params  # noqa: E402
+from stopwise.core.params import make_params  # noqa: E402
 
 
 def one_shape(n: int, d: int, repeat: int) -> None:

@@ -15,7 +15,7 @@ import numpy as np
 
 from stopwise.problem.problem import TrainingSet
 from stopwise.solvers import get_solver
-from stopwise.solvers.base import make_params
+from stopwise.core.params import make_params
 
 CASES = [
     ("gd", {}),

@@ -150,7 +150,7 @@ def main() -> None:
             wall["stopwise"] += time.perf_counter() - t
             cpu["stopwise"] += time.process_time() - c
             t, c = time.perf_counter(), time.process_time()
-            theirs = hand_loop(problems[s.run_id], s.solver, s.params, s.budget["iterations"],
+            theirs = hand_loop(problems[s.run_id], s.solver, s.identity()["solver"]["params"], s.budget["iterations"],
                                Path(b) / f"run{i}.parquet", s.budget["diverge_factor"])
             wall["hand"] += time.perf_counter() - t
             cpu["hand"] += time.process_time() - c

@@ -19,7 +19,7 @@ from omegaconf import OmegaConf
 from stopwise.cli import main
 from stopwise.data.sources import SOURCES
 from stopwise.solvers import SOLVERS
-from stopwise.solvers.base import Choice, Interval
+from stopwise.core.params import Choice, Interval
 from stopwise.config.spec import FIELD_CONSTRAINTS, StopwiseConfig, conf_dir, spec_from_overrides
 from stopwise.core.errors import SpecError
 

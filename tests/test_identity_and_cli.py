@@ -22,7 +22,7 @@ def test_run_id_is_stable_under_key_order_and_number_spelling():
     assert a.run_id == b.run_id
     cfg = a.to_dict()
     shuffled = {k: cfg[k] for k in reversed(list(cfg))}
-    shuffled["solver"] = dict(reversed(list({**a.params, "name": a.solver}.items())))
+    shuffled["solver"] = dict(reversed(list({**a.identity()["solver"]["params"], "name": a.solver}.items())))
     assert spec_from_config(shuffled).digest == a.digest
 
 

@@ -31,7 +31,6 @@ from stopwise.problem.problem import Problem, TrainingSet  # noqa: E402
 from stopwise.results.query import load_runs, load_traces  # noqa: E402
 from stopwise.running.runner import RunOutcome, execute, run  # noqa: E402
 from stopwise.solvers import PROX_OPERATORS, SOLVERS, ProxDef, get_solver, register_prox  # noqa: E402
-from stopwise.running import sparsity  # noqa: E402,F401  (registers the nnz / support columns)
 from stopwise.solvers.averaging import AveragingParams, averaged  # noqa: E402
 from stopwise.solvers.stochastic import SGDParams  # noqa: E402
 from stopwise.config.spec import RunSpec, SpecError, spec_from_overrides  # noqa: E402

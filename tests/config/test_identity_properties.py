@@ -24,7 +24,7 @@ from hypothesis import strategies as st
 from stopwise.data.sources import SOURCES
 from stopwise.core.errors import SpecError
 from stopwise.solvers import SOLVERS
-from stopwise.solvers.base import Choice, Interval
+from stopwise.core.params import Choice, Interval
 from stopwise.config.spec import FIELD_CONSTRAINTS, spec_from_config, spec_from_overrides
 from stopwise.stopping.rules import RULES
 

@@ -127,7 +127,7 @@ def test_fixed_design_singular_values_are_exactly_the_configured_spectrum(decay,
     exp(-rate (j-1))."""
     spec = spec_from_overrides(["dataset=spectral", f"dataset.params.decay={decay}", f"dataset.params.rate={rate}"])
     from stopwise.data import get_source
-    from stopwise.solvers.base import make_params
+    from stopwise.core.params import make_params
 
     src = get_source("spectral")
     raw = src.load(make_params(src.params, spec.dataset["params"], "p"))

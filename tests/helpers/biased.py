@@ -6,7 +6,7 @@ from scipy.optimize import linprog, minimize
 
 from stopwise.problem.problem import Problem, TrainingSet
 from stopwise.solvers import get_solver
-from stopwise.solvers.base import make_params
+from stopwise.core.params import make_params
 
 FTOL = 1e-12  # SLSQP objective tolerance
 

@@ -8,7 +8,7 @@ from sklearn.linear_model import LogisticRegression
 import stopwise
 from stopwise.problem.problem import TrainingSet
 from stopwise.solvers import SOLVERS, get_solver
-from stopwise.solvers.base import ParamError, make_params
+from stopwise.core.params import ParamError, make_params
 
 CLASSIFICATION_SOLVERS = ("gd_normalized", "nesterov_normalized", "hinge_diagonal", "relu_net")
 

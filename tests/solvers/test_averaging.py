@@ -9,7 +9,7 @@ from stopwise.data import build_problem
 from stopwise.running.runner import execute
 from stopwise.solvers import get_solver
 from stopwise.solvers.averaging import AveragingError, AveragingParams, averaged, tail_start
-from stopwise.solvers.base import make_params
+from stopwise.core.params import make_params
 from stopwise.config.spec import spec_from_overrides
 
 

@@ -7,7 +7,7 @@ import stopwise
 from stopwise.problem.margins import normalized_margin
 from stopwise.problem.problem import TrainingSet
 from stopwise.solvers import get_solver
-from stopwise.solvers.base import ParamError, make_params
+from stopwise.core.params import ParamError, make_params
 from stopwise.solvers.margin import HingeDiagonalParams
 
 from helpers.classif_refs import iris_setosa_versicolor, separable_gaussian, slsqp_hard_margin, svc_hard_margin

@@ -118,7 +118,7 @@ def test_a_newly_registered_prox_is_accepted_and_used():
     try:
         spec = spec_from_config({"dataset": {"name": "d", "source": "synthetic"},
                                  "solver": {"name": "mirror_descent", "bias": "box_test", "lam": 1.0}})
-        assert spec.params["bias"] == "box_test"
+        assert spec.params.bias == "box_test"
         X, y, _ = underdetermined()
         y = 0.5 * y
         w = final("mirror_descent", training(X, y), {"bias": "box_test"}, 20000).w
@@ -128,14 +128,15 @@ def test_a_newly_registered_prox_is_accepted_and_used():
         assert r.success
         np.testing.assert_allclose(w, r.x, atol=1e-5)
     finally:
-        PROX_OPERATORS.pop("box_test", None)
+        if "box_test" in PROX_OPERATORS:
+            PROX_OPERATORS.unregister("box_test")
 
 
 # ---------------------------------------------------------------- acceleration
 
 def iterations_to(name, params, ref, X, y, tol=1e-6, cap=20000):
     from stopwise.solvers import get_solver
-    from stopwise.solvers.base import make_params
+    from stopwise.core.params import make_params
 
     sdef = get_solver(name)
     p = make_params(sdef.params, params, "solver")

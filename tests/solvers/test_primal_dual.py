@@ -109,7 +109,7 @@ def test_gap_and_dual_feasibility_vanish_at_the_solution(bias):
 
 
 def test_step_scale_must_keep_the_product_below_one():
-    from stopwise.solvers.base import ParamError, make_params
+    from stopwise.core.params import ParamError, make_params
 
     with pytest.raises(ParamError, match=r"step_scale=1\.0 is invalid: must be a number in \(0, 1\)"):
         make_params(ChambollePockParams, {"step_scale": 1.0}, "solver")

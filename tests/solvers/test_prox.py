@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 from scipy.optimize import minimize
 
-from stopwise.solvers.prox import PROX_OPERATORS, RegistryChoice, get_prox
+from stopwise.solvers.prox import PROX_OPERATORS, get_prox
 
 
 def group_norms(w, size):
@@ -100,9 +100,12 @@ def test_dual_violation_is_the_dual_norm_excess():
 
 
 def test_registry_choice_follows_the_registry():
-    reg = {"a": 1}
-    c = RegistryChoice(reg, extra=("tv",))
+    from stopwise.core.registry import Registry
+
+    reg = Registry("thing")
+    reg.register("a", 1)
+    c = reg.choice(extra=("tv",))
     assert c.contains("a") and c.contains("tv") and not c.contains("b")
-    reg["b"] = 2
+    reg.register("b", 2)
     assert c.contains("b") and c.describe() == "one of a, b, tv"
     assert set(PROX_OPERATORS) >= {"l1", "group_l1", "nonneg_l1"}

@@ -16,7 +16,7 @@ from stopwise.data import build_problem
 from stopwise.problem.problem import TrainingSet
 from stopwise.running.runner import execute, run_rng
 from stopwise.solvers import get_solver
-from stopwise.solvers.base import make_params
+from stopwise.core.params import make_params
 from stopwise.solvers.stochastic import batch_count, batch_smoothness, next_rows, sample_smoothness
 from stopwise.config.spec import SpecError, spec_from_overrides
 
@@ -188,7 +188,7 @@ def test_epochs_visit_every_row_once_per_pass_and_replacement_draws_are_uniform(
 def _sample_order(overrides, steps):
     spec = spec_from_overrides(overrides)
     prob = stopwise.load_problem(overrides)
-    sp = make_params(SGD.params, spec.params, "solver")
+    sp = spec.params
     st = SGD.start(prob.training, sp, run_rng(spec), spec.budget)
     st = getattr(st, "inner", st)
     seq = []
@@ -230,8 +230,8 @@ def test_runs_differing_only_in_step_size_see_the_same_draws():
         spec = spec_from_overrides(["dataset=wellposed", "solver=sgd", "solver.batch=3", "seed=1",
                                     f"solver.step_scale={scale}", "budget.iterations=1"])
         p = stopwise.load_problem(["dataset=wellposed", "seed=1"])
-        st = SGD.start(p.training, make_params(SGD.params, spec.params, "solver"), run_rng(spec), spec.budget)
-        outs.append(SGD.step(p.training, make_params(SGD.params, spec.params, "solver"), st).w)
+        st = SGD.start(p.training, spec.params, run_rng(spec), spec.budget)
+        outs.append(SGD.step(p.training, spec.params, st).w)
     np.testing.assert_allclose(outs[1], 2 * outs[0], rtol=1e-12)
 
 

@@ -9,7 +9,7 @@ import stopwise
 from stopwise.problem.problem import Problem, TrainingSet
 from stopwise.running.runner import execute
 from stopwise.solvers import SOLVERS, get_solver
-from stopwise.solvers.base import ParamError, make_params
+from stopwise.core.params import ParamError, make_params
 from stopwise.config.spec import spec_from_overrides
 
 

@@ -50,7 +50,8 @@ import pyarrow.parquet as pq
 
 from stopwise.core.errors import SpecError
 from stopwise.problem.problem import Problem
-from stopwise.solvers.base import Flag, Interval, ParamError, make_params, param
+from stopwise.core.registry import Registry
+from stopwise.core.params import Flag, Interval, ParamError, make_params, normalize_number, param
 from stopwise.results.store import META_KEY, Store, StoreError, _atomic_write, _json_default
 
 BASELINE_FORMAT = 1
@@ -306,12 +307,12 @@ class BaselineDef:
     summary: str
 
 
-BASELINES: dict[str, BaselineDef] = {}
+BASELINES: Registry[BaselineDef] = Registry("baseline", BaselineError)
 
 
 def register_baseline(d: BaselineDef) -> BaselineDef:
-    BASELINES[d.name] = d
-    return d
+    """Add a baseline (a name registered twice raises ValueError)."""
+    return BASELINES.register(d.name, d)
 
 
 register_baseline(BaselineDef("ridge", RidgeParams, fit_ridge, ("regression",),
@@ -326,10 +327,7 @@ register_baseline(BaselineDef("linear_svm", ClassifierParams, fit_linear_svm, ("
 
 
 def get_baseline(name: str) -> BaselineDef:
-    try:
-        return BASELINES[name]
-    except (KeyError, TypeError):
-        raise BaselineError(f"unknown baseline {name!r}; valid: {', '.join(BASELINES)}") from None
+    return BASELINES.get(name)
 
 
 def baseline_params(name: str, values: Mapping[str, Any] | None = None):
@@ -338,8 +336,7 @@ def baseline_params(name: str, values: Mapping[str, Any] | None = None):
     if isinstance(vals.get("penalties"), tuple):
         vals["penalties"] = list(vals["penalties"])
     if isinstance(vals.get("penalties"), list):
-        vals["penalties"] = [float(x) if isinstance(x, int) and not isinstance(x, bool) else x
-                             for x in vals["penalties"]]
+        vals["penalties"] = [normalize_number(float, x) for x in vals["penalties"]]
     try:
         return make_params(d.params, vals, f"baseline {name}")
     except ParamError as e:

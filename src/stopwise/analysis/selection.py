@@ -15,17 +15,19 @@ import pandas as pd
 import pyarrow.parquet as pq
 
 from stopwise.stopping.rules import (
-    NUMERIC,
     RuleContext,
     RuleError,
     get_rule,
     make_rule_params,
     rule_specs,
+    trace_columns,
 )
 from stopwise.results.store import Store, StoreError
 
 SELECT_COLUMNS = ("run_id", "dataset", "solver", "seed", "status", "rule", "reference", "selected_iteration",
                   "selected_passes", "passes_spent", "val_error", "test_error", "train_error", "reason")
+# errors of the selected iterate that every selection row reports
+REPORTED = ("val_error", "test_error", "train_error")
 _HEAD = SELECT_COLUMNS[:4]
 _TAIL = SELECT_COLUMNS[4:]
 
@@ -46,7 +48,8 @@ def _read(store: Store, rid: str) -> tuple[dict | None, pd.DataFrame | None, str
     try:
         meta = store.read_meta(path)
         names = pq.read_schema(path).names
-        cols = [c for c in NUMERIC if c in names]
+        wanted = dict.fromkeys((*trace_columns(), *REPORTED))  # what the rules read, then what a row reports
+        cols = [c for c in wanted if c in names]
         table = pq.read_table(path, columns=cols)
         return meta, table.to_pandas(), ""
     except Exception as e:  # an unreadable file must not sink the whole selection

@@ -79,7 +79,7 @@ def describe_config(name: str, cfg: dict[str, Any]) -> Entry:
         return Entry(name, src_name, "?", "?", "?", use, "unknown source")
     src = SOURCES[src_name]
     try:
-        from stopwise.solvers.base import make_params
+        from stopwise.core.params import make_params
 
         p = asdict(make_params(src.params, params, f"dataset.params ({src_name})"))
     except ValueError as e:

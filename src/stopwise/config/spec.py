@@ -19,8 +19,10 @@ from typing import Any, Dict, List, Optional
 from stopwise.data import DataError, dataset_row_order, dataset_task, normalize_dataset, split_rows  # noqa: F401
 from stopwise.data.split import SPLIT_KINDS
 from stopwise.solvers import SOLVERS, get_solver
-from stopwise.solvers.base import Choice, Flag, Interval, ParamError, UnknownSolver, make_params
-from stopwise.stopping.rules import RuleError, normalize_stopping
+from stopwise.core.params import Choice, Flag, Interval, ParamError, field_types, make_params, params_data
+from stopwise.solvers.base import UnknownSolver
+from stopwise.stopping.residual import NEEDS_RESIDUAL, NEEDS_SIGNAL_ROWS
+from stopwise.stopping.rules import RULES, RuleError, get_rule, normalize_stopping
 
 TRACE_FORMAT = 2  # 2: residual statistics from the split statistics; ncp_distance on signal rows only
 
@@ -103,22 +105,25 @@ class StopwiseConfig:
     split: SplitConfig = field(default_factory=SplitConfig)
     budget: BudgetConfig = field(default_factory=BudgetConfig)
     record: RecordConfig = field(default_factory=RecordConfig)
-    stopping: StoppingConfig = field(default_factory=StoppingConfig)
+    stopping: Any = None  # a schema/stopping/<rule> node (conf/stopping/*.yaml select one)
     seed: int = 0
     results_root: str = "results"
     campaign_id: Optional[str] = None
     threads: Optional[int] = None  # BLAS/OpenMP threads per run (not identity); see docs/cluster.md
 
 
-# halting rules that read the residual columns (record.residual)
-RESIDUAL_RULES = ("monotone_error", "ncp")
-
-
-def ncp_halt_needs_signal_rows(dataset_name: Any) -> str:
-    """The one-line error for halting on the NCP rule where ``ncp_distance`` is not recorded."""
-    return (f"stopping.rule=ncp with halt needs ncp_distance, which is recorded only when the training "
+def halt_needs_signal_rows(rule: str, column: str, dataset_name: Any) -> str:
+    """The one-line error for halting on a rule whose column is recorded only on signal-ordered rows."""
+    return (f"stopping.rule={rule} with halt needs {column}, which is recorded only when the training "
             f"rows are in signal order; dataset {dataset_name!r} has exchangeable rows (a file source "
             "can declare dataset.params.row_order=signal)")
+
+
+def halt_missing_column(rule: str, column: str, dataset_name: Any) -> str:
+    """The one-line error for halting on a rule whose column a problem's traces lack."""
+    if column in NEEDS_SIGNAL_ROWS:
+        return halt_needs_signal_rows(rule, column, dataset_name)
+    return f"stopping.rule={rule} with halt needs {column}, which runs on dataset {dataset_name!r} do not record"
 
 # numeric constraints of the fixed schemas, as data (read by validation and by tests)
 FIELD_CONSTRAINTS: dict[str, Interval | Choice] = {
@@ -160,6 +165,23 @@ def check_campaign_id(value: Any) -> Optional[str]:
     return value
 
 
+def params_schema(params: type, name: str) -> type:
+    """A Hydra schema of a params dataclass: its fields, types and defaults (no constraints)."""
+    types = field_types(params)
+    return dataclasses.make_dataclass(name, [(f.name, types[f.name], dataclasses.field(default=f.default))
+                                             for f in dataclasses.fields(params)])
+
+
+def stopping_schema(name: str) -> type:
+    """The Hydra schema of one stopping rule: ``rule``, ``halt`` and its params with their defaults."""
+    params = params_schema(get_rule(name).params, f"{name}_stopping_params")
+    return dataclasses.make_dataclass(f"{name}_stopping_config", [
+        ("rule", str, dataclasses.field(default=name)),
+        ("halt", bool, dataclasses.field(default=False)),
+        ("params", params, dataclasses.field(default_factory=params)),
+    ])
+
+
 def solver_schema(name: str) -> type:
     """The Hydra schema of one solver: ``name``, the common keys, and its params."""
     d = get_solver(name)
@@ -168,32 +190,53 @@ def solver_schema(name: str) -> type:
     for key in COMMON_SOLVER_KEYS:
         if key not in own:
             fields.append((key, Optional[float], dataclasses.field(default=None)))
+    types = field_types(d.params)
     for f in dataclasses.fields(d.params):
-        fields.append((f.name, f.type if not isinstance(f.type, str) else _TYPES.get(f.type, Any),
-                       dataclasses.field(default=f.default)))
+        fields.append((f.name, types[f.name], dataclasses.field(default=f.default)))
     return dataclasses.make_dataclass(f"{name}_solver_config", fields)
 
 
-_TYPES = {"float": float, "int": int, "str": str, "bool": bool,
-          "float | None": Optional[float], "int | None": Optional[int], "str | None": Optional[str]}
-
-
-_REGISTERED = False
+_STORED: set[tuple[str, str]] = set()  # (group, name) already in the ConfigStore
 
 
 def register_configs() -> None:
-    """Store the schemas in Hydra's ConfigStore (idempotent)."""
-    global _REGISTERED
-    if _REGISTERED:
-        return
+    """Store the schemas in Hydra's ConfigStore: ``schema/solver/<name>`` and
+    ``schema/stopping/<rule>`` for every registered solver and rule (what conf/solver and
+    conf/stopping select), and ``solver/<name>`` / ``stopping/<rule>`` themselves for one
+    registered without a yaml file there. Repeated calls add only what was registered since."""
     from hydra.core.config_store import ConfigStore
 
     cs = ConfigStore.instance()
-    cs.store(name="stopwise_schema", node=StopwiseConfig)
-    cs.store(group="schema/dataset", name="base", node=DatasetConfig, package="dataset")
-    for name in SOLVERS:
-        cs.store(group="schema/solver", name=name, node=solver_schema(name), package="solver")
-    _REGISTERED = True
+
+    def put(group: str | None, name: str, node: Any, package: str | None) -> None:
+        if (str(group), name) not in _STORED:
+            cs.store(group=group, name=name, node=node, package=package)
+            _STORED.add((str(group), name))
+
+    put(None, "stopwise_schema", StopwiseConfig, None)
+    put("schema/dataset", "base", DatasetConfig, "dataset")
+    for kind, registry, schema in (("solver", SOLVERS, solver_schema), ("stopping", RULES, stopping_schema)):
+        for name in registry:
+            if (f"schema/{kind}", name) in _STORED:
+                continue
+            node = schema(name)
+            put(f"schema/{kind}", name, node, kind)
+            if not (conf_dir() / kind / f"{name}.yaml").is_file():
+                put(kind, name, node, kind)
+
+
+def forget_configs(kind: str, name: str) -> None:
+    """Drop what :func:`register_configs` stored for solver or stopping rule ``name`` (for a
+    registration that is undone, as in tests)."""
+    from hydra.core.config_store import ConfigStore
+
+    repo = ConfigStore.instance().repo
+    for group in (f"schema/{kind}", kind):
+        node = repo
+        for part in group.split("/"):
+            node = node.get(part, {})
+        node.pop(f"{name}.yaml", None)
+        _STORED.discard((group, name))
 
 
 # ---------------------------------------------------------------- RunSpec
@@ -205,7 +248,7 @@ class RunSpec:
     dataset: dict
     split: dict
     solver: str
-    params: dict
+    params: Any  # the solver's validated params dataclass (plain data only in identity())
     budget: dict
     record: dict
     seed: int
@@ -216,7 +259,7 @@ class RunSpec:
             "format": TRACE_FORMAT,
             "dataset": self.dataset,
             "split": self.split,
-            "solver": {"name": self.solver, "params": self.params},
+            "solver": {"name": self.solver, "params": params_data(self.params)},
             "budget": self.budget,
             "record": self.record,
             "seed": self.seed,
@@ -240,7 +283,8 @@ class RunSpec:
         """Short human label: the solver, its step scale and every param that differs from
         the solver's default (the full params are in the trace)."""
         defaults = {f.name: f.default for f in dataclasses.fields(get_solver(self.solver).params)}
-        shown = {k: v for k, v in self.params.items() if k == "step_scale" or v != defaults.get(k, v)}
+        values = {f.name: getattr(self.params, f.name) for f in dataclasses.fields(self.params)}
+        shown = {k: v for k, v in values.items() if k == "step_scale" or v != defaults.get(k, v)}
         ps = " ".join(f"{k}={_fmt(v)}" for k, v in sorted(shown.items()))
         return f"{self.solver}{(' ' + ps) if ps else ''} seed={self.seed} on {self.dataset.get('name')}"
 
@@ -287,19 +331,34 @@ def _check(path: str, value: Any, allow_none: bool = False) -> Any:
 
 
 def spec_from_config(cfg: Any) -> RunSpec:
-    """Validate a composed config (DictConfig or plain dict) into a RunSpec."""
+    """Validate a composed config (DictConfig or plain dict) into a RunSpec, one section at a time."""
     c = _plain(cfg)
     if not isinstance(c, dict):
         raise SpecError("config must be a mapping")
     for key in ("dataset", "solver"):
         if not isinstance(c.get(key), dict):
             raise SpecError(f"config has no {key}; choose one with {key}=NAME")
+    dataset = _dataset_section(c["dataset"])
+    split = _split_section(c.get("split"))
+    name, params = _solver_section(c["solver"], dataset, c["dataset"].get("loss"))
+    budget = _budget_section(c.get("budget"))
+    record = _record_section(c.get("record"))
+    seed = int(_check("seed", c.get("seed", 0)))
+    _run_options_section(c)
+    stopping = _stopping_section(c.get("stopping"), record, dataset)
+    return RunSpec(dataset=dataset, split=split, solver=name, params=params, budget=budget,
+                   record=record, seed=seed, stopping=stopping)
+
+
+def _dataset_section(raw: dict) -> dict:
     try:
-        dataset = normalize_dataset(c["dataset"])
+        return normalize_dataset(raw)
     except DataError as e:
         raise SpecError(str(e)) from None
 
-    split = dict(SplitConfig().__dict__, **(c.get("split") or {}))
+
+def _split_section(raw: dict | None) -> dict:
+    split = dict(SplitConfig().__dict__, **(raw or {}))
     _check("split.kind", split["kind"])
     split["test"] = float(_check("split.test", split["test"]))
     split["val"] = float(_check("split.val", split["val"]))
@@ -318,8 +377,11 @@ def spec_from_config(cfg: Any) -> RunSpec:
         split.pop("repeat", None)
     else:
         split["fold"], split["repeat"] = fold, repeat
+    return split
 
-    solver_cfg = dict(c["solver"])
+
+def _solver_section(raw: dict, dataset: dict, asked_loss: Any) -> tuple[str, Any]:
+    solver_cfg = dict(raw)
     name = solver_cfg.pop("name", None)
     try:
         sdef = get_solver(name)
@@ -329,9 +391,8 @@ def spec_from_config(cfg: Any) -> RunSpec:
     if task is not None and task not in sdef.tasks:
         raise SpecError(f"solver {name!r} does not handle {task} problems such as dataset {dataset.get('name')!r}; "
                         f"valid solvers: {', '.join(n for n, d in SOLVERS.items() if task in d.tasks)}")
-    asked = c["dataset"].get("loss")
-    if sdef.loss is not None and asked not in (None, sdef.loss):
-        raise SpecError(f"dataset.loss={asked!r} conflicts with solver {name!r}, which trains the "
+    if sdef.loss is not None and asked_loss not in (None, sdef.loss):
+        raise SpecError(f"dataset.loss={asked_loss!r} conflicts with solver {name!r}, which trains the "
                         f"{sdef.loss} loss; drop dataset.loss or set it to {sdef.loss!r}")
     own = {f.name for f in dataclasses.fields(sdef.params)}
     for key in COMMON_SOLVER_KEYS:
@@ -340,16 +401,22 @@ def spec_from_config(cfg: Any) -> RunSpec:
     solver_cfg = {k: v for k, v in solver_cfg.items() if not (v is None and k in own and
                   getattr(sdef.params, k, None) is not None)}
     try:
-        params = dataclasses.asdict(make_params(sdef.params, solver_cfg, "solver"))
+        return name, make_params(sdef.params, solver_cfg, "solver")
     except ParamError as e:
         raise SpecError(str(e)) from None
 
-    budget = dict(BudgetConfig().__dict__, **(c.get("budget") or {}))
+
+def _budget_section(raw: dict | None) -> dict:
+    budget = dict(BudgetConfig().__dict__, **(raw or {}))
     budget["iterations"] = int(_check("budget.iterations", budget["iterations"]))
     if budget["passes"] is not None:
         budget["passes"] = float(_check("budget.passes", budget["passes"]))
     budget["diverge_factor"] = float(_check("budget.diverge_factor", budget["diverge_factor"]))
-    record = dict(RecordConfig().__dict__, **(c.get("record") or {}))
+    return budget
+
+
+def _record_section(raw: dict | None) -> dict:
+    record = dict(RecordConfig().__dict__, **(raw or {}))
     unknown = sorted(set(record) - set(RecordConfig().__dict__))
     if unknown:
         raise SpecError(f"record has no key {unknown[0]!r}; valid: {', '.join(RecordConfig().__dict__)}")
@@ -364,23 +431,36 @@ def spec_from_config(cfg: Any) -> RunSpec:
         if record["every"] != 1:
             raise SpecError(f"record.every={record['every']} and record.per_pass={record['per_pass']:g} "
                             "are exclusive: set one of them")
-    seed = int(_check("seed", c.get("seed", 0)))
+    return record
+
+
+def _run_options_section(c: dict) -> None:
+    """Keys that change no number (threads, results root, campaign id): checked, not kept."""
     if c.get("threads") is not None:
         _check("threads", c["threads"])
     if "results_root" in c:
         check_results_root(c["results_root"])
     check_campaign_id(c.get("campaign_id"))
+
+
+def _stopping_section(raw: dict | None, record: dict, dataset: dict) -> dict:
     try:
-        stopping = normalize_stopping(dict(StoppingConfig().__dict__, **(c.get("stopping") or {})))
+        stopping = normalize_stopping(dict(StoppingConfig().__dict__, **(raw or {})))
     except RuleError as e:
         raise SpecError(str(e)) from None
-    if stopping.get("halt") and stopping.get("rule") in RESIDUAL_RULES and record.get("residual") is False:
-        raise SpecError(f"stopping.rule={stopping['rule']} with halt needs the residual columns: "
-                        "drop record.residual=false")
-    if stopping.get("halt") and stopping.get("rule") == "ncp" and dataset_row_order(dataset) != "signal":
-        raise SpecError(ncp_halt_needs_signal_rows(dataset.get("name")))
-    return RunSpec(dataset=dataset, split=split, solver=name, params=params, budget=budget,
-                   record=record, seed=seed, stopping=stopping)
+    if stopping["halt"]:
+        _check_halt_columns(stopping["rule"], record, dataset)
+    return stopping
+
+
+def _check_halt_columns(rule: str, record: dict, dataset: dict) -> None:
+    """A run halting on a rule must record the columns the rule declares it reads."""
+    needs = get_rule(rule).columns
+    if record.get("residual") is False and any(c in NEEDS_RESIDUAL for c in needs):
+        raise SpecError(f"stopping.rule={rule} with halt needs the residual columns: drop record.residual=false")
+    signal = [c for c in needs if c in NEEDS_SIGNAL_ROWS]
+    if signal and dataset_row_order(dataset) != "signal":
+        raise SpecError(halt_needs_signal_rows(rule, signal[0], dataset.get("name")))
 
 
 def spec_from_identity(ident: dict) -> RunSpec:
@@ -455,6 +535,12 @@ def hydra_error_line(e: BaseException) -> str:
     first = msg.strip().splitlines()[0] if msg.strip() else type(e).__name__
     if cause is not None and str(cause).strip():
         c = str(cause).strip().splitlines()[0]
+        k = re.search(r"Key '([^']+)' not in '(\w+?)_(solver_config|stopping_params)'", c)
+        if k:  # a key a solver's or a stopping rule's schema lacks: name the valid ones
+            reg, extra = (SOLVERS, COMMON_SOLVER_KEYS) if k.group(3) == "solver_config" else (RULES, ())
+            if k.group(2) in reg:
+                valid = sorted({f.name for f in dataclasses.fields(reg[k.group(2)].params)} | set(extra))
+                c = f"{k.group(2)} has no parameter {k.group(1)!r}; valid: {', '.join(valid) or '(none)'}"
         if m:
             return f"cannot set {m.group(1)}: {c}"
         m = re.search(r"Error merging override (\S+)", first)

@@ -15,7 +15,7 @@ from typing import Any, Iterable
 import numpy as np
 
 from stopwise.problem.problem import Problem
-from stopwise.solvers.base import ParamError, make_params
+from stopwise.core.params import ParamError, make_params
 from stopwise.data import cache as _cache
 from stopwise.data.errors import DataError
 from stopwise.data.preprocess import (
@@ -39,10 +39,7 @@ PREP_DEFAULTS: dict[str, Any] = {"drop_features": None, "categorical": None, "mi
 
 
 def get_source(name: str) -> SourceDef:
-    try:
-        return SOURCES[name]
-    except KeyError:
-        raise DataError(f"unknown dataset source {name!r}; valid: {', '.join(sorted(SOURCES))}") from None
+    return SOURCES.get(name)
 
 
 def _omitted(params: Any, name: str, value: Any) -> bool:

@@ -24,7 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from stopwise.data.errors import DataError
-from stopwise.solvers.base import Choice, Interval, param
+from stopwise.core.params import Choice, Interval, param
 from stopwise.data.sources import NOISE_MODELS, RawData, SourceDef, register_source
 
 NOISE = Choice(NOISE_MODELS)

@@ -26,7 +26,7 @@ from typing import Any, Iterator
 import numpy as np
 
 from stopwise.data.errors import DataError
-from stopwise.solvers.base import Choice, Interval, param
+from stopwise.core.params import Choice, Interval, param
 from stopwise.data.sources import RawData, SourceDef, register_source
 from stopwise.data.tabular import TASK_CHOICES, is_categorical_dtype, split_target
 

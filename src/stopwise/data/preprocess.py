@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 
 from stopwise.data.errors import DataError
-from stopwise.solvers.base import Choice, Interval, param
+from stopwise.core.params import Choice, Interval, param
 
 MISSING = ("impute", "drop")
 RF_KINDS = ("rbf_sampler", "nystroem")

@@ -11,7 +11,9 @@ from typing import Any, Callable
 
 import numpy as np
 
-from stopwise.solvers.base import Choice, Flag, Interval, param
+from stopwise.core.params import Choice, Flag, Interval, param
+from stopwise.core.registry import Registry
+from stopwise.data.errors import DataError
 
 NOISE_MODELS = ("none", "gaussian", "norm")
 
@@ -66,12 +68,12 @@ class SourceDef:
     row_order: Callable[[Any], str] | None = None
 
 
-SOURCES: dict[str, SourceDef] = {}
+SOURCES: Registry[SourceDef] = Registry("dataset source", DataError, sort=True)
 
 
 def register_source(defn: SourceDef) -> SourceDef:
-    SOURCES[defn.name] = defn
-    return defn
+    """Add a dataset source (a name registered twice raises ValueError)."""
+    return SOURCES.register(defn.name, defn)
 
 
 # ---------------------------------------------------------------- scikit-learn's bundled data

@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 
 from stopwise.data.errors import DataError
-from stopwise.solvers.base import Choice, param
+from stopwise.core.params import Choice, param
 from stopwise.data.sources import RawData, SourceDef, register_source
 
 TASK_CHOICES = ("auto", "regression", "binary", "multiclass")

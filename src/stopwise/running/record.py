@@ -36,6 +36,8 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
+from stopwise.core.errors import SpecError
+from stopwise.core.registry import Registry
 from stopwise.running import fastpath
 from stopwise.problem.problem import Problem
 from stopwise.stopping.residual import COLUMNS as RESIDUAL_COLUMNS, NCPDistance
@@ -44,8 +46,21 @@ from stopwise.stopping.residual import COLUMNS as RESIDUAL_COLUMNS, NCPDistance
 BASE_COLUMNS = ("iteration", "passes", "seconds", "train_loss", "train_error", "val_error",
                 "test_error", "w_norm", "residual_norm", "dist_truth")
 
-# Extension point: functions (problem) -> {column: f(w) -> float} for task extras.
-METRIC_SETS: list[Callable[[Problem], dict[str, Callable[[np.ndarray], float]]]] = []
+MetricSet = Callable[[Problem], dict[str, Callable[[np.ndarray], float]]]
+
+
+class UnknownMetricSet(SpecError):
+    """An unknown metric-set name (one line listing the registered ones)."""
+
+
+# Extension point: named functions (problem) -> {column: f(w) -> float} for task extras,
+# evaluated in registration order. The built-in ones register when stopwise.running loads.
+METRIC_SETS: Registry[MetricSet] = Registry("metric set", UnknownMetricSet)
+
+
+def register_metric_set(name: str, make: MetricSet) -> MetricSet:
+    """Add a metric set (a name registered twice raises ValueError)."""
+    return METRIC_SETS.register(name, make)
 
 
 class Recorder:
@@ -73,7 +88,7 @@ class Recorder:
             self._cls = ClassificationMetrics(problem, loss or problem.objective, model)
             self.info = self._cls.info
         self._extras: dict[str, Callable[[np.ndarray], float]] = {}
-        for make in METRIC_SETS:
+        for make in METRIC_SETS.values():
             self._extras.update(make(problem) or {})
         regression = self._cls is None
         self._dot = bool(residual) and regression

@@ -1,6 +1,7 @@
 """Run one RunSpec: problem -> solver loop -> recorder -> store; skip when already done."""
 from __future__ import annotations
 
+import dataclasses
 import math
 import platform
 import time
@@ -18,8 +19,7 @@ from stopwise.problem.losses import resolve_loss
 from stopwise.problem.problem import Problem
 from stopwise.running.record import Recorder
 from stopwise.solvers import get_solver
-from stopwise.solvers.base import make_params
-from stopwise.config.spec import RunSpec, ncp_halt_needs_signal_rows, spec_from_overrides
+from stopwise.config.spec import RunSpec, halt_missing_column, spec_from_overrides
 from stopwise.results.store import Store
 
 
@@ -98,7 +98,7 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
     sdef = get_solver(spec.solver)
     if problem.task not in sdef.tasks:
         raise ValueError(f"solver {spec.solver!r} does not handle {problem.task} problems")
-    params = make_params(sdef.params, spec.params, "solver")
+    params = spec.params
     clock = time.perf_counter
     t_prep = clock()
     train = problem.training_set(resolve_loss(problem.task, problem.loss, sdef.loss))
@@ -112,9 +112,12 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
                    state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None,
                    loss=train.loss, model=model, statistics=stats,
                    residual=spec.record.get("residual", True))
-    if (spec.stopping.get("halt") and spec.stopping.get("rule") == "ncp"
-            and "ncp_distance" not in rec.columns):
-        raise ValueError(ncp_halt_needs_signal_rows(problem.name))  # a Problem given directly
+    if spec.stopping.get("halt"):  # a Problem given directly may lack a column the rule reads
+        from stopwise.stopping.rules import get_rule
+
+        missing = [c for c in get_rule(spec.stopping["rule"]).columns if c not in rec.columns]
+        if missing:
+            raise ValueError(halt_missing_column(spec.stopping["rule"], missing[0], problem.name))
     max_it = spec.budget["iterations"]
     max_passes = spec.budget["passes"]
     every = spec.record["every"]
@@ -262,8 +265,8 @@ def environment() -> dict[str, Any]:
 def run_level_columns(spec: RunSpec, task: str, status: str, loss: str | None = None) -> dict[str, Any]:
     cols: dict[str, Any] = {"run_id": spec.run_id, "dataset": spec.dataset.get("name"), "task": task,
                             "loss": loss, "solver": spec.solver, "seed": spec.seed, "status": status}
-    for k, v in spec.params.items():
-        cols[k] = v
+    for f in dataclasses.fields(spec.params):
+        cols[f.name] = getattr(spec.params, f.name)
     return cols
 
 

@@ -4,7 +4,7 @@ A coordinate of ``w`` counts as non-zero when ``|w_j| > SUPPORT_TOL * max_k |w_k
 threshold relative to the largest entry, so it does not depend on units; the zero vector
 has no non-zeros). The true support is taken from ``w_true`` with the same rule.
 
-Columns (registered in :data:`stopwise.running.record.METRIC_SETS`, so every run has them):
+Columns (registered as metric set ``sparsity`` by :mod:`stopwise.running`, so every run has them):
 
 ``nnz``                number of non-zeros of the iterate
 ``support_precision``  |supp(w) & supp(w_true)| / |supp(w)|   (NaN when w has no non-zeros)
@@ -21,7 +21,7 @@ from typing import Callable
 import numpy as np
 
 from stopwise.problem.problem import Problem
-from stopwise.running.record import METRIC_SETS
+from stopwise.running.record import register_metric_set
 
 SUPPORT_TOL = 1e-6
 
@@ -74,6 +74,6 @@ def sparsity_metrics(problem: Problem) -> dict[str, Callable[[np.ndarray], float
     return out
 
 
-METRIC_SETS.append(sparsity_metrics)
+register_metric_set("sparsity", sparsity_metrics)
 
 __all__ = ["SUPPORT_TOL", "sparsity_metrics", "support"]

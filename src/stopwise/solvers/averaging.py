@@ -31,7 +31,8 @@ from typing import Any
 import numpy as np
 
 from stopwise.problem.problem import TrainingSet
-from stopwise.solvers.base import Choice, Interval, SolverDef, State, frozen, param  # noqa: F401
+from stopwise.core.params import Choice, Interval, param  # noqa: F401
+from stopwise.solvers.base import SolverDef, State, frozen
 
 AVERAGES = ("none", "full", "tail", "ema")
 PASS_EPS = 1e-12  # the runner's tolerance on pass budgets

@@ -1,4 +1,4 @@
-"""Solver contract, parameter constraints as data, and the solver registry.
+"""Solver contract and the solver registry (parameter constraints: stopwise.core.params).
 
 A solver is a frozen params dataclass plus two pure functions::
 
@@ -10,15 +10,13 @@ a step returns a new State. Randomness comes only from ``rng`` and lives in the 
 """
 from __future__ import annotations
 
-import dataclasses
-import math
-import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Callable
 
 import numpy as np
 
 from stopwise.core.errors import SpecError
+from stopwise.core.registry import Registry
 from stopwise.problem.problem import TrainingSet
 
 
@@ -40,139 +38,6 @@ class State:
     iteration: int = 0
     passes: float = 0.0
     converged: bool = False
-
-
-# ---------------------------------------------------------------- constraints as data
-
-@dataclass(frozen=True)
-class Interval:
-    """Numeric range; ``None`` ends are unbounded."""
-
-    low: float | None = None
-    high: float | None = None
-    low_closed: bool = True
-    high_closed: bool = True
-    integer: bool = False
-
-    def contains(self, v: Any) -> bool:
-        if isinstance(v, bool) or not isinstance(v, (int, float)):
-            return False
-        if self.integer and not float(v).is_integer():
-            return False
-        if not math.isfinite(float(v)):
-            return False
-        if self.low is not None and (v < self.low or (v == self.low and not self.low_closed)):
-            return False
-        if self.high is not None and (v > self.high or (v == self.high and not self.high_closed)):
-            return False
-        return True
-
-    def describe(self) -> str:
-        num = (lambda x: str(int(x))) if self.integer else (lambda x: f"{x:g}")
-        lo = "-inf" if self.low is None else num(self.low)
-        hi = "inf" if self.high is None else num(self.high)
-        left = "[" if self.low_closed and self.low is not None else "("
-        right = "]" if self.high_closed and self.high is not None else ")"
-        kind = "an integer" if self.integer else "a number"
-        return f"{kind} in {left}{lo}, {hi}{right}"
-
-    def outside(self) -> Any:
-        """A value outside the interval (for generated bad-input tests)."""
-        if self.low is not None:
-            return self.low - 1 if self.low_closed else self.low
-        if self.high is not None:
-            return self.high + 1 if self.high_closed else self.high
-        return float("nan")
-
-
-@dataclass(frozen=True)
-class Choice:
-    options: tuple[str, ...]
-
-    def contains(self, v: Any) -> bool:
-        return isinstance(v, str) and v in self.options
-
-    def describe(self) -> str:
-        return "one of " + ", ".join(self.options)
-
-    def outside(self) -> Any:
-        return "no-such-choice"
-
-
-@dataclass(frozen=True)
-class Flag:
-    """A true/false switch (YAML booleans only, never strings or numbers)."""
-
-    def contains(self, v: Any) -> bool:
-        return isinstance(v, bool)
-
-    def describe(self) -> str:
-        return "true or false"
-
-    def outside(self) -> Any:
-        return "no-such-flag"
-
-
-def param(default: Any, constraint: Interval | Choice | Flag | None = None, doc: str = "",
-          omit_default: bool = False) -> Any:
-    """Declare a params field with its constraint and one-line doc, readable by tests.
-
-    ``omit_default``: a normalized config leaves the field out while it has its default, so
-    adding the field to an existing params class keeps existing run identities unchanged.
-    """
-    return field(default=default, metadata={"constraint": constraint, "doc": doc, "omit_default": omit_default})
-
-
-class ParamError(SpecError):
-    """A parameter outside its valid range; the message is one line."""
-
-
-def validate_params(params: Any, owner: str) -> None:
-    """Check every field of a params dataclass against its declared constraint."""
-    for f in dataclasses.fields(params):
-        c = f.metadata.get("constraint")
-        v = getattr(params, f.name)
-        if c is None or (v is None and f.default is None):
-            continue
-        if not c.contains(v):
-            raise ParamError(f"{owner}.{f.name}={v!r} is invalid: must be {c.describe()}")
-
-
-def _type_names(tp: Any) -> set[str]:
-    text = tp if isinstance(tp, str) else getattr(tp, "__name__", str(tp))
-    return set(re.split(r"[\s|\[\],.]+", text)) - {""}
-
-
-def _coerce_number(tp: Any, v: Any) -> Any:
-    """One spelling per number for typed fields, so the run hash never depends on it:
-    an int given to a float field becomes a float (``1`` -> ``1.0``), and an integral float
-    given to an int field becomes an int (``400.0`` -> ``400``). Anything else is left for
-    the constraint to judge."""
-    if isinstance(v, bool) or not isinstance(v, (int, float)):
-        return v
-    names = _type_names(tp)
-    if "float" in names and "int" not in names and isinstance(v, int):
-        return float(v)
-    if "int" in names and "float" not in names and isinstance(v, float) and v.is_integer():
-        return int(v)
-    return v
-
-
-def make_params(cls: type, values: dict[str, Any], owner: str):
-    """Build and validate a params dataclass from a plain mapping."""
-    names = {f.name for f in dataclasses.fields(cls)}
-    unknown = sorted(set(values) - names)
-    if unknown:
-        raise ParamError(
-            f"{owner} has no parameter {unknown[0]!r}; valid: {', '.join(sorted(names)) or '(none)'}"
-        )
-    kwargs = {}
-    for f in dataclasses.fields(cls):
-        if f.name in values:
-            kwargs[f.name] = _coerce_number(f.type, values[f.name])
-    p = cls(**kwargs)
-    validate_params(p, owner)
-    return p
 
 
 # ---------------------------------------------------------------- registry
@@ -214,27 +79,20 @@ class SolverDef:
         return self.init(train, params, rng)
 
 
-SOLVERS: dict[str, SolverDef] = {}
+class UnknownSolver(SpecError):
+    """An unknown solver name (one line listing the registered ones)."""
+
+
+SOLVERS: Registry[SolverDef] = Registry("solver", UnknownSolver, sort=True)
 
 
 def register(defn: SolverDef) -> SolverDef:
-    if defn.name in SOLVERS:
-        raise ValueError(f"solver {defn.name!r} registered twice")
-    SOLVERS[defn.name] = defn
-    return defn
-
-
-class UnknownSolver(SpecError):
-    pass
+    """Add a solver (a name registered twice raises ValueError)."""
+    return SOLVERS.register(defn.name, defn)
 
 
 def get_solver(name: str) -> SolverDef:
-    try:
-        return SOLVERS[name]
-    except KeyError:
-        raise UnknownSolver(
-            f"unknown solver {name!r}; valid: {', '.join(sorted(SOLVERS))}"
-        ) from None
+    return SOLVERS.get(name)
 
 
 def step_size(train: TrainingSet, step_scale: float) -> float:

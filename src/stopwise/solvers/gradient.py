@@ -9,7 +9,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from stopwise.problem.problem import TrainingSet
-from stopwise.solvers.base import Interval, SolverDef, State, frozen, param, register, step_size
+from stopwise.core.params import Interval, param
+from stopwise.solvers.base import SolverDef, State, frozen, register, step_size
 
 POSITIVE = Interval(0.0, None, low_closed=False)
 ALL_TASKS = ("regression", "binary", "multiclass")

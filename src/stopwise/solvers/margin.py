@@ -39,16 +39,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from stopwise.problem.problem import TrainingSet
-from stopwise.solvers.base import (
-    Choice,
-    Interval,
-    ParamError,
-    SolverDef,
-    State,
-    frozen,
-    param,
-    register,
-)
+from stopwise.core.params import Choice, Interval, ParamError, param
+from stopwise.solvers.base import SolverDef, State, frozen, register
 
 UPDATES = ("dual", "dual_accelerated", "primal_dual")
 

@@ -34,20 +34,12 @@ from typing import Any, Callable
 import numpy as np
 
 from stopwise.problem.problem import TrainingSet
-from stopwise.solvers.base import (
-    Choice,
-    Interval,
-    SolverDef,
-    State,
-    frozen,
-    param,
-    register,
-    step_size,
-)
-from stopwise.solvers.prox import PROX_OPERATORS, RegistryChoice, get_prox
+from stopwise.core.params import Choice, Interval, param
+from stopwise.solvers.base import SolverDef, State, frozen, register, step_size
+from stopwise.solvers.prox import PROX_OPERATORS, get_prox
 
 POSITIVE = Interval(0.0, None, low_closed=False)
-BIAS = RegistryChoice(PROX_OPERATORS)
+BIAS = PROX_OPERATORS.choice()
 RESTARTS = ("none", "gradient")
 
 

@@ -31,7 +31,8 @@ import numpy as np
 
 from stopwise.problem.models import TwoLayerReLU
 from stopwise.problem.problem import TrainingSet
-from stopwise.solvers.base import Interval, SolverDef, State, frozen, param, register, step_size
+from stopwise.core.params import Interval, param
+from stopwise.solvers.base import SolverDef, State, frozen, register, step_size
 
 
 @dataclass(frozen=True)

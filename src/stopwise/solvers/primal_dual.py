@@ -41,8 +41,9 @@ from typing import Any, Callable
 import numpy as np
 
 from stopwise.problem.problem import TrainingSet
-from stopwise.solvers.base import Interval, SolverDef, State, frozen, param, register
-from stopwise.solvers.prox import PROX_OPERATORS, RegistryChoice, get_prox
+from stopwise.core.params import Interval, param
+from stopwise.solvers.base import SolverDef, State, frozen, register
+from stopwise.solvers.prox import PROX_OPERATORS, get_prox
 
 POSITIVE = Interval(0.0, None, low_closed=False)
 POWER_TOL = 1e-9      # relative change of the norm estimate that ends the power iteration
@@ -54,7 +55,7 @@ class ChambollePockParams:
     step_scale: float = param(0.95, Interval(0.0, 1.0, low_closed=False, high_closed=False),
                               "tau sigma ||K||^2 = step_scale^2; must be < 1")
     balance: float = param(1.0, POSITIVE, "ratio tau / sigma of the primal step to the dual step")
-    bias: str = param("l1", RegistryChoice(PROX_OPERATORS, extra=("tv",)),
+    bias: str = param("l1", PROX_OPERATORS.choice(extra=("tv",)),
                       "C in min C(w) s.t. Xw = y: a registered prox (l1 = basis pursuit) or tv")
     group_size: int = param(1, Interval(1, None, integer=True),
                             "group_l1: size of the contiguous coordinate groups (1 gives l1)")

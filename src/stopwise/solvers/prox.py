@@ -36,11 +36,12 @@ becomes the projection onto the nonnegative orthant.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any, Callable, Mapping
+from typing import Any, Callable
 
 import numpy as np
 
-from stopwise.solvers.base import Choice
+from stopwise.core.errors import SpecError
+from stopwise.core.registry import Registry
 
 
 @dataclass(frozen=True)
@@ -52,31 +53,16 @@ class ProxDef:
     summary: str
 
 
-PROX_OPERATORS: dict[str, ProxDef] = {}
+class UnknownProx(SpecError):
+    """An unknown proximity operator name (one line listing the registered ones)."""
+
+
+PROX_OPERATORS: Registry[ProxDef] = Registry("proximity operator", UnknownProx)
 
 
 def register_prox(defn: ProxDef) -> ProxDef:
     """Add a convex part ``C`` with a known proximity operator to the registry."""
-    if defn.name in PROX_OPERATORS:
-        raise ValueError(f"proximity operator {defn.name!r} registered twice")
-    PROX_OPERATORS[defn.name] = defn
-    return defn
-
-
-class RegistryChoice(Choice):
-    """A :class:`Choice` whose options are the keys of a registry at checking time
-    (plus fixed ``extra`` options), so entries registered later are accepted."""
-
-    def __init__(self, registry: Mapping[str, Any], extra: tuple[str, ...] = ()):
-        object.__setattr__(self, "_registry", registry)
-        object.__setattr__(self, "_extra", tuple(extra))
-
-    @property
-    def options(self) -> tuple[str, ...]:  # type: ignore[override]
-        return tuple(self._registry) + tuple(e for e in self._extra if e not in self._registry)
-
-    def __repr__(self) -> str:
-        return f"RegistryChoice({self.options!r})"
+    return PROX_OPERATORS.register(defn.name, defn)
 
 
 # ---------------------------------------------------------------- l1
@@ -161,10 +147,7 @@ register_prox(ProxDef("nonneg_l1", _nonneg_prox, _nonneg_value, _nonneg_dual,
 
 
 def get_prox(name: str) -> ProxDef:
-    try:
-        return PROX_OPERATORS[name]
-    except KeyError:
-        raise ValueError(f"unknown proximity operator {name!r}; valid: {', '.join(PROX_OPERATORS)}") from None
+    return PROX_OPERATORS.get(name)
 
 
-__all__ = ["PROX_OPERATORS", "ProxDef", "RegistryChoice", "get_prox", "group_starts", "register_prox"]
+__all__ = ["PROX_OPERATORS", "ProxDef", "UnknownProx", "get_prox", "group_starts", "register_prox"]

@@ -38,7 +38,8 @@ import numpy as np
 
 from stopwise.problem.losses import log_gradient
 from stopwise.problem.problem import TrainingSet
-from stopwise.solvers.base import Choice, Interval, SolverDef, State, get_solver, param, register
+from stopwise.core.params import Choice, Interval, param
+from stopwise.solvers.base import SolverDef, State, get_solver, register
 
 NORMALIZE = ("loss", "gradient", "none")
 
@@ -78,9 +79,9 @@ def log_smoothness(train: TrainingSet) -> float:
 
 def _schedule_fields() -> list[tuple[str, Any, Any]]:
     return [
-        ("normalize", "str", param("loss", Choice(NORMALIZE),
+        ("normalize", str, param("loss", Choice(NORMALIZE),
                                    "divide the gradient by the loss (loss), by its norm (gradient), or not (none)")),
-        ("power", "float", param(0.0, Interval(-1.0, 1.0), "steps scale like (t + 1)^power")),
+        ("power", float, param(0.0, Interval(-1.0, 1.0), "steps scale like (t + 1)^power")),
     ]
 
 

@@ -58,7 +58,8 @@ import numpy as np
 from stopwise.problem.losses import CURVATURE, minibatch_gradient
 from stopwise.problem.problem import TrainingSet
 from stopwise.solvers.averaging import AveragingParams, averaged
-from stopwise.solvers.base import Choice, Interval, SolverDef, State, frozen, param, register
+from stopwise.core.params import Choice, Interval, param
+from stopwise.solvers.base import SolverDef, State, frozen, register
 
 SAMPLINGS = ("epochs", "replacement", "cyclic")
 SCHEDULES = ("constant", "sqrt", "inverse", "decay")

@@ -40,6 +40,9 @@ import numpy as np
 from stopwise.problem.problem import Problem
 
 COLUMNS = ("residual_dot_prev", "ncp_distance")
+# what recording a column needs, beyond the base columns every trace has:
+NEEDS_RESIDUAL = COLUMNS               # left out by record.residual: false
+NEEDS_SIGNAL_ROWS = ("ncp_distance",)  # recorded only when the training rows are in signal order
 
 
 def periodogram_tail(r: np.ndarray) -> np.ndarray:

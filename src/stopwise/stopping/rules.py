@@ -37,7 +37,8 @@ import numpy as np
 
 from stopwise.core.errors import SpecError
 from stopwise.stopping.residual import white_noise_limit
-from stopwise.solvers.base import Choice, Flag, Interval, ParamError, make_params, param
+from stopwise.core.params import Choice, Flag, Interval, ParamError, make_params, param
+from stopwise.core.registry import Registry
 
 POS = Interval(0.0, None, low_closed=False)
 NONNEG = Interval(0.0, None)
@@ -114,15 +115,13 @@ def _columns(trace: Any) -> Columns:
     if not isinstance(trace, pd.DataFrame):
         return trace
     out: dict[str, np.ndarray] = {}
-    for c in NUMERIC:
+    for c in trace_columns():
         if c in trace.columns:
             out[c] = (trace[c].to_numpy(dtype=np.int64) if c == "iteration"
                       else trace[c].to_numpy(dtype=np.float64, na_value=np.nan))
     return out
 
 
-NUMERIC = ("iteration", "passes", "train_error", "val_error", "test_error", "residual_norm",
-           "residual_dot_prev", "ncp_distance")
 
 
 def _n(cols: Columns) -> int:
@@ -474,16 +473,25 @@ class RuleDef:
     source: str
     reference: bool = False
     can_halt: Callable[[Any], str | None] = field(default=lambda p: None)  # None: may halt, else why not
+    # trace columns the rule reads besides iteration and passes: they are read from stored
+    # traces, and a config halting on the rule must record them (config.spec checks it)
+    columns: tuple[str, ...] = ()
 
 
-RULES: dict[str, RuleDef] = {}
+def trace_columns() -> tuple[str, ...]:
+    """Every column some registered rule reads (iteration and passes first)."""
+    out = ["iteration", "passes"]
+    for d in RULES.values():
+        out += [c for c in d.columns if c not in out]
+    return tuple(out)
+
+
+RULES: Registry[RuleDef] = Registry("stopping rule", RuleError)
 
 
 def register_rule(defn: RuleDef) -> RuleDef:
-    if defn.name in RULES:
-        raise ValueError(f"stopping rule {defn.name!r} registered twice")
-    RULES[defn.name] = defn
-    return defn
+    """Add a stopping rule (a name registered twice raises ValueError)."""
+    return RULES.register(defn.name, defn)
 
 
 def _budget_halt(p: BudgetParams) -> str | None:
@@ -497,45 +505,37 @@ register_rule(RuleDef("holdout", HoldoutParams, holdout,
                       "best validation error with patience (passes) and minimum improvement",
                       "Prechelt, Early stopping - but when? (1998); scikit-learn SGD n_iter_no_change",
                       can_halt=lambda p: None if p.patience is not None else
-                      "holdout without stopping.params.patience never decides early"))
+                      "holdout without stopping.params.patience never decides early", columns=("val_error",)))
 register_rule(RuleDef("discrepancy", DiscrepancyParams, discrepancy, "first iterate with ||Xw - y|| <= tau delta",
-                      "Morozov (1966); Engl, Hanke and Neubauer, Regularization of Inverse Problems (1996)"))
+                      "Morozov (1966); Engl, Hanke and Neubauer, Regularization of Inverse Problems (1996)",
+                      columns=("residual_norm",)))
 register_rule(RuleDef("monotone_error", MonotoneErrorParams, monotone_error,
                       "first k with (||r_k||^2 + <r_k, r_k+1>) / (2||r_k||) <= tau delta",
-                      "Hamarik and Tautenhahn, BIT 41 (2001); Elfving and Nikazad, Inverse Problems 23 (2007)"))
+                      "Hamarik and Tautenhahn, BIT 41 (2001); Elfving and Nikazad, Inverse Problems 23 (2007)",
+                      columns=("residual_norm", "residual_dot_prev")))
 register_rule(RuleDef("ncp", NCPParams, ncp, "training residual closest to / accepted as white noise (NCP)",
                       "Hansen, Kilmer and Kjeldsen, BIT 46 (2006); Rust and O'Leary, Inverse Problems 24 (2008)",
                       can_halt=lambda p: None if p.criterion == "first" else
-                      "ncp with criterion=min needs the whole trace; use stopping.params.criterion=first to halt"))
+                      "ncp with criterion=min needs the whole trace; use stopping.params.criterion=first to halt",
+                      columns=("ncp_distance",)))
 register_rule(RuleDef("a_priori", APrioriParams, a_priori, "iteration ceil(c n^a) or ceil(c delta^(-b))",
                       "a priori parameter choice, e.g. Engl, Hanke and Neubauer (1996); Yao, Rosasco and "
                       "Caponnetto, Constr. Approx. 26 (2007)"))
 register_rule(RuleDef("oracle", OracleParams, oracle, "minimum test error (reference only, never ranked)",
                       "-", reference=True,
-                      can_halt=lambda p: "the oracle reads test error and cannot halt a run"))
+                      can_halt=lambda p: "the oracle reads test error and cannot halt a run",
+                      columns=("test_error",)))
 
 
 def get_rule(name: str) -> RuleDef:
-    try:
-        return RULES[name]
-    except (KeyError, TypeError):
-        raise RuleError(f"unknown stopping rule {name!r}; valid: {', '.join(RULES)}") from None
+    return RULES.get(name)
 
 
 def make_rule_params(name: str, values: Mapping[str, Any] | None = None):
     """Validated params dataclass of rule ``name`` (unknown keys and bad values raise RuleError)."""
     d = get_rule(name)
-    values = dict(values or {})
-    for f in dataclasses.fields(d.params):  # canonical numbers: 10 -> 10.0 for floats, 5.0 -> 5 for ints
-        v = values.get(f.name)
-        if isinstance(v, bool) or v is None:
-            continue
-        if str(f.type).startswith("float") and isinstance(v, int):
-            values[f.name] = float(v)
-        elif str(f.type).startswith("int") and isinstance(v, float) and v.is_integer():
-            values[f.name] = int(v)
     try:
-        return make_params(d.params, values, f"stopping.params ({name})")
+        return make_params(d.params, dict(values or {}), f"stopping.params ({name})")
     except ParamError as e:
         raise RuleError(str(e)) from None
     except TypeError as e:  # pragma: no cover - dataclass construction on odd input
@@ -621,5 +621,5 @@ def rule_specs(rules: Iterable[Any] | None) -> list[dict[str, Any]]:
 
 
 __all__ = ["RULES", "RuleContext", "RuleDef", "RuleError", "Selection", "apply_rule", "get_rule",
-           "make_rule_params", "normalize_stopping", "register_rule", "rule_label", "rule_specs",
+           "make_rule_params", "normalize_stopping", "register_rule", "rule_label", "rule_specs", "trace_columns",
            "budget", "holdout", "discrepancy", "monotone_error", "ncp", "a_priori", "oracle"]
