@@ -354,10 +354,11 @@ def get_loss(name: str) -> Loss:
 def squares_gradient(train: TrainingSet, w: np.ndarray) -> np.ndarray:
     """``X^T (X w - y) / n`` on a training set, as a new array.
 
-    When an evaluation plan is attached to the training set (see :mod:`stopwise.running.fastpath`:
-    Gram matrix or cache-sized row blocks) the same quantity is computed through it.
+    When the training set carries an evaluation plan (``TrainingSet.plan``, see
+    :mod:`stopwise.running.fastpath`: Gram matrix or the fused one-pass kernel) the same
+    quantity is computed through it.
     """
-    plan = train.__dict__.get("_gradient_plan")
+    plan = train.plan
     if plan is not None:
         return plan(w)
     return squares_grad(train.X, train.y, w)
