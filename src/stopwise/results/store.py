@@ -25,10 +25,9 @@ import pyarrow.parquet as pq
 
 from stopwise.core.files import atomic_write as _atomic_write  # noqa: F401  (the store's writes)
 from stopwise.core.files import atomic_write_bytes
+from stopwise.results.schema import RUN_LEVEL, STATUSES  # noqa: F401  (re-exported)
 
 META_KEY = b"stopwise"
-RUN_LEVEL = ("run_id", "dataset", "task", "loss", "solver", "seed", "status")
-STATUSES = ("completed", "diverged", "failed")
 _ID = re.compile(r"^[0-9a-f]{4,64}$")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")  # the campaign file names' rule (campaign.NAME)
 
@@ -190,6 +189,22 @@ class Store:
         path = self.campaigns_dir / f"{cid[:16]}.json"
         atomic_write_bytes(path, json.dumps(manifest, indent=1, sort_keys=True).encode())
         return path
+
+    def campaign_path(self, campaign_id: str) -> Path:
+        if not _ID.match(campaign_id or ""):
+            raise StoreError(f"{campaign_id!r} is not a campaign id (hex digits)")
+        return self.campaigns_dir / f"{campaign_id[:16]}.json"
+
+    def read_campaign(self, campaign_id: str) -> dict[str, Any] | None:
+        """The manifest stored under exactly this campaign id, or None when it is missing,
+        unreadable or malformed."""
+        try:
+            path = self.campaign_path(campaign_id)
+            if not path.exists() or not self.inside(path):
+                return None
+            return check_manifest_shape(json.loads(path.read_text()))
+        except (OSError, ValueError):
+            return None
 
     def campaigns(self) -> list[dict[str, Any]]:
         out = []

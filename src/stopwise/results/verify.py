@@ -30,12 +30,10 @@ import numpy as np
 import pyarrow.parquet as pq
 
 from stopwise.core.errors import SpecError
-from stopwise.running.record import BASE_COLUMNS
 from stopwise.config.spec import canonical_json, spec_from_identity
+from stopwise.results.schema import BASE_COLUMNS, RUN_LEVEL, STATUSES
 from stopwise.results.store import (
     META_KEY,
-    RUN_LEVEL,
-    STATUSES,
     Store,
     StoreError,
     check_manifest_shape,

@@ -164,14 +164,9 @@ def launch(exp: Expansion, extra_hydra: list[str] | None = None) -> None:
     from stopwise.sweep import task as app
 
     store = Store(exp.root)
-    old = store.campaigns_dir / f"{exp.manifest['campaign_id']}.json"
-    if old.exists():  # keep the original creation time on resume
-        try:
-            import json
-
-            exp.manifest["created"] = json.loads(old.read_text()).get("created", exp.manifest["created"])
-        except ValueError:
-            pass
+    old = store.read_campaign(exp.manifest["campaign_id"])
+    if old is not None:  # keep the original creation time on resume
+        exp.manifest["created"] = old.get("created", exp.manifest["created"])
     store.write_campaign(exp.manifest)
     file_params = exp.manifest["definition"]["sweep_params"]
     argv = ["stopwise", "--multirun", *[f"{k}={v}" for k, v in file_params.items()], *exp.base,
