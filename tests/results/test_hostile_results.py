@@ -21,7 +21,7 @@ import pyarrow.parquet as pq
 import pytest
 
 import stopwise
-from stopwise.sweep.campaign import campaign_digest
+from stopwise.results.store import campaign_digest
 from stopwise.cli import main
 from stopwise.config.spec import canonical_json
 

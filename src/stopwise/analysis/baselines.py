@@ -34,8 +34,6 @@ from __future__ import annotations
 
 import dataclasses
 import hashlib
-import io
-import json
 import math
 import time
 import warnings
@@ -52,7 +50,7 @@ from stopwise.core.errors import SpecError
 from stopwise.problem.problem import Problem
 from stopwise.core.registry import Registry
 from stopwise.core.params import Flag, Interval, ParamError, make_params, normalize_number, param
-from stopwise.results.store import META_KEY, Store, StoreError, _atomic_write, _json_default
+from stopwise.results.store import Store, StoreError
 
 BASELINE_FORMAT = 1
 BASELINE_COLUMNS = ("baseline_id", "dataset", "seed", "method", "penalty", "val_error", "test_error",
@@ -383,10 +381,6 @@ def baseline_id(spec: Mapping[str, Any], method: str, params: Any = None) -> str
     return hashlib.sha256(canonical_json(baseline_identity(spec, method, params)).encode()).hexdigest()
 
 
-def baselines_dir(root: str | Path) -> Path:
-    return Path(root) / "baselines"
-
-
 def baseline_table(bid: str, problem: Problem, spec: Mapping[str, Any], method: str,
                    res: PathResult) -> pd.DataFrame:
     k = res.penalties.size
@@ -402,21 +396,7 @@ def baseline_table(bid: str, problem: Problem, spec: Mapping[str, Any], method: 
 
 def write_baseline(root: str | Path, table: pd.DataFrame, meta: dict[str, Any]) -> Path:
     bid = str(table["baseline_id"].iloc[0]) if len(table) else meta["baseline_id"][:16]
-    t = pa.Table.from_pandas(table, preserve_index=False)
-    t = t.replace_schema_metadata({META_KEY: json.dumps(meta, sort_keys=True, default=_json_default).encode()})
-    path = baselines_dir(root) / f"{bid[:16]}.parquet"
-    buf = io.BytesIO()
-    pq.write_table(t, buf, compression="zstd")
-    _atomic_write(path, lambda fh: fh.write(buf.getvalue()))
-    return path
-
-
-def _readable(path: Path) -> bool:
-    try:
-        md = pq.read_schema(path).metadata or {}
-        return META_KEY in md and pq.read_metadata(path).num_rows >= 0
-    except Exception:
-        return False
+    return Store(root).write_baseline(bid, pa.Table.from_pandas(table, preserve_index=False), meta)
 
 
 def ensure_baseline(root: str | Path, spec: Mapping[str, Any], method: str, params: Any = None,
@@ -429,9 +409,9 @@ def ensure_baseline(root: str | Path, spec: Mapping[str, Any], method: str, para
     p = params if isinstance(params, d.params) else baseline_params(method, params)
     ident = baseline_identity(spec, method, p)
     digest = baseline_id(spec, method, p)
-    path = baselines_dir(root) / f"{digest[:16]}.parquet"
-    if path.exists() and _readable(path):
-        return path
+    store = Store(root)
+    if store.has_baseline(digest):
+        return store.baseline_path(digest)
     prob = problem if problem is not None else cached_problem(spec["dataset"], spec["split"], spec["seed"])
     res = fit_path(prob, method, p)
     table = baseline_table(digest, prob, spec, method, res)
@@ -513,15 +493,14 @@ def load_baselines(root: str | Path = "results", campaign: str | None = None) ->
     """
     from stopwise.config.spec import canonical_json
 
-    d = baselines_dir(root)
-    files = sorted(d.glob("*.parquet")) if d.is_dir() else []
+    store = Store(root)
     keep = None
     if campaign is not None:
-        keep = {canonical_json(s) for s in _campaign_specs(Store(root), campaign)}
+        keep = {canonical_json(s) for s in _campaign_specs(store, campaign)}
     frames = []
-    for f in files:
+    for f in store.baseline_files():
         try:
-            md = json.loads((pq.read_schema(f).metadata or {})[META_KEY])
+            md = store.read_meta(f)
             if keep is not None and canonical_json(md["identity"]["data"]) not in keep:
                 continue
             frames.append(pq.read_table(f).to_pandas())

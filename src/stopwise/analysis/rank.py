@@ -579,11 +579,9 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
 
 def read_traces(root: str | Path, run_ids: Iterable[str], columns: Sequence[str] = TRACE_COLUMNS) -> pd.DataFrame:
     """Only ``columns`` of only the traces of ``run_ids`` (one Parquet column read per column)."""
-    import warnings
-
     import pyarrow as pa
-    import pyarrow.parquet as pq
 
+    from stopwise.results.schema import read_trace
     from stopwise.results.store import Store
 
     store = Store(root)
@@ -592,11 +590,9 @@ def read_traces(root: str | Path, run_ids: Iterable[str], columns: Sequence[str]
         path = store.run_path(rid)
         if not path.exists():
             continue
-        try:
-            names = pq.read_schema(path).names
-            tables.append(pq.read_table(path, columns=[c for c in columns if c in names]))
-        except Exception as e:  # one unreadable file must not sink the ranking
-            warnings.warn(f"skipping unreadable trace {path}: {type(e).__name__}: {e}", stacklevel=2)
+        table = read_trace(path, columns)  # one unreadable file must not sink the ranking
+        if table is not None:
+            tables.append(table)
     if not tables:
         return pd.DataFrame(columns=list(columns))
     return pa.concat_tables(tables, promote_options="permissive").to_pandas()

@@ -12,7 +12,6 @@ from typing import Any, Iterable
 
 import numpy as np
 import pandas as pd
-import pyarrow.parquet as pq
 
 from stopwise.stopping.rules import (
     RuleContext,
@@ -22,6 +21,7 @@ from stopwise.stopping.rules import (
     rule_specs,
     trace_columns,
 )
+from stopwise.results.schema import one_line, read_trace
 from stopwise.results.store import Store, StoreError
 
 SELECT_COLUMNS = ("run_id", "dataset", "solver", "seed", "status", "rule", "reference", "selected_iteration",
@@ -47,14 +47,14 @@ def _read(store: Store, rid: str) -> tuple[dict | None, pd.DataFrame | None, str
         return None, None, "no trace stored (run not executed yet)"
     try:
         meta = store.read_meta(path)
-        names = pq.read_schema(path).names
-        wanted = dict.fromkeys((*trace_columns(), *REPORTED))  # what the rules read, then what a row reports
-        cols = [c for c in wanted if c in names]
-        table = pq.read_table(path, columns=cols)
-        return meta, table.to_pandas(), ""
     except Exception as e:  # an unreadable file must not sink the whole selection
-        warnings.warn(f"skipping unreadable trace {path}: {type(e).__name__}: {e}", stacklevel=3)
+        warnings.warn(f"skipping unreadable trace {path}: {type(e).__name__}: {one_line(e)}", stacklevel=3)
         return None, None, f"unreadable trace: {type(e).__name__}"
+    wanted = dict.fromkeys((*trace_columns(), *REPORTED))  # what the rules read, then what a row reports
+    table = read_trace(path, wanted, stacklevel=4)
+    if table is None:
+        return None, None, "unreadable trace"
+    return meta, table.to_pandas(), ""
 
 
 def select(root: str | Path = "results", campaign: str | None = None,

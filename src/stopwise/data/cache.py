@@ -30,6 +30,7 @@ from typing import Any
 
 import numpy as np
 
+from stopwise.core.files import atomic_write_bytes
 from stopwise.problem.problem import Problem
 
 CACHE_FORMAT = 2  # 2: Problem.info carries row_order
@@ -121,8 +122,6 @@ def read(key: str, root: Path | None = None) -> Problem | None:
 
 def write(key: str, problem: Problem, root: Path | None = None) -> Path | None:
     """Store ``problem`` under ``key`` (atomic; arrays first). Returns the JSON path."""
-    from stopwise.results.store import atomic_write_bytes
-
     root = root if root is not None else cache_dir()
     if root is None:
         return None

@@ -39,7 +39,8 @@ import numpy as np
 from scipy.special import expit
 
 from stopwise.core.errors import SpecError
-from stopwise.problem.problem import TrainingSet
+# ``train`` arguments are a stopwise.problem.problem.TrainingSet (annotations only: the problem module
+# imports this one, not the other way round).
 
 LOSS_NAMES = ("squares", "logistic", "softmax", "hinge")
 TASK_LOSSES = {
@@ -354,10 +355,11 @@ def get_loss(name: str) -> Loss:
 def squares_gradient(train: TrainingSet, w: np.ndarray) -> np.ndarray:
     """``X^T (X w - y) / n`` on a training set, as a new array.
 
-    When an evaluation plan is attached to the training set (see :mod:`stopwise.running.fastpath`:
-    Gram matrix or cache-sized row blocks) the same quantity is computed through it.
+    When the training set carries an evaluation plan (``TrainingSet.plan``, see
+    :mod:`stopwise.running.fastpath`: Gram matrix or the fused one-pass kernel) the same
+    quantity is computed through it.
     """
-    plan = train.__dict__.get("_gradient_plan")
+    plan = train.plan
     if plan is not None:
         return plan(w)
     return squares_grad(train.X, train.y, w)

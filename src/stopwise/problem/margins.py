@@ -98,18 +98,18 @@ def hard_margin(X: np.ndarray, y: np.ndarray) -> HardMargin:
 
 def reference(problem) -> HardMargin | None:
     """The hard-margin reference of a binary problem's training rows, computed once and
-    kept with the (immutable) Problem; None for other tasks."""
+    kept with the (immutable) Problem (``Problem.hard_margin``); None for other tasks."""
+    return problem.hard_margin
+
+
+def compute_reference(problem) -> HardMargin | None:
+    """What :func:`reference` returns, computed afresh."""
     if problem.task != "binary":
         return None
-    hit = problem.__dict__.get("_hard_margin")
-    if hit is None and problem.n_train > REFERENCE_MAX_ROWS:
-        hit = HardMargin(separable=False, method=f"skipped: more than {REFERENCE_MAX_ROWS} training rows",
-                         info={"skipped": True})
-        problem.__dict__["_hard_margin"] = hit
-    if hit is None:
-        hit = hard_margin(problem.X_train, problem.y_train)
-        problem.__dict__["_hard_margin"] = hit
-    return hit
+    if problem.n_train > REFERENCE_MAX_ROWS:
+        return HardMargin(separable=False, method=f"skipped: more than {REFERENCE_MAX_ROWS} training rows",
+                          info={"skipped": True})
+    return hard_margin(problem.X_train, problem.y_train)
 
 
 def normalized_margin(X: np.ndarray, y: np.ndarray, w: np.ndarray, degree: int = 1) -> float:
@@ -118,15 +118,3 @@ def normalized_margin(X: np.ndarray, y: np.ndarray, w: np.ndarray, degree: int =
     if nw == 0.0 or X.shape[0] == 0:
         return math.nan
     return float(np.min(y * (X @ w))) / nw ** degree
-
-
-def direction_gap(w: np.ndarray, u: np.ndarray) -> tuple[float, float]:
-    """Angle (radians) and distance between ``w / ||w||`` and the unit vector ``u``.
-
-    The angle is ``2 arcsin(dist / 2)``, exact and accurate for small angles.
-    """
-    nw = float(np.linalg.norm(w))
-    if nw == 0.0:
-        return math.nan, math.nan
-    dist = float(np.linalg.norm(w / nw - u))
-    return 2.0 * math.asin(min(dist / 2.0, 1.0)), dist

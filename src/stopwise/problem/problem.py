@@ -6,7 +6,8 @@ and the smoothness constant), so no solver can look at validation or test data.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
+from functools import cached_property
+from typing import Any, Callable
 
 import numpy as np
 
@@ -25,6 +26,11 @@ class TrainingSet:
     ``||X||_2^2 / n`` for the (non-smooth) hinge. ``k`` is the number of columns of the weight
     matrix (the number of classes for softmax, 1 otherwise); iterates are flat vectors of
     length ``dim = d * k``.
+
+    ``plan`` is the gradient's evaluation plan (a callable ``w -> X^T (X w - y) / n`` computed
+    another way, see :mod:`stopwise.running.fastpath`) and ``path`` its name; ``path`` is None
+    until an evaluation path was chosen for this set, and ``plan`` None means the direct
+    formula. A planned set is built once with ``dataclasses.replace``.
     """
 
     X: np.ndarray
@@ -33,6 +39,8 @@ class TrainingSet:
     task: str = "regression"
     loss: str = "squares"
     k: int = 1
+    plan: Callable[[np.ndarray], np.ndarray] | None = field(default=None, repr=False, compare=False)
+    path: str | None = field(default=None, compare=False)
 
     def gradient(self, w: np.ndarray) -> np.ndarray:
         """Gradient of the training objective at ``w`` as a new array (one data pass)."""
@@ -46,14 +54,10 @@ class TrainingSet:
 
         return value(self, w)
 
-    @property
+    @cached_property
     def row_norm_max2(self) -> float:
         """``R^2 = max_i ||x_i||^2`` (computed once per training set)."""
-        hit = self.__dict__.get("_row_norm_max2")
-        if hit is None:
-            hit = float(np.einsum("ij,ij->i", self.X, self.X).max()) if self.X.size else 0.0
-            object.__setattr__(self, "_row_norm_max2", hit)
-        return hit
+        return float(np.einsum("ij,ij->i", self.X, self.X).max()) if self.X.size else 0.0
 
     @property
     def n(self) -> int:
@@ -94,6 +98,14 @@ class Problem:
     preprocessing: dict[str, Any] = field(default_factory=dict)
     info: dict[str, Any] = field(default_factory=dict)
     loss: str | None = None  # the dataset's loss option; None = the task's default
+    # Caches, computed on first use and shared by every run on the problem (never compared,
+    # never part of the constructor). Keys: a loss name for ``training_sets``, a split
+    # name for the others; ``statistics`` is keyed by the tuple of splits it stacks.
+    training_sets: dict[str, TrainingSet] = field(default_factory=dict, init=False, repr=False, compare=False)
+    gram_matrices: dict[str, np.ndarray] = field(default_factory=dict, init=False, repr=False, compare=False)
+    sufficient_statistics: dict[str, tuple] = field(default_factory=dict, init=False, repr=False, compare=False)
+    row_factors: dict[str, np.ndarray] = field(default_factory=dict, init=False, repr=False, compare=False)
+    statistics: dict[tuple, Any] = field(default_factory=dict, init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         if self.task not in TASKS:
@@ -165,7 +177,7 @@ class Problem:
         from stopwise.problem.losses import CURVATURE, check_loss, n_outputs
 
         loss = check_loss(self.task, loss if loss is not None else self.loss)
-        cache = self.__dict__.setdefault("_training_sets", {})
+        cache = self.training_sets
         hit = cache.get(loss)
         if hit is None:
             X = self.X_train
@@ -178,7 +190,7 @@ class Problem:
     def gram_matrix(self, split: str = "train") -> np.ndarray:
         """``X_s^T X_s`` of a split (``train``, ``val``, ``test``), computed once per problem
         and read-only (shared by the smoothness constant and the Gram evaluation path)."""
-        cache = self.__dict__.setdefault("_gram_matrices", {})
+        cache = self.gram_matrices
         G = cache.get(split)
         if G is None:
             X = getattr(self, "X_" + split)
@@ -187,24 +199,27 @@ class Problem:
             cache[split] = G
         return G
 
-    @property
+    @cached_property
     def train_norm2_sq(self) -> float:
         """``||X_train||_2^2``, the largest eigenvalue of the smaller of ``X^T X`` and ``X X^T``
         (LAPACK ``syevd``; its relative error is a small multiple of the machine epsilon), or
         of a full SVD when that matrix would have more than ``SPECTRUM_GRAM_MAX`` rows.
         Computed once per problem."""
-        hit = self.__dict__.get("_train_norm2_sq")
-        if hit is None:
-            X = self.X_train
-            n, d = X.shape
-            if X.size == 0:
-                hit = 0.0
-            elif min(n, d) > SPECTRUM_GRAM_MAX:
-                hit = float(np.linalg.norm(X, 2)) ** 2
-            else:
-                hit = float(np.linalg.eigvalsh(self.gram_matrix("train") if n >= d else X @ X.T)[-1])
-            object.__setattr__(self, "_train_norm2_sq", hit)
-        return hit
+        X = self.X_train
+        n, d = X.shape
+        if X.size == 0:
+            return 0.0
+        if min(n, d) > SPECTRUM_GRAM_MAX:
+            return float(np.linalg.norm(X, 2)) ** 2
+        return float(np.linalg.eigvalsh(self.gram_matrix("train") if n >= d else X @ X.T)[-1])
+
+    @cached_property
+    def hard_margin(self):
+        """The hard-margin reference of a binary problem's training rows
+        (:func:`stopwise.problem.margins.reference`), computed once; None for other tasks."""
+        from stopwise.problem.margins import compute_reference
+
+        return compute_reference(self)
 
     @property
     def noise_norm(self) -> float | None:

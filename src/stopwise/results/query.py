@@ -10,7 +10,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from stopwise.running.record import BASE_COLUMNS
+from stopwise.results.schema import one_line as _one_line, read_trace
 from stopwise.results.store import Store
 
 
@@ -39,23 +39,23 @@ def load_traces(root: str | Path = "results", campaign: str | None = None,
     tables = []
     schema_so_far = None
     for path in _files(store, campaign):
-        try:
-            schema = pq.read_schema(path)
-            if filters:
-                first = pq.read_table(path, columns=[k for k in filters if k in schema.names]).slice(0, 1)
-                row = first.to_pylist()[0] if first.num_rows else None
-                if row is None or any(k not in row or not _match(row[k], v) for k, v in filters.items()):
-                    continue
-            wrong = [f"{n} is {schema.field(n).type}" for n, ok in EXPECTED_TYPES.items()
-                     if n in schema.names and not ok(schema.field(n).type)]
-            if wrong:
-                raise TypeError("column types differ from the trace schema: " + ", ".join(wrong))
-            cols = None if want is None else [c for c in want if c in schema.names]
-            table = pq.read_table(path, columns=cols)
-            # a file whose column types cannot join the others (e.g. tampered) is skipped by name
+        if filters:
+            try:
+                names = pq.read_schema(path).names
+                first = pq.read_table(path, columns=[k for k in filters if k in names]).slice(0, 1)
+            except Exception as e:  # a corrupted file must not sink the whole query
+                warnings.warn(f"skipping unreadable trace {path}: {type(e).__name__}: {_one_line(e)}", stacklevel=2)
+                continue
+            row = first.to_pylist()[0] if first.num_rows else None
+            if row is None or any(k not in row or not _match(row[k], v) for k, v in filters.items()):
+                continue
+        table = read_trace(path, want)
+        if table is None:
+            continue
+        try:  # a file whose column types cannot join the others (e.g. tampered) is skipped by name
             merged = table.schema if schema_so_far is None else pa.unify_schemas(
                 [schema_so_far, table.schema], promote_options="permissive")
-        except Exception as e:  # a corrupted file must not sink the whole query
+        except Exception as e:
             warnings.warn(f"skipping unreadable trace {path}: {type(e).__name__}: {_one_line(e)}", stacklevel=2)
             continue
         schema_so_far = merged
@@ -66,23 +66,7 @@ def load_traces(root: str | Path = "results", campaign: str | None = None,
     return table.to_pandas()
 
 
-def _numeric(t: pa.DataType) -> bool:
-    return pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_null(t)
-
-
-# Types of the columns every trace has (docs/schema.md); a file that differs is skipped by name.
-EXPECTED_TYPES = {
-    **{c: (pa.types.is_integer if c == "iteration" else _numeric) for c in BASE_COLUMNS},
-    **{c: (lambda t: pa.types.is_string(t) or pa.types.is_large_string(t) or pa.types.is_null(t))
-       for c in ("run_id", "dataset", "task", "solver", "status")},
-    "seed": lambda t: pa.types.is_integer(t) or pa.types.is_null(t),
-}
-
-
-def _one_line(e: BaseException) -> str:
-    return " ".join(str(e).split())[:300]
-
-
+# Columns of load_runs (one row per run, from file metadata; docs/schema.md, "Reading").
 RUN_COLUMNS = ("run_id", "dataset", "solver", "seed", "status", "iterations", "passes", "seconds",
                "best_val_error", "best_val_iteration", "test_at_best_val", "final_test_error", "message")
 

@@ -5,18 +5,17 @@ Layout under a results root::
     runs/<run_id16>.parquet        a run's trace (run-level + per-iterate columns)
     campaigns/<campaign_id16>.json a campaign manifest (definition, hash, run ids)
 
-Every write goes to a hidden temporary name in the destination folder, is flushed and
-fsynced, then renamed over the final name, so readers never see a partial file.
+Every write goes through :func:`stopwise.core.files.atomic_write` (a hidden temporary name in
+the destination folder, flushed, fsynced, then renamed), so readers never see a partial file.
 Results folders are data: nothing here imports, unpickles or instantiates anything
 named inside them.
 """
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import re
-import tempfile
-import time
 import warnings
 from pathlib import Path
 from typing import Any, Iterable
@@ -25,36 +24,18 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from stopwise.core.files import atomic_write as _atomic_write  # noqa: F401  (the store's writes)
+from stopwise.core.files import atomic_write_bytes
+from stopwise.config.spec import canonical_json
+from stopwise.results.schema import RUN_LEVEL, STATUSES  # noqa: F401  (re-exported)
+
 META_KEY = b"stopwise"
-RUN_LEVEL = ("run_id", "dataset", "task", "loss", "solver", "seed", "status")
-STATUSES = ("completed", "diverged", "failed")
 _ID = re.compile(r"^[0-9a-f]{4,64}$")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")  # the campaign file names' rule (campaign.NAME)
 
 
 class StoreError(ValueError):
     pass
-
-
-def _atomic_write(path: Path, write) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            write(fh)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
-
-
-def atomic_write_bytes(path: Path, data: bytes) -> None:
-    _atomic_write(Path(path), lambda fh: fh.write(data))
 
 
 class Store:
@@ -69,6 +50,10 @@ class Store:
     @property
     def campaigns_dir(self) -> Path:
         return self.root / "campaigns"
+
+    @property
+    def baselines_dir(self) -> Path:
+        return self.root / "baselines"
 
     def run_path(self, run_id: str) -> Path:
         if not _ID.match(run_id):
@@ -164,12 +149,64 @@ class Store:
             raise StoreError(f"run id prefix {prefix!r} is ambiguous ({len(hits)} runs)")
         return hits[0] if hits else ""
 
+    # -------------------------------------------------- baselines
+    def baseline_path(self, baseline_id: str) -> Path:
+        if not _ID.match(baseline_id):
+            raise StoreError(f"{baseline_id!r} is not a baseline id (hex digits)")
+        return self.baselines_dir / f"{baseline_id[:16]}.parquet"
+
+    def write_baseline(self, baseline_id: str, table: pa.Table, meta: dict[str, Any]) -> Path:
+        """Write one baseline's table atomically with ``meta`` as its ``stopwise`` metadata."""
+        table = table.replace_schema_metadata({META_KEY: json.dumps(meta, sort_keys=True, default=_json_default).encode()})
+        path = self.baseline_path(baseline_id)
+        _atomic_write(path, lambda fh: pq.write_table(table, fh, compression="zstd"))
+        return path
+
+    def has_baseline(self, baseline_id: str) -> bool:
+        """Whether a readable baseline file with that id exists (inside the root)."""
+        path = self.baseline_path(baseline_id)
+        if not path.exists() or not self.inside(path):
+            return False
+        try:
+            self.read_meta(path)
+            pq.read_metadata(path)
+            return True
+        except Exception:
+            return False
+
+    def baseline_files(self) -> list[Path]:
+        """Stored baseline files; a link leading outside the root is skipped with a warning."""
+        d = self.baselines_dir
+        out = []
+        for p in sorted(d.glob("*.parquet")) if d.is_dir() else []:
+            if self.inside(p):
+                out.append(p)
+            else:
+                warnings.warn(f"skipping {p}: it links outside the results root {self.root}", stacklevel=2)
+        return out
+
     # -------------------------------------------------- campaigns
     def write_campaign(self, manifest: dict[str, Any]) -> Path:
         cid = manifest["campaign_id"]
         path = self.campaigns_dir / f"{cid[:16]}.json"
         atomic_write_bytes(path, json.dumps(manifest, indent=1, sort_keys=True).encode())
         return path
+
+    def campaign_path(self, campaign_id: str) -> Path:
+        if not _ID.match(campaign_id or ""):
+            raise StoreError(f"{campaign_id!r} is not a campaign id (hex digits)")
+        return self.campaigns_dir / f"{campaign_id[:16]}.json"
+
+    def read_campaign(self, campaign_id: str) -> dict[str, Any] | None:
+        """The manifest stored under exactly this campaign id, or None when it is missing,
+        unreadable or malformed."""
+        try:
+            path = self.campaign_path(campaign_id)
+            if not path.exists() or not self.inside(path):
+                return None
+            return check_manifest_shape(json.loads(path.read_text()))
+        except (OSError, ValueError):
+            return None
 
     def campaigns(self) -> list[dict[str, Any]]:
         out = []
@@ -238,5 +275,7 @@ def _json_default(o: Any) -> Any:
     return str(o)
 
 
-def now() -> float:
-    return time.time()
+def campaign_digest(name: str, run_ids: list[str], stopping: list) -> str:
+    """SHA-256 of a campaign's identity: its name, its run ids (as a set) and its post-hoc rules."""
+    ident = {"name": name, "run_ids": sorted(run_ids), "stopping": stopping}
+    return hashlib.sha256(canonical_json(ident).encode()).hexdigest()

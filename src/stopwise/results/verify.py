@@ -30,12 +30,10 @@ import numpy as np
 import pyarrow.parquet as pq
 
 from stopwise.core.errors import SpecError
-from stopwise.running.record import BASE_COLUMNS
 from stopwise.config.spec import canonical_json, spec_from_identity
+from stopwise.results.schema import BASE_COLUMNS, RUN_LEVEL, STATUSES
 from stopwise.results.store import (
     META_KEY,
-    RUN_LEVEL,
-    STATUSES,
     Store,
     StoreError,
     check_manifest_shape,
@@ -171,7 +169,7 @@ def check_manifest(path: Path, store: Store) -> tuple[str, str]:
     digest = m.get("digest")
     if not isinstance(digest, str) or not DIGEST.match(digest) or digest[:16] != path.stem:
         return "digest is missing or does not match the campaign id", ""
-    from stopwise.sweep.campaign import campaign_digest
+    from stopwise.results.store import campaign_digest
 
     try:
         again = campaign_digest(m.get("name", ""), m["run_ids"], m.get("stopping", []))

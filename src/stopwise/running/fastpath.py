@@ -38,10 +38,12 @@ against the spectral-filter closed form of gradient descent).
 Which path a run takes is a deterministic function of the array shapes (``choose_gradient_path``
 and ``statistics_splits``), so a rerun of a run, on any machine, takes the same path.
 
-Caching: Gram matrices, compressed rows and the stacked statistics are kept on the
-:class:`~stopwise.problem.problem.Problem` (only the recorder reads the validation and test ones);
-the gradient plan is attached to the problem's :class:`~stopwise.problem.problem.TrainingSet` and
-holds the training Gram matrix only, so a solver still sees nothing but training rows.
+Caching: Gram matrices, compressed rows and the stacked statistics are kept in the declared
+caches of the :class:`~stopwise.problem.problem.Problem` (only the recorder reads the validation
+and test ones); the gradient plan is a field of the solver's
+:class:`~stopwise.problem.problem.TrainingSet` (``plan``, ``path``), set once with
+``dataclasses.replace``, and holds the training Gram matrix only, so a solver still sees
+nothing but training rows.
 Everything is computed once per problem per process, on first use, and shared by every
 run on that problem. Plans and statistics are read-only after construction and plans
 allocate their scratch per call, so concurrent runs in threads may share them.
@@ -62,9 +64,6 @@ SPLITS = ("train", "val", "test")
 GRAM_MAX_BYTES = 256 * 2**20     # no Gram matrix (of all splits together) above this size
 FUSED_MIN_BYTES = 4 * 2**20      # below this X stays in cache and the direct path is as fast
 GUARD = 1e-3                     # Gram-form errors below GUARD * scale are recomputed from compressed rows
-
-_PLAN = "_gradient_plan"
-
 
 class PathError(ValueError):
     """Unknown evaluation path; the message is one line."""
@@ -140,14 +139,13 @@ class FusedGradient:
 
 
 def gradient_plan(train: TrainingSet) -> Callable[[np.ndarray], np.ndarray] | None:
-    """The plan attached to a training set, or None (then the direct formula is used)."""
-    return train.__dict__.get(_PLAN)
+    """The training set's gradient plan, or None (then the direct formula is used)."""
+    return train.plan
 
 
 def attach_plan(train: TrainingSet, plan: Callable[[np.ndarray], np.ndarray] | None) -> TrainingSet:
-    """Attach a gradient plan to a (frozen) training set and return it."""
-    object.__setattr__(train, _PLAN, plan)
-    return train
+    """A copy of ``train`` whose gradient goes through ``plan`` (None: the direct formula)."""
+    return dataclasses.replace(train, plan=plan, path=getattr(plan, "path", "direct") if plan is not None else "direct")
 
 
 def _make_plan(train: TrainingSet, path: str, gram: tuple | None = None):
@@ -174,36 +172,30 @@ def training_for(problem: Problem, train: TrainingSet | None = None, path: str =
     train = train if train is not None else problem.training
     own = train.X is problem.X_train and train.y is problem.y_train
     if path == "auto":
-        if _PLAN not in train.__dict__:
-            chosen = (choose_gradient_path(train.n, train.d, train.X.nbytes) if _squares(train) and train.n
-                      else "direct")
-            gram = _gram(problem, "train") if chosen == "gram" and own else None
-            attach_plan(train, _make_plan(train, chosen, gram))
-        return train
-    fresh = dataclasses.replace(train)
-    if path != "direct" and _squares(fresh) and fresh.n:
-        attach_plan(fresh, _make_plan(fresh, path, _gram(problem, "train") if path == "gram" and own else None))
-    return fresh
+        if train.path is not None:
+            return train
+        chosen = (choose_gradient_path(train.n, train.d, train.X.nbytes) if _squares(train) and train.n
+                  else "direct")
+        gram = _gram(problem, "train") if chosen == "gram" and own else None
+        planned = attach_plan(train, _make_plan(train, chosen, gram))
+        if problem.training_sets.get(train.loss) is train:
+            problem.training_sets[train.loss] = planned  # every later run on the problem shares it
+        return planned
+    plan = None
+    if path != "direct" and _squares(train) and train.n:
+        plan = _make_plan(train, path, _gram(problem, "train") if path == "gram" and own else None)
+    return attach_plan(train, plan)
 
 
 def path_name(train: TrainingSet) -> str:
-    plan = gradient_plan(train)
-    return getattr(plan, "path", "direct") if plan is not None else "direct"
+    return train.path or "direct"
 
 
 # ---------------------------------------------------------------- split statistics (recorder)
 
-def _cache(problem: Problem, name: str) -> dict:
-    cache = problem.__dict__.get(name)
-    if cache is None:
-        cache = {}
-        object.__setattr__(problem, name, cache)
-    return cache
-
-
 def _gram(problem: Problem, split: str) -> tuple[np.ndarray, np.ndarray, float]:
     """(X_s^T X_s, X_s^T y_s, y_s^T y_s), computed once per problem."""
-    cache = _cache(problem, "_grams")
+    cache = problem.sufficient_statistics
     hit = cache.get(split)
     if hit is None:
         X, y = getattr(problem, "X_" + split), getattr(problem, "y_" + split)
@@ -220,7 +212,7 @@ def compressed_rows(X: np.ndarray, y: np.ndarray) -> np.ndarray:
 
 def row_factor(problem: Problem, split: str) -> np.ndarray:
     """Compressed rows ``R_s`` of a split, computed on first use and kept with the problem."""
-    cache = _cache(problem, "_row_factors")
+    cache = problem.row_factors
     hit = cache.get(split)
     if hit is None:
         hit = _frozen(compressed_rows(getattr(problem, "X_" + split), getattr(problem, "y_" + split)))
@@ -276,15 +268,14 @@ def split_statistics(problem: Problem, path: str = "auto") -> SplitStatistics | 
     splits = statistics_splits(problem, path)
     if not splits:
         return None
-    key = "_stats_" + ",".join(splits)
-    cached = problem.__dict__.get(key)
+    cached = problem.statistics.get(splits)
     if cached is not None:
         return cached
     parts = [_gram(problem, s) for s in splits]
     C = np.stack([p[1] for p in parts])
     st = SplitStatistics(splits=splits, A=_frozen(np.concatenate([p[0] for p in parts] + [C], axis=0)),
                          C2=_frozen(2.0 * C.ravel()), yy=tuple(p[2] for p in parts))
-    object.__setattr__(problem, key, st)
+    problem.statistics[splits] = st
     return st
 
 

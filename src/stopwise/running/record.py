@@ -40,11 +40,9 @@ from stopwise.core.errors import SpecError
 from stopwise.core.registry import Registry
 from stopwise.running import fastpath
 from stopwise.problem.problem import Problem
+from stopwise.results.schema import BASE_COLUMNS  # columns every trace has, in order (docs/schema.md)
 from stopwise.stopping.residual import COLUMNS as RESIDUAL_COLUMNS, NCPDistance
 
-# Columns every trace has, in order (see docs/schema.md).
-BASE_COLUMNS = ("iteration", "passes", "seconds", "train_loss", "train_error", "val_error",
-                "test_error", "w_norm", "residual_norm", "dist_truth")
 
 MetricSet = Callable[[Problem], dict[str, Callable[[np.ndarray], float]]]
 

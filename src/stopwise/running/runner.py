@@ -95,6 +95,30 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
     order, which reads the training rows at every recorded row; :mod:`stopwise.stopping.residual`).
     """
     problem = problem if problem is not None else cached_problem(spec.dataset, spec.split, spec.seed)
+    run = _prepare(spec, problem, path, record_path)
+    status, message = _loop(spec, run)
+    info = dict(_problem_info(problem, run.train), **run.rec.info)
+    info["evaluation"] = dict(fastpath.describe(run.train, run.stats), prepare_seconds=run.t_prep,
+                              fallbacks=run.rec.fallbacks)
+    return Trace(columns=run.rec.result(), status=status, message=message, problem_info=info)
+
+
+@dataclass
+class _Run:
+    """What the solver loop of one run works with (built by :func:`_prepare`)."""
+
+    sdef: Any
+    params: Any
+    train: Any
+    stats: Any
+    rec: Recorder
+    decided: Any       # the halting check, or None
+    t_prep: float      # one-time set-up of the evaluation paths, outside the solver's seconds
+
+
+def _prepare(spec: RunSpec, problem: Problem, path: str, record_path: str | None) -> _Run:
+    """Solver, validated params, the solver's training set with its evaluation plan, the
+    recorder and the halting check."""
     sdef = get_solver(spec.solver)
     if problem.task not in sdef.tasks:
         raise ValueError(f"solver {spec.solver!r} does not handle {problem.task} problems")
@@ -107,7 +131,6 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
         stats = fastpath.split_statistics(problem, record_path)
     t_prep = clock() - t_prep
     model = sdef.model(params, train) if sdef.model is not None else None
-    rng = run_rng(spec)
     rec = Recorder(problem, capacity=_record_rows(spec),
                    state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None,
                    loss=train.loss, model=model, statistics=stats,
@@ -118,6 +141,15 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
         missing = [c for c in get_rule(spec.stopping["rule"]).columns if c not in rec.columns]
         if missing:
             raise ValueError(halt_missing_column(spec.stopping["rule"], missing[0], problem.name))
+    return _Run(sdef, params, train, stats, rec, _halting(spec, problem), t_prep)
+
+
+def _loop(spec: RunSpec, run: _Run) -> tuple[str, str]:
+    """The timed solver loop with its record schedule, divergence check and halting rule;
+    returns ``(status, message)``."""
+    sdef, params, train, rec, decided = run.sdef, run.params, run.train, run.rec, run.decided
+    clock = time.perf_counter
+    rng = run_rng(spec)
     max_it = spec.budget["iterations"]
     max_passes = spec.budget["passes"]
     every = spec.record["every"]
@@ -125,8 +157,6 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
     factor = spec.budget["diverge_factor"]
     status, message = "completed", ""
     bad_row = False  # the last recorded row is the one that diverged
-
-    decided = _halting(spec, problem)
 
     t0 = clock()
     state = sdef.start(train, params, rng, spec.budget)
@@ -173,9 +203,7 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
             status = "completed"
     if halted:
         message = halted
-    info = dict(_problem_info(problem, train), **rec.info)
-    info["evaluation"] = dict(fastpath.describe(train, stats), prepare_seconds=t_prep, fallbacks=rec.fallbacks)
-    return Trace(columns=rec.result(), status=status, message=message, problem_info=info)
+    return status, message
 
 
 def _halting(spec: RunSpec, problem: Problem):

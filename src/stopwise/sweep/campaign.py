@@ -7,7 +7,6 @@ manifest lists every run id before the first run starts (which makes resume exac
 """
 from __future__ import annotations
 
-import hashlib
 import re
 import sys
 import time
@@ -20,14 +19,13 @@ from stopwise.config.spec import (
     RunSpec,
     SpecError,
     campaigns_dir,
-    canonical_json,
     conf_dir,
     group_options,
     hydra_error_line,
     register_configs,
     spec_from_config,
 )
-from stopwise.results.store import Store
+from stopwise.results.store import Store, campaign_digest
 
 NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 
@@ -64,12 +62,6 @@ def check_data(specs: list[RunSpec]) -> None:
         prepare_problems(specs)
     except MemoryError as e:  # e.g. dataset.params.n=1e15: bad input, not a crash
         raise SpecError(f"a dataset of this sweep does not fit in memory: {' '.join(str(e).split())}") from None
-
-
-def campaign_digest(name: str, run_ids: list[str], stopping: list) -> str:
-    """SHA-256 of a campaign's identity: its name, its run ids (as a set) and its post-hoc rules."""
-    ident = {"name": name, "run_ids": sorted(run_ids), "stopping": stopping}
-    return hashlib.sha256(canonical_json(ident).encode()).hexdigest()
 
 
 def campaign_file(name: str) -> Path:
@@ -164,14 +156,9 @@ def launch(exp: Expansion, extra_hydra: list[str] | None = None) -> None:
     from stopwise.sweep import task as app
 
     store = Store(exp.root)
-    old = store.campaigns_dir / f"{exp.manifest['campaign_id']}.json"
-    if old.exists():  # keep the original creation time on resume
-        try:
-            import json
-
-            exp.manifest["created"] = json.loads(old.read_text()).get("created", exp.manifest["created"])
-        except ValueError:
-            pass
+    old = store.read_campaign(exp.manifest["campaign_id"])
+    if old is not None:  # keep the original creation time on resume
+        exp.manifest["created"] = old.get("created", exp.manifest["created"])
     store.write_campaign(exp.manifest)
     file_params = exp.manifest["definition"]["sweep_params"]
     argv = ["stopwise", "--multirun", *[f"{k}={v}" for k, v in file_params.items()], *exp.base,

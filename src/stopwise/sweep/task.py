@@ -17,13 +17,11 @@ def progress(root: str, campaign_id: str | None) -> str:
     """``done/total`` for a campaign, counted from the store (works across processes)."""
     if not campaign_id:
         return ""
-    import json
-
     store = Store(root)
-    try:
-        ids = json.loads((store.campaigns_dir / f"{campaign_id}.json").read_text())["run_ids"]
-    except (OSError, ValueError, KeyError):
+    manifest = store.read_campaign(campaign_id)
+    if manifest is None:
         return ""
+    ids = manifest["run_ids"]
     done = sum(1 for r in ids if store.run_path(r).exists())
     width = len(str(len(ids)))
     return f"[{done:>{width}}/{len(ids)}] "
