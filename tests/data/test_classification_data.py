@@ -1,5 +1,5 @@
-"""Bundled classification datasets: facts from the loaders' own descriptions (REFERENCES.md
-item 3), label encodings, class subsets, the constant column, and one-line bad input."""
+"""Bundled classification datasets: facts from the loaders' own descriptions (Fisher 1936;
+Street, Wolberg, Mangasarian 1993; UCI wine and optdigits descriptions; see docs/references.md), label encodings, class subsets, the constant column, and one-line bad input."""
 import numpy as np
 import pytest
 from sklearn import datasets
@@ -17,7 +17,7 @@ from stopwise.config.spec import SpecError, spec_from_overrides
     ("iris", (150, 4), {"setosa": 50, "versicolor": 50, "virginica": 50}),
 ])
 def test_dataset_facts(loader, shape, counts):
-    # REFERENCES.md item 3 (the loaders' DESCR): sizes and class counts
+    # sizes and class counts published with each data set (docs/references.md, "Datasets")
     raw = load_sklearn(SklearnParams(loader=loader))
     assert raw.X.shape == shape and raw.X.dtype == np.float64
     assert raw.info["class_counts"] == counts
