@@ -157,7 +157,7 @@ def test_report_command_writes_a_complete_offline_page(campaign, tmp_path):
 def test_gap_to_a_published_reference_on_its_own_protocol(tmp_path):
     """scikit-learn tutorial 'Statistical learning: supervised learning': diabetes, all 10
     features, the last 20 rows as test set, ordinary least squares: test MSE 2004.5676
-    (current data gives 2004.5187; REFERENCES.md). CGLS on 10 features reaches the
+    (current data gives 2004.5187; docs/references.md). CGLS on 10 features reaches the
     least-squares solution, so under the budget rule its gap to the reference is ~0."""
     root = tmp_path / "results"
     cid = make_campaign(root, ["dataset=diabetes", "split.kind=tail", "split.test=20", "split.val=0",

@@ -11,14 +11,14 @@ from stopwise.config.spec import SpecError, spec_from_overrides
 
 
 def test_diabetes_shape_matches_the_loader_description():
-    """scikit-learn's diabetes description: 442 samples x 10 features (REFERENCES.md item 3)."""
+    """scikit-learn's diabetes description: 442 samples x 10 features (Efron, Hastie, Johnstone, Tibshirani, "Least Angle Regression", 2004)."""
     p = stopwise.load_problem(["dataset=diabetes", "split.test=0.2", "split.val=0.2"])
     assert p.n_train + p.X_val.shape[0] + p.X_test.shape[0] == 442 and p.d == 10
 
 
 def test_ols_bmi_worked_example_through_load_problem():
     """scikit-learn example "Ordinary Least Squares and Ridge Regression": bmi only, last 20 rows as test,
-    OLS -> test MSE 2548.07, R^2 0.47, coefficient 938.238, intercept 152.919 (REFERENCES.md item 1)."""
+    OLS -> test MSE 2548.07, R^2 0.47, coefficient 938.238, intercept 152.919 (scikit-learn docs, example plot_ols)."""
     p = stopwise.load_problem(["dataset=diabetes", "split.kind=tail", "split.test=20", "split.val=0",
                                "dataset.features=[bmi]"])
     assert (p.n_train, p.X_test.shape[0], p.X_val.shape[0]) == (422, 20, 0)
@@ -39,7 +39,7 @@ def test_ols_bmi_worked_example_through_load_problem():
 
 def test_ols_all_features_tutorial_through_a_cgls_run(root):
     """scikit-learn tutorial "Statistical learning: supervised learning": all 10 features, last 20 rows as
-    test, OLS -> MSE 2004.5676, R^2 0.58507, rel. tolerance 1e-4 (REFERENCES.md item 2). CGLS reaches OLS
+    test, OLS -> MSE 2004.5676, R^2 0.58507, rel. tolerance 1e-4 (scikit-learn tutorial "Statistical learning", supervised learning, linear model). CGLS reaches OLS
     in at most d = 10 iterations in exact arithmetic; run 40 and read the final test error."""
     out = stopwise.run(["dataset=diabetes", "split.kind=tail", "split.test=20", "split.val=0", "solver=cgls",
                         "budget.iterations=40"], root=root)

@@ -110,7 +110,7 @@ def test_fetch_on_a_warm_cache_works_offline_and_catalog_lists_it(openml_cache, 
     assert main(["datasets"]) == 0
     out = capsys.readouterr().out
     line = next(ln for ln in out.splitlines() if ln.startswith(f"openml-{OML_IRIS} "))
-    assert " 150 " in line and " 4 " in line and "classification" in line  # iris: 150 x 4 (REFERENCES.md item 3)
+    assert " 150 " in line and " 4 " in line and "classification" in line  # iris: 150 x 4 (Fisher 1936)
     line = next(ln for ln in out.splitlines() if ln.startswith(f"openml-{OML_DIABETES} "))
     assert " 442 " in line and " 10 " in line and "regression" in line  # diabetes: 442 x 10
     assert f"openml-task-{OML_TASK_IRIS}" in out

@@ -4,6 +4,8 @@ import os
 import subprocess
 import sys
 
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 
@@ -86,11 +88,20 @@ def test_a_damaged_entry_is_rebuilt(problem_cache):
 
 
 def test_cache_off_writes_nothing(tmp_path, monkeypatch):
+    # the folder the cache would use (tests/conftest.py's temporary one), the working folder
+    # and HOME are watched: none gains a file
+    watched = [Path(data.cache.cache_dir()), tmp_path]
+    monkeypatch.chdir(tmp_path)
+    monkeypatch.setenv("HOME", str(tmp_path))
+    before = {p for w in watched if w.exists() for p in w.rglob("*")}
     monkeypatch.setenv("STOPWISE_CACHE", "off")
     data._CACHE.clear()
     spec = spec_from_overrides(["dataset=wellposed"])
-    cached_problem(spec.dataset, spec.split, spec.seed)
+    p = cached_problem(spec.dataset, spec.split, spec.seed)
+    assert p.X_train.size > 0
     assert data.cache.cache_dir() is None
+    after = {p for w in watched if w.exists() for p in w.rglob("*")}
+    assert after == before, after - before
     data._CACHE.clear()
 
 

@@ -13,7 +13,8 @@ from sklearn.svm import SVC
 
 def iris_setosa_versicolor() -> tuple[np.ndarray, np.ndarray]:
     """All 100 setosa / versicolor flowers, standardized, plus a constant column (Z), labels
-    setosa -1, versicolor +1: the setting of REFERENCES.md (Soudry et al. 2018 check)."""
+    setosa -1, versicolor +1: the setting of the direction check after Soudry, Hoffer, Nacson, Gunasekar, Srebro,
+    "The Implicit Bias of Gradient Descent on Separable Data", JMLR 2018, Thm 3 (docs/references.md)."""
     X, t = load_iris(return_X_y=True)
     keep = t < 2
     X = X[keep]

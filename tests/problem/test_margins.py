@@ -22,7 +22,7 @@ def with_constant(X):
 
 
 def test_separability_matches_references():
-    # REFERENCES.md item 4 (LP feasibility): iris setosa vs rest and digits 0 vs 1 are
+    # UCI iris description (from memory) and LP feasibility (scipy.optimize.linprog): iris setosa vs rest and digits 0 vs 1 are
     # separable, iris versicolor vs virginica is not (affinely: a constant column is added)
     X, t = datasets.load_iris(return_X_y=True)
     assert is_separable(with_constant(X), np.where(t == 0, 1.0, -1.0))

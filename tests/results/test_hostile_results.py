@@ -98,9 +98,10 @@ def hostile(tmp_path):
 
 
 READER = textwrap.dedent("""
-    import json, sys, warnings
+    import json, sys, traceback, warnings
     warnings.simplefilter("ignore")
     import stopwise
+    from stopwise.core.errors import SpecError
     from stopwise.cli import COMMANDS, main
     root, cid, rid = sys.argv[1:4]
     codes = {
@@ -118,8 +119,10 @@ READER = textwrap.dedent("""
             codes[name] = main([name, cid, "--root", root])
         except SystemExit as e:
             codes[name] = e.code
-        except Exception as e:  # a crash is a bug of its own, but not the one this test looks for
-            codes[name] = f"{type(e).__name__}: {e}"
+        except SpecError as e:  # a refusal: allowed on this hostile folder, checked to be one line
+            codes[name] = {"refused": f"{type(e).__name__}: {e}"}
+        except Exception:  # anything else is a crash, and the test fails on it
+            codes[name] = {"crash": traceback.format_exc()}
     print(json.dumps({"codes": codes, "rows": len(traces), "runs": len(runs),
                       "imported": sorted(m for m in sys.modules if m.startswith("stopwise_trap"))}))
 """)
@@ -144,6 +147,14 @@ def test_readers_never_import_call_or_unpickle_what_a_results_folder_names(hosti
     assert "stored config is invalid" in res.stdout and "reproduced " in res.stdout  # the good run still reruns
     assert report["runs"] == 2 and report["rows"] == 12
     assert {"select", "rank", "report"} <= set(codes), codes  # the readers built on the store ran too
+    # every reader ended with an exit code or a one-line SpecError refusal, never a crash
+    crashes = {k: v["crash"] for k, v in codes.items() if isinstance(v, dict) and "crash" in v}
+    assert not crashes, crashes
+    for name, v in codes.items():
+        if isinstance(v, dict):
+            assert "\n" not in v["refused"], (name, v)
+        else:
+            assert v in (0, 1, 2), (name, v)
 
 
 def test_control_the_trap_goes_off_when_something_does_instantiate_or_unpickle(hostile):

@@ -31,7 +31,8 @@ def run_solver(train, name, steps, **params):
 
 
 def test_logistic_gd_reaches_sklearn_on_nonseparable_data():
-    # iris versicolor vs virginica is not separable (REFERENCES.md item 4), so the logistic
+    # iris versicolor vs virginica is not separable (UCI iris description, Fisher 1936 data, from memory;
+    # LP-checked in tests/problem/test_margins.py), so the logistic
     # loss has a unique minimizer: scikit-learn's unpenalized LogisticRegression (C=inf; its
     # intercept is our constant column's weight)
     X, t = iris_full([1, 2])

@@ -45,7 +45,8 @@ def test_gd_converges_to_minimum_norm_solution():
 
 
 def test_gd_above_two_over_L_is_recorded_as_diverged(root):
-    """Step 2.01/L: the top spectral component grows by |1 - 2.01| per step (numerical fact, REFERENCES.md)."""
+    """Step 2.01/L: the top spectral component grows by |1 - 2.01| per step (closed form:
+    the factor 1 - 2.01 = -1.01 per step; converse of Nesterov 2004, Thm 2.1.14; docs/references.md)."""
     out = stopwise.run(["dataset=wellposed", "solver=gd", "solver.step_scale=2.01",
                         "budget.iterations=20000"], root=root)
     assert out.status == "diverged"
