@@ -33,7 +33,13 @@ def atomic_write(path: str | os.PathLike, write: Callable[[BinaryIO], object]) -
 
 
 def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
-    """Write ``data`` to ``path`` atomically."""
+    """Write ``data`` to ``path`` atomically.
+
+    >>> import pathlib, tempfile
+    >>> d = pathlib.Path(tempfile.mkdtemp())
+    >>> atomic_write_bytes(d / "a.bin", b"abc"); (d / "a.bin").read_bytes(), sorted(p.name for p in d.iterdir())
+    (b'abc', ['a.bin'])
+    """
     atomic_write(path, lambda fh: fh.write(data))
 
 

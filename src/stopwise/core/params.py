@@ -158,6 +158,11 @@ def normalize_number(tp: Any, v: Any) -> Any:
     an int (``400.0`` -> ``400``). Anything else (booleans, strings, non-integral values
     for an int field) is returned unchanged for the constraint to judge: a string is never
     a number.
+
+    >>> normalize_number(float, 1), normalize_number(int, 400.0), normalize_number(int, 2.5)
+    (1.0, 400, 2.5)
+    >>> normalize_number(float, True), normalize_number(float, "1")
+    (True, '1')
     """
     kind = number_kind(tp)
     if kind is None or isinstance(v, bool) or not isinstance(v, (int, float)):

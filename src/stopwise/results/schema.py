@@ -78,6 +78,11 @@ class SchemaError(TypeError):
 
 
 def one_line(e: BaseException) -> str:
+    """An error's text on one line (whitespace runs folded), at most 300 characters.
+
+    >>> one_line(ValueError("first line\\n  second   line"))
+    'first line second line'
+    """
     return " ".join(str(e).split())[:300]
 
 
@@ -86,7 +91,8 @@ def read_trace(path: str | Path, columns: Iterable[str] | None = None, *,
     """The columns of ``columns`` (all when None) that the trace at ``path`` has, after
     checking its declared columns against :data:`TRACE_SCHEMA`; None, with a warning naming
     the file, when it is unreadable or of the wrong schema (one bad file never sinks a
-    query)."""
+    query).
+    """
     try:
         schema = pq.read_schema(path)
         wrong = type_mismatches(schema)
