@@ -170,5 +170,6 @@ def test_reference_on_the_separable_generator(root):
     assert not reference(stopwise.load_problem(["dataset=separable_noisy"])).separable
     out = stopwise.run(["dataset=separable", "solver=nesterov_normalized", "budget.iterations=300"], root=root)
     df = pd.read_parquet(out.path)
+    # regression guard (project's own measurement, not an outside fact): the distance and margin levels after 300 steps
     assert df["svm_dist"].iloc[-1] < min(0.05, df["svm_dist"].iloc[1] / 10)
     assert 0.5 * ref.margin < df["margin"].iloc[-1] <= ref.margin + 1e-9

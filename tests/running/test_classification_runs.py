@@ -74,7 +74,7 @@ def test_gd_descends_with_step_one_over_L(root, dataset):
     assert out.status == "completed"
     assert np.all(np.diff(df["train_loss"]) <= 1e-15)
     assert df["train_error"].iloc[-1] < df["train_error"].iloc[1] or df["train_error"].iloc[-1] == 0.0
-    assert df["test_error"].iloc[-1] < 0.15
+    assert df["test_error"].iloc[-1] < 0.15  # regression guard (project's own measurement, not an outside fact)
 
 
 def test_binary_softmax_run_equals_logistic_run(root):
