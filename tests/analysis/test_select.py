@@ -148,24 +148,53 @@ def test_halting_rule_without_noise_information_runs_to_the_budget(tmp_path):
     assert math.isnan(stopwise.select(tmp_path, None, rules=["discrepancy"])["selected_passes"].iloc[0])
 
 
-@pytest.mark.parametrize("patience,expect", [(100, "completed"), (252, "completed"), (253, "diverged"),
-                                             (400, "diverged")])
-def test_halting_next_to_a_divergence(tmp_path, patience, expect):
-    """Gradient descent with step 2.05/L diverges (the objective passes 1e10 times its
-    start at iteration 265). Holdout halting decides at row 12 + patience: a decision on
-    a finite row wins (completed, cut there, also when found only by the final check after
-    the loop broke off), a decision that would need the diverged row does not."""
+def _landweber_closed_form(problem, step_scale, iterations):
+    """Gradient descent from 0 on (1/2n)||X w - y||^2 with step s/L, L = ||X||_2^2 / n, by
+    its closed form through the SVD X = U diag(sv) V^T (no solver code): each singular
+    component of the iterate is w_t,i = (1 - q_i^t) (u_i^T y) / sv_i with
+    q_i = 1 - (s/L) sv_i^2 / n (Engl, Hanke, Neubauer, *Regularization of Inverse
+    Problems*, 1996, Section 6.1, the Landweber filter factors; from memory). Returns the
+    training objective and the validation mean squared error for t = 0..iterations."""
+    X, y = problem.X_train, problem.y_train
+    n = X.shape[0]
+    U, sv, Vt = np.linalg.svd(X, full_matrices=False)
+    eta = step_scale / (sv[0] ** 2 / n)
+    c = U.T @ y
+    q = 1 - eta * sv ** 2 / n
+    t = np.arange(iterations + 1)[:, None]
+    W = ((1 - q[None, :] ** t) * (c / sv)[None, :]) @ Vt
+    objective = np.sum((W @ X.T - y) ** 2, axis=1) / (2 * n)
+    val = np.mean((W @ problem.X_val.T - problem.y_val) ** 2, axis=1)
+    return objective, val
+
+
+@pytest.mark.parametrize("patience", [100, 252, 253, 400])
+def test_halting_next_to_a_divergence(tmp_path, patience):
+    """Gradient descent with step 2.05/L diverges: by the closed form above the top
+    component is multiplied by 1 - 2.05 = -1.05 per step, and the objective first passes
+    budget.diverge_factor = 1e10 times its start at iteration `diverge` (265 on
+    dataset=wellposed), the last row stored. Holdout halting decides at row
+    best + patience (best: the validation minimum, row 12; passes = iterations for gd): a
+    decision on a finite row (best + patience < diverge) wins (completed, cut there, also
+    when found only by the final check after the loop broke off), a decision that would
+    need the diverged row does not. Both numbers come from the closed form, not from the
+    run; patience 252 and 253 sit on either side of the boundary."""
     base = ["dataset=wellposed", "solver=gd", "solver.step_scale=2.05", "budget.iterations=1000",
             "stopping=holdout", f"stopping.params.patience={patience}"]
+    objective, val = _landweber_closed_form(stopwise.load_problem(base), 2.05, 400)
+    diverge = int(np.argmax(objective > 1e10 * objective[0]))
+    best = int(np.argmin(val[:diverge]))
+    assert (best, diverge) == (12, 265)  # the boundary the parametrization straddles
+    expect = "completed" if best + patience < diverge else "diverged"
     full = execute(spec_from_overrides(base))
-    assert full.status == "diverged" and len(full.columns["iteration"]) == 266
+    assert full.status == "diverged" and len(full.columns["iteration"]) == diverge + 1
     out = run_spec(spec_from_overrides(base + ["stopping.halt=true"]), tmp_path)
     got = pd.read_parquet(out.path)
     assert out.status == expect
     if expect == "completed":
-        assert len(got) == 12 + patience + 1 and out.message.startswith("halted by holdout")
+        assert len(got) == best + patience + 1 and out.message.startswith("halted by holdout")
     else:
-        assert len(got) == 266 and "grew" in out.message
+        assert len(got) == diverge + 1 and "grew" in out.message
     np.testing.assert_array_equal(got["val_error"].to_numpy(), full.columns["val_error"][:len(got)])
 
 
