@@ -1,8 +1,12 @@
 """Run identity, bad input through the real command, sweeps, reruns and tampering."""
 import json
 import os
+import signal
+import subprocess
+import sys
 
 import numpy as np
+import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
@@ -10,6 +14,8 @@ import pytest
 import stopwise
 from stopwise.cli import main
 from stopwise.config.spec import spec_from_config, spec_from_overrides
+from stopwise.results.store import Store
+from stopwise.running.runner import run_spec
 
 
 def files_under(path):
@@ -133,11 +139,76 @@ def test_rerun_refuses_a_config_that_does_not_hash_to_its_id(tmp_path, capsys):
     assert "does not hash to its run id" in capsys.readouterr().out
 
 
-def test_writes_are_atomic_and_leave_no_temporary_files(tmp_path):
+# A child process computes a run, then limits the size of any file it writes
+# (RLIMIT_FSIZE, a real kernel limit) to fewer bytes than the trace has, and stores the
+# trace through the store's real write path (runner.save -> Store.write_run ->
+# core.files.atomic_write). With SIGXFSZ at its default action the kernel kills the
+# process the moment the file reaches the limit, mid-write; with SIGXFSZ ignored (Python's
+# default) the write fails with EFBIG and the exception unwinds through atomic_write.
+CUT_WRITER = """
+import resource, signal, sys
+from stopwise.config.spec import spec_from_overrides
+from stopwise.results.store import Store
+from stopwise.running.runner import execute, save
+
+root, limit, mode = sys.argv[1], int(sys.argv[2]), sys.argv[3]
+spec = spec_from_overrides(sys.argv[4:])
+trace = execute(spec)                      # nothing is written before the limit is set
+resource.setrlimit(resource.RLIMIT_CORE, (0, 0))
+resource.setrlimit(resource.RLIMIT_FSIZE, (limit, resource.RLIM_INFINITY))
+signal.signal(signal.SIGXFSZ, signal.SIG_DFL if mode == "kill" else signal.SIG_IGN)
+save(spec, trace, Store(root))
+"""
+
+ATOMIC_RUN = ["dataset=wellposed", "solver=gd", "budget.iterations=50"]
+
+
+def cut_write(tmp_path, root, limit, mode):
+    env = dict(os.environ, STOPWISE_CACHE="off", PYTHONDONTWRITEBYTECODE="1")
+    return subprocess.run([sys.executable, "-c", CUT_WRITER, str(root), str(limit), mode, *ATOMIC_RUN],
+                          capture_output=True, text=True, env=env, cwd=tmp_path, timeout=120)
+
+
+def trace_frame(path):
+    return pq.read_table(path).to_pandas().drop(columns=["seconds"])
+
+
+def test_writes_are_atomic_a_write_cut_mid_file_leaves_no_partial_trace(tmp_path):
+    spec = spec_from_overrides(ATOMIC_RUN)
+    whole = run_spec(spec, tmp_path / "reference")          # an uncut write, for its size and content
+    size = whole.path.stat().st_size
+    assert os.listdir(whole.path.parent) == [whole.path.name]  # a finished write leaves one visible file
+    limit = size // 2
     root = tmp_path / "res"
-    stopwise.run(["dataset=wellposed", "solver=gd", "budget.iterations=5"], root=root)
-    names = os.listdir(root / "runs")
-    assert len(names) == 1 and names[0].endswith(".parquet") and not names[0].startswith(".")
+    store = Store(root)
+    final = store.run_path(spec.run_id)
+
+    # killed by the kernel when the file reaches `limit` bytes
+    res = cut_write(tmp_path, root, limit, "kill")
+    assert res.returncode == -signal.SIGXFSZ, res.stderr
+    assert not final.exists()                                # nothing under the run's final name
+    (tmp,) = store.temporary_files()                         # only the hidden temporary file remains ...
+    assert tmp.name.startswith(f".{final.name}.") and 0 < tmp.stat().st_size <= limit < size
+    with pytest.raises(pa.ArrowException):                  # ... and it really is a cut-off Parquet file
+        pq.read_table(tmp)
+    assert store.run_files() == [] and not store.is_done(spec.run_id) and len(stopwise.load_runs(root)) == 0
+
+    # the write fails (EFBIG) and atomic_write removes its own temporary file
+    res = cut_write(tmp_path, root, limit, "error")
+    assert res.returncode == 1 and "File too large" in res.stderr, res.stderr
+    assert store.temporary_files() == [tmp] and not final.exists()
+
+    # a later run is not taken for done, and writes the trace whole
+    out = run_spec(spec, root)
+    assert not out.skipped and out.status == "completed" and out.path == final
+    pd.testing.assert_frame_equal(trace_frame(final), trace_frame(whole.path), check_exact=True)
+    assert [p.name for p in store.run_files()] == [final.name] and store.is_done(spec.run_id)
+
+    # a replacement cut mid-write leaves the old file as it was, byte for byte
+    before = final.read_bytes()
+    res = cut_write(tmp_path, root, limit, "kill")
+    assert res.returncode == -signal.SIGXFSZ, res.stderr
+    assert final.read_bytes() == before and len(store.temporary_files()) == 2
 
 
 def test_trace_columns_and_metadata(tmp_path):
