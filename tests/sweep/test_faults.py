@@ -20,8 +20,8 @@ from stopwise.results.verify import TEMP_GRACE_SECONDS, check_trace, verify_root
 
 from helpers.sweep import assert_same_traces, cli, popen
 
-# 6 runs of a few tenths of a second each: long enough to kill the sweep in the middle
-SWEEP = ["sweep", "dataset=illposed", "solver=gd,nesterov", "seed=0,1,2", "budget.iterations=1500"]
+# 6 runs; how long each takes does not matter (the kill test holds the sweep at its last run)
+SWEEP = ["sweep", "dataset=illposed", "solver=gd,nesterov", "seed=0,1,2", "budget.iterations=300"]
 
 
 @pytest.fixture(scope="module")
@@ -34,31 +34,50 @@ def uninterrupted(tmp_path_factory):
 
 def visible_traces(root: Path) -> list[Path]:
     d = root / "runs"
-    return sorted(d.glob("*.parquet")) if d.is_dir() else []
+    return sorted(p for p in d.glob("*.parquet") if p.is_file()) if d.is_dir() else []
+
+
+def hold_last_run(root: Path) -> tuple[Path, int]:
+    """A FIFO under the final name of the sweep's last run (in the order the sweep expands
+    its jobs): the sweep's "is this run done?" check opens it for reading, and opening a
+    FIFO for reading blocks until a writer opens it, which nobody does. So the sweep can
+    store every other run but never finish: "fewer than all" holds at any moment, however
+    fast the runs are. Returns the FIFO and the number of distinct runs."""
+    from stopwise.sweep.campaign import expand
+
+    exp = expand(None, [*SWEEP[1:], f"results_root={root}"])
+    fifo = Store(root).run_path(exp.run_ids[-1])
+    fifo.parent.mkdir(parents=True)
+    os.mkfifo(fifo)
+    return fifo, len(exp.run_ids)
 
 
 def test_sigkill_mid_sweep_then_the_same_command_finishes_it(uninterrupted, tmp_path):
+    """The sweep is killed once the test has seen at least 2 of its 6 traces stored (whole);
+    it cannot have stored all 6, because its last run is held (`hold_last_run`)."""
     root = tmp_path / "res"
+    fifo, n_runs = hold_last_run(root)
+    assert n_runs == 6
     proc = popen(*SWEEP, f"results_root={root}", cwd=tmp_path)
     seen_whole = set()
     deadline = time.monotonic() + 240
     try:
-        while proc.poll() is None and time.monotonic() < deadline:
+        while proc.poll() is None and len(seen_whole) < 2 and time.monotonic() < deadline:
             for p in visible_traces(root):
                 if p not in seen_whole:
                     pq.read_table(p)  # every visible file reads back whole, at any moment
                     seen_whole.add(p)
-            if len(seen_whole) >= 2:
-                proc.send_signal(signal.SIGKILL)
-                break
             time.sleep(0.01)
     finally:
-        if proc.poll() is None and len(seen_whole) < 2:
-            proc.kill()
-        proc.wait(timeout=60)
-    assert proc.returncode == -signal.SIGKILL, "the sweep ended before it could be killed in the middle"
+        ended = proc.poll()
+        proc.kill()
+        out, err = proc.communicate(timeout=60)
+    assert ended is None, f"the sweep ended (exit {ended}) before storing 2 runs: {err[-2000:]}"
+    assert len(seen_whole) >= 2, f"the sweep stored {len(seen_whole)} runs in 240 s (expected 2 of 6)"
+    assert proc.returncode == -signal.SIGKILL
+    fifo.unlink()  # the test's own hold, not a run
     survivors = visible_traces(root)
-    assert 2 <= len(survivors) < 6
+    assert 2 <= len(survivors) < 6 and fifo.name not in {p.name for p in survivors}
     store = Store(root)
     for p in survivors:
         assert check_trace(p, store) == "", p
