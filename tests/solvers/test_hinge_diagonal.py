@@ -33,18 +33,32 @@ def iterate(train, steps, **params):
     (dict(update="primal_dual", step_scale=0.99), 5000, 1e-6),
 ])
 def test_iterates_converge_to_the_svm(make, params, steps, tol):
-    # references: SciPy SLSQP on min ||w||^2 s.t. y_i <x_i, w> >= 1, and scikit-learn's
-    # SVC(kernel="linear", C=1e6) (on mirrored rows, so without intercept)
+    """The limit is the outside check: SciPy SLSQP on min ||w||^2 s.t. y_i <x_i, w> >= 1
+    and scikit-learn's SVC(kernel="linear", C=1e6) (on mirrored rows, so without
+    intercept), two independent computations that agree to 1e-5.
+
+    `tol` (relative weight error after `steps` steps) is a regression guard on the speed:
+    the project's own measurement, not an outside fact (largest of the two data sets:
+    dual 8.0e-4 after 20000 steps, dual_accelerated 6.0e-5 and primal_dual 1.1e-9 after
+    5000). The margins' bounds are derived from the weight error actually reached."""
     X, y = make()
     w_qp = slsqp_hard_margin(X, y)
     w_svc = svc_hard_margin(X, y)
     assert np.linalg.norm(w_qp - w_svc) < 1e-5 * np.linalg.norm(w_qp)
     st = iterate(hinge_set(X, y), steps, **params)
     # the weights themselves, not only their direction
-    assert np.linalg.norm(st.w - w_qp) < tol * np.linalg.norm(w_qp)
-    # and the margin: min_i y_i <x_i, w_t> -> 1, normalized margin -> 1 / ||w_svm||
-    assert np.min(y * (X @ st.w)) == pytest.approx(1.0, abs=5 * tol)
-    assert normalized_margin(X, y, st.w) == pytest.approx(1 / np.linalg.norm(w_qp), rel=5 * tol)
+    err = np.linalg.norm(st.w - w_qp) / np.linalg.norm(w_qp)
+    # regression guard (project's own measurement, not an outside fact)
+    assert err < tol
+    # and the margin: min_i y_i <x_i, w_t> -> 1, normalized margin -> 1 / ||w_svm||. Bounds by
+    # Cauchy-Schwarz: |min_i y_i <x_i, w> - min_i y_i <x_i, w_qp>| <= max_i ||x_i|| ||w - w_qp||
+    # = R err with R = max_i ||x_i|| ||w_qp||; ||w|| / ||w_qp|| lies in [1 - err, 1 + err]; and
+    # w_qp's own margin is 1 up to SLSQP's tolerance (m_qp - 1, included).
+    R = np.max(np.linalg.norm(X, axis=1)) * np.linalg.norm(w_qp)
+    m_qp = np.min(y * (X @ w_qp))
+    assert abs(np.min(y * (X @ st.w)) - 1.0) <= abs(m_qp - 1) + R * err
+    rel = (abs(m_qp - 1) + R * err + err) / (1 - err)
+    assert abs(normalized_margin(X, y, st.w) * np.linalg.norm(w_qp) - 1.0) <= rel
 
 
 def test_fixed_lambda_gives_the_soft_margin_svm():

@@ -62,6 +62,8 @@ def test_iris_direction_approaches_svm():
     # Thm 3), so the growth per decade rises towards ||w_svm|| ln 10 and never beyond
     norms = [np.linalg.norm(ws[t]) for t in ts]
     slope = np.diff(norms) / (np.linalg.norm(w_svm) * math.log(10))
+    # the slope's limit 1 is Soudry et al. Thm 3; the band 0.3..1.0 for the decades up to 1e4 is a
+    # regression guard (project's own measurement, not an outside fact): 0.56, 0.64, 0.72 measured
     assert all(0.3 < s < 1.0 for s in slope) and all(a < b for a, b in zip(slope, slope[1:]))
     rho = [np.linalg.norm(ws[t] - w_svm * math.log(t)) for t in ts]
     steps = np.diff(rho)
@@ -96,6 +98,8 @@ def test_generated_problem_direction():
     assert max(prod) < 0.7 and max(prod) - min(prod) < 0.1
     norms = [np.linalg.norm(ws[t]) for t in ts]
     slope = np.diff(norms) / (np.linalg.norm(w_svm) * math.log(10))
+    # limit 1 (Soudry et al. Thm 3); the band 0.3..1.0 is a regression guard (project's own
+    # measurement, not an outside fact): 0.38, 0.58, 0.76 measured
     assert all(0.3 < s < 1.0 for s in slope)
 
 

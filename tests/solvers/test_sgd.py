@@ -283,7 +283,11 @@ def test_expected_smoothness_of_a_batch():
 
 def test_step_scale_one_at_batch_one_converges_on_wellposed():
     """With step 1 / L_max (step_scale 1, b = 1) SGD does not diverge; the training error
-    after 30 passes with an inverse schedule is within 5% of least squares (numpy lstsq)."""
+    after 30 passes with an inverse schedule and tail averaging is within 0.1% of least
+    squares (numpy lstsq, the outside reference; it is also a lower bound).
+
+    The 0.1% is a regression guard: the project's own measurement (relative excess 2.4e-5
+    on seed 0, at most 4.4e-5 on seeds 0..5), not an outside fact."""
     spec = spec_from_overrides(["dataset=wellposed", "solver=sgd", "solver.schedule=inverse", "solver.t0=240",
                                 "solver.average=tail", "budget.iterations=1000000", "budget.passes=30",
                                 "record.per_pass=1"])
@@ -292,7 +296,9 @@ def test_step_scale_one_at_batch_one_converges_on_wellposed():
     p = stopwise.load_problem(["dataset=wellposed"])
     w, *_ = np.linalg.lstsq(p.X_train, p.y_train, rcond=None)
     best = np.mean((p.X_train @ w - p.y_train) ** 2)
-    assert best <= tr.columns["train_error"][-1] <= 1.05 * best
+    assert best <= tr.columns["train_error"][-1]  # lstsq minimizes the training error
+    # regression guard (project's own measurement, not an outside fact)
+    assert tr.columns["train_error"][-1] <= (1 + 1e-3) * best
 
 
 @pytest.mark.parametrize("override,needle", [
