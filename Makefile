@@ -3,7 +3,7 @@ PY ?= python3
 VENV ?= .venv
 BIN := $(VENV)/bin
 
-.PHONY: demo test test-all bench clean-results
+.PHONY: demo test test-slow test-all bench clean-results
 
 $(BIN)/python:
 	$(PY) -m venv $(VENV)
@@ -20,6 +20,9 @@ demo: $(VENV)/.installed
 
 test: $(VENV)/.installed
 	$(BIN)/python -m pytest -q
+
+test-slow: $(VENV)/.installed
+	$(BIN)/python -m pytest -q -m slow
 
 test-all: $(VENV)/.installed
 	$(BIN)/python -m pytest -q -m ''
