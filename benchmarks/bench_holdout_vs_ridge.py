@@ -36,7 +36,7 @@ from sklearn.linear_model import Ridge, RidgeCV  # noqa: E402
 from sklearn.model_selection import GridSearchCV, PredefinedSplit  # noqa: E402
 
 from stopwise.running.runner import execute  # noqa: E402
-from stopwise.config.spec import spec_from_overrides  # noqa: E402
+from stopwise.config.compose import spec_from_overrides  # noqa: E402
 
 ALPHAS = np.logspace(-6, 4, 60)
 REPEAT = 3

@@ -29,7 +29,7 @@ def main(n_rows: int = 20000) -> None:
     os.environ["STOPWISE_CACHE"] = os.path.join(tmp, "cache")
     from stopwise import data
     from stopwise.data import build_problem, cached_problem
-    from stopwise.config.spec import spec_from_overrides
+    from stopwise.config.compose import spec_from_overrides
 
     rng = np.random.default_rng(0)
     df = pd.DataFrame(rng.normal(size=(n_rows, 16)), columns=[f"x{j}" for j in range(16)])

@@ -36,7 +36,7 @@ import numpy as np  # noqa: E402
 from stopwise.running import kernels  # noqa: E402
 from stopwise.data import cached_problem  # noqa: E402
 from stopwise.running.runner import execute  # noqa: E402
-from stopwise.config.spec import spec_from_overrides  # noqa: E402
+from stopwise.config.compose import spec_from_overrides  # noqa: E402
 
 
 def measure(label, spec, problem, path="auto", record_path=None, repeat=3):

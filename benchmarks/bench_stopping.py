@@ -13,7 +13,7 @@ import time
 import numpy as np
 
 from stopwise.running.runner import execute
-from stopwise.config.spec import spec_from_overrides
+from stopwise.config.compose import spec_from_overrides
 from stopwise.stopping.rules import RULES, RuleContext, apply_rule
 
 

@@ -20,7 +20,8 @@ from stopwise.cli import main
 from stopwise.data.sources import SOURCES
 from stopwise.solvers import SOLVERS
 from stopwise.core.params import Choice, Interval
-from stopwise.config.spec import FIELD_CONSTRAINTS, StopwiseConfig, conf_dir, spec_from_overrides
+from stopwise.config.spec import FIELD_CONSTRAINTS, StopwiseConfig, conf_dir
+from stopwise.config.compose import spec_from_overrides
 from stopwise.core.errors import SpecError
 
 

@@ -13,7 +13,8 @@ import pytest
 
 import stopwise
 from stopwise.cli import main
-from stopwise.config.spec import spec_from_config, spec_from_overrides
+from stopwise.config.spec import spec_from_config
+from stopwise.config.compose import spec_from_overrides
 from stopwise.results.store import Store
 from stopwise.running.runner import run_spec
 
@@ -100,7 +101,7 @@ def test_sweep_resume_ls_and_campaign_rerun(tmp_path, capsys, monkeypatch):
     assert len(man["run_ids"]) == 6 and man["name"] == "adhoc"
     mtimes = {p: p.stat().st_mtime_ns for p in (root / "runs").glob("*.parquet")}
     assert main(args) == 0
-    assert "skipped (done)" in capsys.readouterr().out
+    assert "6 completed; every run already stored" in capsys.readouterr().out
     assert {p: p.stat().st_mtime_ns for p in (root / "runs").glob("*.parquet")} == mtimes
     assert main(["ls", "--root", str(root), "--campaign", man["campaign_id"]]) == 0
     listing = capsys.readouterr().out
@@ -147,7 +148,7 @@ def test_rerun_refuses_a_config_that_does_not_hash_to_its_id(tmp_path, capsys):
 # default) the write fails with EFBIG and the exception unwinds through atomic_write.
 CUT_WRITER = """
 import resource, signal, sys
-from stopwise.config.spec import spec_from_overrides
+from stopwise.config.compose import spec_from_overrides
 from stopwise.results.store import Store
 from stopwise.running.runner import execute, save
 

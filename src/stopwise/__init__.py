@@ -33,7 +33,8 @@ from stopwise.running.runner import RunOutcome, execute, run  # noqa: E402
 from stopwise.solvers import PROX_OPERATORS, SOLVERS, ProxDef, get_solver, register_prox  # noqa: E402
 from stopwise.solvers.averaging import AveragingParams, averaged  # noqa: E402
 from stopwise.solvers.stochastic import SGDParams  # noqa: E402
-from stopwise.config.spec import RunSpec, SpecError, spec_from_overrides  # noqa: E402
+from stopwise.config.spec import RunSpec, SpecError  # noqa: E402
+from stopwise.config.compose import spec_from_overrides
 # Ranking, baselines, selection and verification load on first use (PEP 562), so a launcher
 # worker that only runs solvers does not pay for SciPy's statistics and scikit-learn's models.
 _LAZY = {

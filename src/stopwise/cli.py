@@ -11,9 +11,11 @@ EXIT_BAD_INPUT = 2
 USAGE = """stopwise COMMAND [args]
 
 commands:
-  sweep [CAMPAIGN] [--jobs N] [overrides]
+  sweep [CAMPAIGN|FILE.yaml] [--jobs N] [--chunk N] [--strict] [overrides]
                                  run a campaign (a sweep over Hydra overrides); --jobs N runs
-                                 N at once (Hydra's joblib launcher), hydra/launcher=slurm on a cluster
+                                 N chunks at once (Hydra's joblib launcher), hydra/launcher=slurm
+                                 on a cluster; --chunk N runs per launched job; --strict refuses
+                                 solver x dataset pairs that cannot run instead of leaving them out
   run [overrides]                run one configuration
   rerun ID [--root DIR]          recompute a run or a whole campaign and compare with the stored traces
   ls [--campaign C] [--root DIR] list stored runs
@@ -81,55 +83,85 @@ def parallel_overrides(jobs_arg: str, rest: list[str]) -> tuple[list[str], str]:
     return extra, note
 
 
-def _split_jobs(args: list[str]) -> tuple[list[str], str | None]:
-    """Take ``--jobs N`` / ``--jobs=N`` out of the sweep's arguments."""
-    rest, jobs, i = [], None, 0
+def _split_sweep_options(args: list[str]) -> tuple[list[str], dict[str, str | bool]]:
+    """Take ``--jobs N``, ``--chunk N`` (also ``--opt=N``) and ``--strict`` out of the
+    sweep's arguments; the rest are the campaign and Hydra overrides."""
+    rest: list[str] = []
+    opts: dict[str, str | bool] = {}
+    i = 0
     while i < len(args):
         a = args[i]
-        if a == "--jobs":
-            jobs = args[i + 1] if i + 1 < len(args) else ""
+        if a in ("--jobs", "--chunk"):
+            opts[a[2:]] = args[i + 1] if i + 1 < len(args) else ""
             i += 2
             continue
-        if a.startswith("--jobs="):
-            jobs = a.split("=", 1)[1]
+        if a.startswith(("--jobs=", "--chunk=")):
+            k, v = a[2:].split("=", 1)
+            opts[k] = v
+        elif a == "--strict":
+            opts["strict"] = True
         else:
             rest.append(a)
         i += 1
-    return rest, jobs
+    return rest, opts
+
+
+def _chunk_size(text: str) -> int:
+    from stopwise.config.spec import SpecError
+
+    try:
+        n = int(text)
+    except ValueError:
+        n = 0
+    if n < 1:
+        raise SpecError(f"--chunk {text!r} is invalid: must be a whole number of runs per launched job >= 1")
+    return n
 
 
 def cmd_sweep(argv: list[str]) -> int:
+    import time
+
     from stopwise.sweep.campaign import expand, launch, tally
     from stopwise.config.spec import SpecError
 
+    t0 = time.perf_counter()
     campaign = None
-    rest, jobs = _split_jobs(list(argv))
+    rest, opts = _split_sweep_options(list(argv))
     if rest and "=" not in rest[0] and not rest[0].startswith("-"):
         campaign = rest.pop(0)
     bad = [a for a in rest if a.startswith("-")]
     if bad:
-        return _fail(f"unknown option {bad[0]!r}; sweep takes a campaign name, --jobs N and key=value overrides")
+        return _fail(f"unknown option {bad[0]!r}; sweep takes a campaign name or file, --jobs N, --chunk N, "
+                     "--strict and key=value overrides")
     note = ""
     try:
-        if jobs is not None:
-            extra, note = parallel_overrides(jobs, rest)
+        chunk = _chunk_size(str(opts["chunk"])) if "chunk" in opts else None
+        if "jobs" in opts:
+            extra, note = parallel_overrides(str(opts["jobs"]), rest)
             rest += extra
-        exp = expand(campaign, rest)
+        exp = expand(campaign, rest, strict=bool(opts.get("strict")))
     except SpecError as e:
         return _fail(str(e))
     n_runs = len(exp.run_ids)
     print(f"campaign {exp.name} ({exp.manifest['campaign_id']}): {len(exp.jobs)} jobs, {n_runs} distinct runs, "
           f"results in {exp.root}" + (f"; {note}" if note else ""), flush=True)
+    for line in exp.notes:
+        print(f"note: {line}", flush=True)
     stopped = ""
+    done: dict = {}
     try:
-        launch(exp)
+        done = launch(exp, chunk=chunk)
+    except SpecError as e:  # data errors found before the launch: nothing ran
+        return _fail(str(e))
     except Exception as e:  # the launcher itself gave up (a worker died, the cluster refused a job)
         stopped = " ".join(f"{type(e).__name__}: {e}".split())[:300]
         print(f"stopwise: the launcher stopped early: {stopped}", file=sys.stderr, flush=True)
     counts = tally(exp, exp.root)
+    ran = (f"{done['pending']} runs in {done['chunks']} {'chunk' if done['chunks'] == 1 else 'chunks'}"
+           if done.get("pending") else "every run already stored")
     print(f"campaign {exp.name} ({exp.manifest['campaign_id']}): "
           + ", ".join(f"{v} {k}" for k, v in counts.items() if v or k == "completed")
-          + f"; traces in {Path(exp.root) / 'runs'}", flush=True)
+          + f"; {ran}; {time.perf_counter() - t0:.1f} s; traces in {Path(exp.root) / 'runs'}", flush=True)
     if counts["failed"] or counts["missing"]:
         print(f"stopwise: {counts['failed'] + counts['missing']} runs did not finish; rerun the same command to retry them",
               file=sys.stderr)
@@ -140,7 +172,8 @@ def cmd_sweep(argv: list[str]) -> int:
 def cmd_run(argv: list[str]) -> int:
     from stopwise.sweep.task import outcome_line
     from stopwise.running.runner import run_spec
-    from stopwise.config.spec import SpecError, compose, spec_from_config
+    from stopwise.config.compose import compose_cached
+    from stopwise.config.spec import SpecError, spec_from_config
 
     bad = [a for a in argv if a.startswith("-")]
     if bad:
@@ -148,12 +181,12 @@ def cmd_run(argv: list[str]) -> int:
     from stopwise.sweep.campaign import check_data
 
     try:
-        cfg = compose(argv)
+        cfg = compose_cached(argv)
         spec = spec_from_config(cfg)
         check_data([spec])
     except SpecError as e:
         return _fail(str(e))
-    out = run_spec(spec, str(cfg.results_root))
+    out = run_spec(spec, str(cfg["results_root"]))
     print(outcome_line(out))
     print(f"trace: {out.path}")
     return 1 if out.status == "failed" else 0

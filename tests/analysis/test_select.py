@@ -15,7 +15,7 @@ import stopwise
 from stopwise.cli import main
 from stopwise.running.runner import Trace, execute, run_spec, save
 from stopwise.analysis.selection import SELECT_COLUMNS
-from stopwise.config.spec import spec_from_overrides
+from stopwise.config.compose import spec_from_overrides
 from stopwise.stopping.rules import RuleContext, apply_rule
 from stopwise.results.store import Store
 

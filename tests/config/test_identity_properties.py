@@ -25,7 +25,8 @@ from stopwise.data.sources import SOURCES
 from stopwise.core.errors import SpecError
 from stopwise.solvers import SOLVERS
 from stopwise.core.params import Choice, Interval
-from stopwise.config.spec import FIELD_CONSTRAINTS, spec_from_config, spec_from_overrides
+from stopwise.config.spec import FIELD_CONSTRAINTS, spec_from_config
+from stopwise.config.compose import spec_from_overrides
 from stopwise.stopping.rules import RULES
 
 SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])

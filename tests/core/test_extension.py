@@ -14,7 +14,8 @@ import pytest
 
 import test_bad_input_generated as generated  # the generators of tests/test_bad_input_generated.py
 
-from stopwise.config.spec import forget_configs, spec_from_config, spec_from_overrides
+from stopwise.config.spec import forget_configs, spec_from_config
+from stopwise.config.compose import spec_from_overrides
 from stopwise.core.errors import SpecError
 from stopwise.solvers.base import SOLVERS
 from stopwise.stopping.rules import RULES

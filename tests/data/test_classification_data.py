@@ -7,7 +7,8 @@ from sklearn import datasets
 import stopwise
 from stopwise.data import build_problem, normalize_dataset
 from stopwise.data.sources import SKLEARN_CLASSES, SklearnParams, load_sklearn
-from stopwise.config.spec import SpecError, spec_from_overrides
+from stopwise.config.spec import SpecError
+from stopwise.config.compose import spec_from_overrides
 
 
 @pytest.mark.parametrize("loader,shape,counts", [

@@ -7,7 +7,8 @@ from sklearn.metrics import mean_squared_error, r2_score
 
 import stopwise
 from stopwise.data import build_problem
-from stopwise.config.spec import SpecError, spec_from_overrides
+from stopwise.config.spec import SpecError
+from stopwise.config.compose import spec_from_overrides
 
 
 def test_diabetes_shape_matches_the_loader_description():

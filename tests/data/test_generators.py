@@ -7,7 +7,8 @@ from sklearn.svm import SVC
 
 from stopwise.data import build_problem
 from stopwise.data.generators import IntegralParams, load_integral
-from stopwise.config.spec import SpecError, spec_from_overrides
+from stopwise.config.spec import SpecError
+from stopwise.config.compose import spec_from_overrides
 
 
 def problem(overrides):

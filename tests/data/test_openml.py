@@ -12,7 +12,8 @@ from sklearn.preprocessing import LabelEncoder
 import stopwise
 from stopwise.cli import main
 from stopwise.data import build_problem
-from stopwise.config.spec import SpecError, spec_from_overrides
+from stopwise.config.spec import SpecError
+from stopwise.config.compose import spec_from_overrides
 
 ARRAYS = ("X_train", "y_train", "X_val", "y_val", "X_test", "y_test")
 

@@ -12,7 +12,7 @@ import pandas as pd
 from stopwise import data
 from stopwise.cli import main
 from stopwise.data import build_problem, cached_problem, problem_key
-from stopwise.config.spec import spec_from_overrides
+from stopwise.config.compose import spec_from_overrides
 
 FIELDS = ("X_train", "y_train", "X_val", "y_val", "X_test", "y_test", "w_true")
 
@@ -108,7 +108,7 @@ def test_cache_off_writes_nothing(tmp_path, monkeypatch):
 CHILD = """
 import hashlib, sys
 from stopwise.data import cached_problem
-from stopwise.config.spec import spec_from_overrides
+from stopwise.config.compose import spec_from_overrides
 s = spec_from_overrides(["dataset=integral_gauss", "dataset.params.n=2000", "dataset.params.d=300"])
 p = cached_problem(s.dataset, s.split, s.seed)
 h = hashlib.sha256()

@@ -11,7 +11,8 @@ from sklearn.preprocessing import LabelEncoder, OneHotEncoder, StandardScaler
 
 from stopwise.cli import main
 from stopwise.data import build_problem
-from stopwise.config.spec import SpecError, spec_from_overrides
+from stopwise.config.spec import SpecError
+from stopwise.config.compose import spec_from_overrides
 
 TRAIN, VAL, TEST = list(range(0, 40)), list(range(40, 50)), list(range(50, 60))
 SPLIT = ["split.kind=indices", f"split.train_rows=[{','.join(map(str, TRAIN))}]",

@@ -128,5 +128,5 @@ def test_cd_diagram_groups_and_figure_sizes():
     t = friedman_from_ranks([1.2, 1.9, 3.4, 3.5], 30)
     p = F.critical_difference_diagram(t, "test_error")
     assert p.png[:8] == PNG_MAGIC and "CD = " in p.caption
-    assert F.heatmap_axes(pd.DataFrame({"step_scale": [1, 2], "batch_size": [8, 16], "momentum": [.1, .2]}),
-                          ["momentum", "step_scale", "batch_size"]) == ("step_scale", "batch_size")
+    assert F.heatmap_axes(pd.DataFrame({"step_scale": [1, 2], "batch": [8, 16], "momentum": [.1, .2]}),
+                          ["momentum", "step_scale", "batch"]) == ("step_scale", "batch")

@@ -9,7 +9,7 @@ import stopwise
 from helpers.biased import as_problem, final, piecewise_constant, slsqp_elastic_limit, training, underdetermined
 from stopwise.running.record import Recorder
 from stopwise.running.runner import execute
-from stopwise.config.spec import spec_from_overrides
+from stopwise.config.compose import spec_from_overrides
 
 
 def trace(problem, overrides):

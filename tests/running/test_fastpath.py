@@ -11,7 +11,7 @@ from stopwise.problem.problem import TrainingSet
 from stopwise.running.record import Recorder
 from stopwise.running.rerun import rerun_one
 from stopwise.running.runner import execute
-from stopwise.config.spec import spec_from_overrides
+from stopwise.config.compose import spec_from_overrides
 from stopwise.results.store import Store
 
 

@@ -7,7 +7,8 @@ import pytest
 from stopwise.data import cached_problem
 from stopwise.stopping.residual import COLUMNS as RESIDUAL_COLUMNS, ncp_distance
 from stopwise.running.runner import execute
-from stopwise.config.spec import SpecError, spec_from_overrides
+from stopwise.config.spec import SpecError
+from stopwise.config.compose import spec_from_overrides
 
 
 def _gd_residuals(p, iterations, step_scale=1.0):

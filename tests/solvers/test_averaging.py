@@ -10,7 +10,7 @@ from stopwise.running.runner import execute
 from stopwise.solvers import get_solver
 from stopwise.solvers.averaging import AveragingError, AveragingParams, averaged, tail_start
 from stopwise.core.params import make_params
-from stopwise.config.spec import spec_from_overrides
+from stopwise.config.compose import spec_from_overrides
 
 
 def _problem(name):

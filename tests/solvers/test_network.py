@@ -97,8 +97,8 @@ def test_seeded_and_minibatches(root):
     X, y = iris_setosa_versicolor()
     tr = logistic_set(X, y)
     sd = get_solver("relu_net")
-    full = sd.params(width=8, batch_size=0)
-    big = sd.params(width=8, batch_size=1000)
+    full = sd.params(width=8, batch=0)
+    big = sd.params(width=8, batch=1000)
     a = sd.init(tr, full, np.random.default_rng(5))
     b = sd.init(tr, big, np.random.default_rng(5))
     assert np.array_equal(a.w, b.w)
@@ -106,7 +106,7 @@ def test_seeded_and_minibatches(root):
         a, b = sd.step(tr, full, a), sd.step(tr, big, b)
     assert np.array_equal(a.w, b.w) and a.passes == b.passes == 5.0  # batch >= n is full batch
     # minibatches of 32 over 100 rows: blocks of a fresh permutation each epoch
-    mb = sd.params(width=8, batch_size=32)
+    mb = sd.params(width=8, batch=32)
     s = sd.init(tr, mb, np.random.default_rng(5))
     assert sorted(s.perm) == list(range(100))
     passes = []
@@ -115,7 +115,7 @@ def test_seeded_and_minibatches(root):
         passes.append(s.passes)
     assert np.allclose(passes, [0.32, 0.64, 0.96, 1.0]) and s.epoch == 1 and s.pos == 0
     # same seed, same trace; another seed, another initialization
-    args = ["dataset=iris_setosa_versicolor", "solver=relu_net", "solver.batch_size=16", "budget.iterations=20"]
+    args = ["dataset=iris_setosa_versicolor", "solver=relu_net", "solver.batch=16", "budget.iterations=20"]
     r1 = pd.read_parquet(stopwise.run(args, root=root).path)
     r2 = pd.read_parquet(stopwise.run(args, root=root / "again").path)
     r3 = pd.read_parquet(stopwise.run(args + ["seed=1"], root=root).path)

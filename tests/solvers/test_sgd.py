@@ -18,7 +18,8 @@ from stopwise.running.runner import execute, run_rng
 from stopwise.solvers import get_solver
 from stopwise.core.params import make_params
 from stopwise.solvers.stochastic import batch_count, batch_smoothness, next_rows, sample_smoothness
-from stopwise.config.spec import SpecError, spec_from_overrides
+from stopwise.config.spec import SpecError
+from stopwise.config.compose import spec_from_overrides
 
 SGD = get_solver("sgd")
 

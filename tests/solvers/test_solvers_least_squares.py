@@ -10,7 +10,7 @@ from stopwise.problem.problem import Problem, TrainingSet
 from stopwise.running.runner import execute
 from stopwise.solvers import SOLVERS, get_solver
 from stopwise.core.params import ParamError, make_params
-from stopwise.config.spec import spec_from_overrides
+from stopwise.config.compose import spec_from_overrides
 
 
 def training(X, y):

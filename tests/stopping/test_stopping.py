@@ -18,7 +18,8 @@ from hypothesis import strategies as st
 import stopwise
 from stopwise.stopping.residual import ncp, ncp_distance, periodogram_tail, white_noise_limit
 from stopwise.running.runner import execute
-from stopwise.config.spec import SpecError, spec_from_overrides
+from stopwise.config.spec import SpecError
+from stopwise.config.compose import spec_from_overrides
 from stopwise.stopping.rules import (
     RULES,
     RuleContext,

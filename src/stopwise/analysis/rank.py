@@ -672,7 +672,8 @@ def mark_protocols(references: pd.DataFrame, root: str | Path, selections: pd.Da
     when the split is random. The first stored run of each dataset stands for all of them."""
     import shlex
 
-    from stopwise.config.spec import SpecError, spec_from_overrides
+    from stopwise.config.spec import SpecError
+    from stopwise.config.compose import spec_from_overrides
     from stopwise.results.store import Store
 
     store = Store(root)

@@ -19,7 +19,7 @@ from typing import Any, Dict, List, Optional
 from stopwise.data import DataError, dataset_row_order, dataset_task, normalize_dataset, split_rows  # noqa: F401
 from stopwise.data.split import SPLIT_KINDS
 from stopwise.solvers import SOLVERS, get_solver
-from stopwise.core.params import Choice, Flag, Interval, ParamError, field_types, make_params, params_data
+from stopwise.core.params import Choice, Flag, Interval, ParamError, field_types, make_params, params_data, stored_names
 from stopwise.solvers.base import UnknownSolver
 from stopwise.stopping.residual import NEEDS_RESIDUAL, NEEDS_SIGNAL_ROWS
 from stopwise.stopping.rules import RULES, RuleError, get_rule, normalize_stopping
@@ -33,6 +33,28 @@ COMMON_SOLVER_KEYS = ("step_scale",)
 
 
 from stopwise.core.errors import SpecError  # noqa: E402,F401  (re-exported)
+
+# Former spellings of solver keys: one name for one idea across solvers. A former name is
+# refused with a line that names the new one.
+RENAMED_SOLVER_KEYS = {"batch_size": "batch"}
+
+
+class TaskMismatch(SpecError):
+    """A solver that does not handle the dataset's task (a sweep leaves such pairs out)."""
+
+    def __init__(self, message: str, solver: str, dataset: str, task: str):
+        super().__init__(message)
+        self.solver, self.dataset, self.task = solver, dataset, task
+
+
+def solver_keys(name: str) -> set[str]:
+    """The keys a ``solver.`` override may set for solver ``name`` (its params and the
+    common keys); empty for an unknown solver."""
+    try:
+        d = get_solver(name)
+    except UnknownSolver:
+        return set()
+    return {f.name for f in dataclasses.fields(d.params)} | set(COMMON_SOLVER_KEYS)
 
 
 # ---------------------------------------------------------------- schemas (Hydra ConfigStore)
@@ -197,6 +219,13 @@ def solver_schema(name: str) -> type:
 
 
 _STORED: set[tuple[str, str]] = set()  # (group, name) already in the ConfigStore
+_GENERATION = [0]  # bumped whenever the ConfigStore's stopwise entries change
+
+
+def registration_generation() -> int:
+    """A number that changes whenever :func:`register_configs` stores something new or
+    :func:`forget_configs` drops something (cached compositions are stale then)."""
+    return _GENERATION[0]
 
 
 def register_configs() -> None:
@@ -212,6 +241,7 @@ def register_configs() -> None:
         if (str(group), name) not in _STORED:
             cs.store(group=group, name=name, node=node, package=package)
             _STORED.add((str(group), name))
+            _GENERATION[0] += 1
 
     put(None, "stopwise_schema", StopwiseConfig, None)
     put("schema/dataset", "base", DatasetConfig, "dataset")
@@ -237,6 +267,7 @@ def forget_configs(kind: str, name: str) -> None:
             node = node.get(part, {})
         node.pop(f"{name}.yaml", None)
         _STORED.discard((group, name))
+    _GENERATION[0] += 1
 
 
 # ---------------------------------------------------------------- RunSpec
@@ -389,8 +420,9 @@ def _solver_section(raw: dict, dataset: dict, asked_loss: Any) -> tuple[str, Any
         raise SpecError(str(e)) from None
     task = dataset_task(dataset)
     if task is not None and task not in sdef.tasks:
-        raise SpecError(f"solver {name!r} does not handle {task} problems such as dataset {dataset.get('name')!r}; "
-                        f"valid solvers: {', '.join(n for n, d in SOLVERS.items() if task in d.tasks)}")
+        raise TaskMismatch(f"solver {name!r} does not handle {task} problems such as dataset {dataset.get('name')!r}; "
+                           f"valid solvers: {', '.join(n for n, d in SOLVERS.items() if task in d.tasks)}",
+                           str(name), str(dataset.get("name")), task)
     if sdef.loss is not None and asked_loss not in (None, sdef.loss):
         raise SpecError(f"dataset.loss={asked_loss!r} conflicts with solver {name!r}, which trains the "
                         f"{sdef.loss} loss; drop dataset.loss or set it to {sdef.loss!r}")
@@ -463,6 +495,15 @@ def _check_halt_columns(rule: str, record: dict, dataset: dict) -> None:
         raise SpecError(halt_needs_signal_rows(rule, signal[0], dataset.get("name")))
 
 
+def _from_stored(solver: Any, params: dict) -> dict:
+    """Solver params of a stored identity under the names users type (see ``stored_as``)."""
+    try:
+        renamed = stored_names(get_solver(solver).params)
+    except UnknownSolver:
+        return dict(params)
+    return {renamed.get(k, k): v for k, v in params.items()}
+
+
 def spec_from_identity(ident: dict) -> RunSpec:
     """Rebuild a RunSpec from a stored identity (data only: nothing is imported or called)."""
     if not isinstance(ident, dict) or ident.get("format") != TRACE_FORMAT:
@@ -475,7 +516,7 @@ def spec_from_identity(ident: dict) -> RunSpec:
             raise SpecError("stored config: solver.params is not a mapping")
         cfg = {
             "dataset": ident["dataset"], "split": ident["split"],
-            "solver": dict(ident["solver"]["params"], name=ident["solver"]["name"]),
+            "solver": dict(_from_stored(ident["solver"]["name"], ident["solver"]["params"]), name=ident["solver"]["name"]),
             "budget": ident["budget"], "record": ident["record"], "seed": ident["seed"],
         }
         if "halt" in ident:
@@ -538,6 +579,9 @@ def hydra_error_line(e: BaseException) -> str:
         k = re.search(r"Key '([^']+)' not in '(\w+?)_(solver_config|stopping_params)'", c)
         if k:  # a key a solver's or a stopping rule's schema lacks: name the valid ones
             reg, extra = (SOLVERS, COMMON_SOLVER_KEYS) if k.group(3) == "solver_config" else (RULES, ())
+            if k.group(3) == "solver_config" and k.group(1) in RENAMED_SOLVER_KEYS:
+                return (f"solver.{k.group(1)} is now solver.{RENAMED_SOLVER_KEYS[k.group(1)]} "
+                        "(one name for the same setting across solvers)")
             if k.group(2) in reg:
                 valid = sorted({f.name for f in dataclasses.fields(reg[k.group(2)].params)} | set(extra))
                 c = f"{k.group(2)} has no parameter {k.group(1)!r}; valid: {', '.join(valid) or '(none)'}"
@@ -582,7 +626,3 @@ def compose(overrides: list[str], return_hydra_config: bool = False):
         except (HydraException, OmegaConfBaseException) as e:
             line = hydra_error_line(e)  # while Hydra is initialized, so it can list group options
     raise SpecError(line)
-
-
-def spec_from_overrides(overrides: list[str]) -> RunSpec:
-    return spec_from_config(compose(overrides))

@@ -10,6 +10,7 @@ declarations, and the generated bad-input tests read them too.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 import types
 import typing
@@ -113,13 +114,21 @@ Constraint = Union[Interval, Choice, Flag]
 
 
 def param(default: Any, constraint: Constraint | None = None, doc: str = "",
-          omit_default: bool = False) -> Any:
+          omit_default: bool = False, stored_as: str | None = None) -> Any:
     """Declare a params field with its constraint and one-line doc, readable by tests.
 
     ``omit_default``: a normalized config leaves the field out while it has its default, so
     adding the field to an existing params class keeps existing run identities unchanged.
+    ``stored_as``: the field's name inside run identities when it differs from the name
+    users type (a renamed field keeps the run ids it had under its former name).
     """
-    return field(default=default, metadata={"constraint": constraint, "doc": doc, "omit_default": omit_default})
+    return field(default=default, metadata={"constraint": constraint, "doc": doc, "omit_default": omit_default,
+                                            "stored_as": stored_as})
+
+
+def stored_names(cls: type) -> dict[str, str]:
+    """``{name in run identities: field name}`` for the fields stored under another name."""
+    return {f.metadata["stored_as"]: f.name for f in dataclasses.fields(cls) if f.metadata.get("stored_as")}
 
 
 class ParamError(SpecError):
@@ -129,7 +138,15 @@ class ParamError(SpecError):
 # ---------------------------------------------------------------- types and numbers
 
 def field_types(cls: type) -> dict[str, Any]:
-    """Each field's type, resolved by ``typing.get_type_hints`` (never by reading strings)."""
+    """Each field's type, resolved by ``typing.get_type_hints`` (never by reading strings).
+
+    Resolved once per class (a sweep validates thousands of jobs against a few classes);
+    callers get a copy, so the cached mapping cannot be changed through them."""
+    return dict(_field_types(cls))
+
+
+@functools.lru_cache(maxsize=None)
+def _field_types(cls: type) -> dict[str, Any]:
     try:
         hints = typing.get_type_hints(cls)
     except Exception:  # a class whose annotations name something not importable
@@ -201,9 +218,12 @@ def make_params(cls: type, values: dict[str, Any], owner: str):
 
 
 def params_data(params: Any) -> dict[str, Any]:
-    """A params dataclass as plain data (what enters a run identity)."""
-    return dataclasses.asdict(params)
+    """A params dataclass as plain data (what enters a run identity), each field under its
+    stored name (see :func:`param`)."""
+    data = dataclasses.asdict(params)
+    renamed = {v: k for k, v in stored_names(type(params)).items()}
+    return {renamed.get(k, k): v for k, v in data.items()} if renamed else data
 
 
 __all__ = ["Choice", "Constraint", "Flag", "Interval", "ParamError", "field_types", "make_params",
-           "normalize_number", "number_kind", "param", "params_data", "validate_params"]
+           "normalize_number", "number_kind", "param", "params_data", "stored_names", "validate_params"]

@@ -3,11 +3,14 @@
 :func:`build_problem` makes the Problem a run sees; :func:`cached_problem` returns the same
 Problem from an in-process memo or from the processed-problem cache on disk
 (:mod:`stopwise.data.cache`), building and storing it on a miss; :func:`prepare_problems`
-builds every distinct data spec of a sweep up front, so bad data input is reported as one
-line before any file is written, and later jobs (in any process) read the cached copy.
+builds the distinct data specs it is given up front, so bad data input is reported as one
+line before any file is written, and later jobs (in any process) read the cached copy of
+a costly one.
 """
 from __future__ import annotations
 
+import json
+import time
 from collections import OrderedDict
 from dataclasses import asdict, fields
 from typing import Any, Iterable
@@ -215,7 +218,7 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
     name = str(dataset.get("name") or dataset["source"])
     where = f"dataset {name!r}"
     params = make_params(src.params, dataset["params"], "dataset.params")
-    raw = src.load(params)
+    raw = _load_raw(src, params)
     X, frame, names, w_true = _select(raw, dataset, where)
     try:
         parts = list(_split(raw, split, seed))
@@ -321,6 +324,33 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
     )
 
 
+_RAW: "OrderedDict[tuple, RawData]" = OrderedDict()
+_RAW_SIZE = 4
+
+
+def _load_raw(src: SourceDef, params: Any) -> RawData:
+    """``src.load(params)``, kept in memory for the next problems of the same data: a sweep
+    over seeds splits the same raw data many times. Only sources without a fingerprint
+    (the data scikit-learn ships, generators: their output is a function of their params)
+    are kept; a file or an OpenML dataset is read again. Kept arrays are read-only, so no
+    problem built from them can change them."""
+    if src.fingerprint is not None:
+        return src.load(params)
+    key = (src.name, json.dumps(_cache.jsonable(asdict(params)), sort_keys=True))
+    hit = _RAW.get(key)
+    if hit is not None:
+        _RAW.move_to_end(key)
+        return hit
+    raw = src.load(params)
+    for a in (raw.X, raw.y, raw.w_true):
+        if isinstance(a, np.ndarray):
+            a.flags.writeable = False
+    _RAW[key] = raw
+    if len(_RAW) > _RAW_SIZE:
+        _RAW.popitem(last=False)
+    return raw
+
+
 def problem_key(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> str:
     """Content address of the Problem a data spec produces (see :mod:`stopwise.data.cache`)."""
     dataset = normalize_dataset(dataset)
@@ -330,6 +360,11 @@ def problem_key(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> st
         fp = src.fingerprint(make_params(src.params, dataset["params"], "dataset.params"))
     return _cache.spec_key(dataset, dict(split), int(seed), fp)
 
+
+# A problem that builds faster than this is not written to the on-disk cache: reading
+# it back would cost about as much as building it (diabetes: ~1 ms) and every write is a
+# file pair per run. Costly problems (OpenML, large generators, random features) are cached.
+CACHE_MIN_SECONDS = 0.05
 
 _CACHE: "OrderedDict[str, Problem]" = OrderedDict()
 _CACHE_SIZE = 8
@@ -352,16 +387,19 @@ def cached_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) ->
         return hit
     prob = _cache.read(key)
     if prob is None:
+        t0 = time.perf_counter()
         prob = build_problem(dataset, split, seed)
-        _cache.write(key, prob)
+        if time.perf_counter() - t0 >= CACHE_MIN_SECONDS:
+            _cache.write(key, prob)
     return _remember(key, prob)
 
 
 def prepare_problems(specs: Iterable[Any]) -> int:
     """Build every distinct data spec of ``specs`` (RunSpecs) that is not cached yet, then
-    store them all. Raises :class:`DataError` on the first bad one, before anything is
-    written. Returns the number of distinct data specs."""
-    todo: list[tuple[str, Problem]] = []
+    keep them all in this process and store the costly ones in the on-disk cache (those
+    that took at least :data:`CACHE_MIN_SECONDS`). Raises :class:`DataError` on the first
+    bad one, before anything is written. Returns the number of distinct data specs."""
+    todo: list[tuple[str, Problem, float]] = []
     seen: set[str] = set()
     for s in specs:
         key = problem_key(s.dataset, s.split, s.seed)
@@ -370,9 +408,12 @@ def prepare_problems(specs: Iterable[Any]) -> int:
         seen.add(key)
         if key in _CACHE or _cache.read(key) is not None:
             continue
-        todo.append((key, build_problem(s.dataset, s.split, s.seed)))
-    for key, prob in todo:
-        _cache.write(key, prob)
+        t0 = time.perf_counter()
+        prob = build_problem(s.dataset, s.split, s.seed)
+        todo.append((key, prob, time.perf_counter() - t0))
+    for key, prob, took in todo:
+        if took >= CACHE_MIN_SECONDS:
+            _cache.write(key, prob)
         _remember(key, prob)
     return len(seen)
 

@@ -131,11 +131,11 @@ def write(key: str, problem: Problem, root: Path | None = None) -> Path | None:
         arrays["w_true"] = problem.w_true
     buf = io.BytesIO()
     np.savez(buf, **arrays)
-    atomic_write_bytes(npz_path, buf.getvalue())
+    atomic_write_bytes(npz_path, buf.getvalue(), durable=False)  # a cache: a lost file is rebuilt
     meta = {"key": key, "format": CACHE_FORMAT, "name": problem.name, "task": problem.task,
             "noise_level": problem.noise_level, "noise_kind": problem.noise_kind,
             "feature_names": list(problem.feature_names), "has_truth": problem.w_true is not None,
             "preprocessing": problem.preprocessing, "info": problem.info, "loss": problem.loss,
             "shapes": {k: list(v.shape) for k, v in arrays.items()}}
-    atomic_write_bytes(json_path, json.dumps(jsonable(meta), sort_keys=True).encode())
+    atomic_write_bytes(json_path, json.dumps(jsonable(meta), sort_keys=True).encode(), durable=False)
     return json_path

@@ -290,11 +290,11 @@ def critical_difference_diagram(test: RankTest, ranked_by: str) -> Plot:
 # ---------------------------------------------------------------- heat maps
 
 def heatmap_axes(sub: pd.DataFrame, params: Sequence[str]) -> tuple[str, str | None]:
-    """The two parameters a heat map shows: step_scale and batch_size when both vary, else
+    """The two parameters a heat map shows: step_scale and batch when both vary, else
     the two that take the most distinct values (or one, drawn as a single row)."""
     varying = [p for p in params if p in sub.columns and sub[p].dropna().nunique() > 1]
-    if "step_scale" in varying and "batch_size" in varying:
-        return "step_scale", "batch_size"
+    if "step_scale" in varying and "batch" in varying:
+        return "step_scale", "batch"
     varying.sort(key=lambda p: (-sub[p].dropna().nunique(), p != "step_scale", p))
     if not varying:
         return "", None

@@ -10,7 +10,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from stopwise.results.schema import one_line as _one_line, read_trace
+from stopwise.results.schema import FORMER_COLUMNS, one_line as _one_line, read_trace
 from stopwise.results.store import Store
 
 
@@ -83,6 +83,7 @@ def load_runs(root: str | Path = "results", campaign: str | None = None) -> pd.D
             row = {"run_id": meta.get("run_id"), "dataset": cfg.get("dataset", {}).get("name"),
                    "solver": cfg.get("solver"), "seed": cfg.get("seed"), "status": meta.get("status")}
             for k, v in (cfg.get("params") or {}).items():
+                k = FORMER_COLUMNS.get(k, k)  # a run stored before a rename shows today's name
                 if k not in RUN_COLUMNS:
                     row[k] = v
             for k in ("iterations", "passes", "seconds", "best_val_error", "best_val_iteration",

@@ -86,6 +86,12 @@ def one_line(e: BaseException) -> str:
     return " ".join(str(e).split())[:300]
 
 
+# Param columns renamed since traces were first written: {former name: today's name}.
+# The same map as stopwise.config.spec.RENAMED_SOLVER_KEYS (checked by a test); kept
+# here because the results schema sits below the config package.
+FORMER_COLUMNS = {"batch_size": "batch"}
+
+
 def read_trace(path: str | Path, columns: Iterable[str] | None = None, *,
                stacklevel: int = 3) -> pa.Table | None:
     """The columns of ``columns`` (all when None) that the trace at ``path`` has, after
@@ -98,12 +104,20 @@ def read_trace(path: str | Path, columns: Iterable[str] | None = None, *,
         wrong = type_mismatches(schema)
         if wrong:
             raise SchemaError("column types differ from the trace schema: " + ", ".join(wrong))
-        cols = None if columns is None else [c for c in columns if c in schema.names]
-        return pq.read_table(path, columns=cols)
+        former = {old: new for old, new in FORMER_COLUMNS.items() if old in schema.names and new not in schema.names}
+        if columns is None:
+            cols = None
+        else:
+            back = {new: old for old, new in former.items()}
+            cols = [back.get(c, c) for c in columns if c in schema.names or c in back]
+        table = pq.read_table(path, columns=cols)
+        if former:  # a trace written before a param was renamed reads under today's name
+            table = table.rename_columns([former.get(n, n) for n in table.column_names])
+        return table
     except Exception as e:
         warnings.warn(f"skipping unreadable trace {path}: {type(e).__name__}: {one_line(e)}", stacklevel=stacklevel)
         return None
 
 
 __all__ = ["BASE_COLUMNS", "BASE_SCHEMA", "RUN_LEVEL", "RUN_LEVEL_SCHEMA", "STATUSES", "SchemaError",
-           "TRACE_SCHEMA", "read_trace", "type_mismatches"]
+           "FORMER_COLUMNS", "TRACE_SCHEMA", "read_trace", "type_mismatches"]

@@ -16,6 +16,7 @@ import hashlib
 import json
 import os
 import re
+import stat
 import warnings
 from pathlib import Path
 from typing import Any, Iterable
@@ -104,6 +105,61 @@ class Store:
         """A run is done when its file reads back with a final, non-failed status."""
         meta = self.run_meta(run_id)
         return meta is not None and meta.get("status") in ("completed", "diverged")
+
+    def statuses(self, run_ids: Iterable[str]) -> dict[str, str]:
+        """The stored status of each of ``run_ids`` that has a trace (``completed``,
+        ``diverged``, ``failed``, or ``unreadable``), from one listing of the runs folder.
+
+        Statuses are kept in ``index/status.json`` keyed by each file's size, change
+        time and inode, so a campaign whose runs are all stored is checked without opening its
+        traces; a file written or replaced since is read again."""
+        wanted = set(run_ids)
+        entries: dict[str, tuple[int, int, int]] = {}
+        try:
+            with os.scandir(self.runs_dir) as it:
+                for e in it:
+                    name = e.name
+                    if name.endswith(".parquet") and not name.startswith(".") and name[:-8] in wanted:
+                        try:
+                            st = e.stat()
+                        except OSError:  # a link that leads nowhere (or round in a loop)
+                            continue
+                        if not stat.S_ISREG(st.st_mode):  # never opened: a FIFO would block
+                            continue
+                        entries[name[:-8]] = (st.st_size, st.st_mtime_ns, st.st_ino)
+        except FileNotFoundError:
+            return {}
+        index_path = self.root / "index" / "status.json"
+        try:
+            index = json.loads(index_path.read_text())
+            if not isinstance(index, dict):
+                index = {}
+        except (OSError, ValueError):
+            index = {}
+        out: dict[str, str] = {}
+        changed = False
+        for rid, stamp in entries.items():
+            known = index.get(rid)
+            if isinstance(known, list) and len(known) == 4 and tuple(known[:3]) == stamp:
+                out[rid] = str(known[3])
+                continue
+            path = self.run_path(rid)
+            status = "unreadable"
+            if self.inside(path):
+                try:
+                    status = str(self.read_meta(path).get("status", "unreadable"))
+                except Exception:
+                    status = "unreadable"
+            out[rid] = status
+            if status != "unreadable":
+                index[rid] = [*stamp, status]
+                changed = True
+        if changed:
+            try:
+                atomic_write_bytes(index_path, json.dumps(index, separators=(",", ":")).encode(), durable=False)
+            except OSError:  # an index that cannot be written only costs time
+                pass
+        return out
 
     def run_files(self, run_ids: Iterable[str] | None = None) -> list[Path]:
         """Stored trace files (hidden temporary files of writes in progress never match).

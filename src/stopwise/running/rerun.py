@@ -28,7 +28,12 @@ class Comparison:
 
 
 def compare_tables(stored, fresh) -> tuple[float, list[str]]:
+    from stopwise.results.schema import FORMER_COLUMNS
+
     problems: list[str] = []
+    renamed = {o: n for o, n in FORMER_COLUMNS.items() if o in stored.column_names and n not in stored.column_names}
+    if renamed:  # stored before a param was renamed: compare under today's name
+        stored = stored.rename_columns([renamed.get(c, c) for c in stored.column_names])
     if stored.num_rows != fresh.num_rows:
         problems.append(f"{stored.num_rows} stored rows vs {fresh.num_rows} recomputed")
     s_names, f_names = set(stored.column_names), set(fresh.column_names)

@@ -19,7 +19,8 @@ from stopwise.problem.losses import resolve_loss
 from stopwise.problem.problem import Problem
 from stopwise.running.record import Recorder
 from stopwise.solvers import get_solver
-from stopwise.config.spec import RunSpec, halt_missing_column, spec_from_overrides
+from stopwise.config.spec import RunSpec, halt_missing_column
+from stopwise.config.compose import spec_from_overrides
 from stopwise.results.store import Store
 
 
@@ -349,11 +350,12 @@ def run(overrides: list[str] | None = None, root: str | Path | None = None, forc
 
     >>> out = run(["dataset=wellposed", "solver=cgls", "budget.iterations=5"], root=tmp)  # doctest: +SKIP
     """
-    from stopwise.config.spec import compose, spec_from_config
+    from stopwise.config.compose import compose_cached
+    from stopwise.config.spec import spec_from_config
 
-    cfg = compose(list(overrides or []))
+    cfg = compose_cached(list(overrides or []))  # Hydra composes once per group choice in a loop
     spec = spec_from_config(cfg)
-    return run_spec(spec, root if root is not None else cfg.results_root, force=force)
+    return run_spec(spec, root if root is not None else cfg["results_root"], force=force)
 
 
 __all__ = ["execute", "run", "run_spec", "save", "Trace", "RunOutcome", "spec_from_overrides"]

@@ -15,7 +15,7 @@ Initialization (seeded by the run's rng): u_j ~ N(0, init_scale^2 / d I), a_j ~ 
 Update, with eta = step_scale / L and L = ||X||_2^2 / (4 n) the logistic constant of the
 linear model (a scale, not a bound for the network):
 
-    full batch (batch_size = 0 or >= n):  theta_{t+1} = theta_t - eta grad f(theta_t)       (one pass)
+    full batch (batch = 0 or >= n):  theta_{t+1} = theta_t - eta grad f(theta_t)       (one pass)
     minibatch b:                          theta_{t+1} = theta_t - eta grad f_B(theta_t)     (b / n passes)
 
 where the minibatches are consecutive blocks of a fresh random permutation of the rows in
@@ -40,7 +40,8 @@ class ReluNetParams:
     width: int = param(32, Interval(1, None, integer=True), "hidden units m")
     init_scale: float = param(1.0, Interval(0.0, None, low_closed=False), "scale of the Gaussian initialization")
     step_scale: float = param(1.0, Interval(0.0, None, low_closed=False), "step size in units of 1/L")
-    batch_size: int = param(0, Interval(0, None, integer=True), "rows per step; 0 = full batch (gradient descent)")
+    batch: int = param(0, Interval(0, None, integer=True), "rows per step; 0 = full batch (gradient descent)",
+                       stored_as="batch_size")  # run identities keep the former name (same run ids)
 
 
 @dataclass(frozen=True)
@@ -64,7 +65,7 @@ def relu_net_init(train: TrainingSet, params: ReluNetParams, rng: np.random.Gene
     U = rng.standard_normal((m, d)) * (params.init_scale / np.sqrt(d))
     a = rng.standard_normal(m) * (params.init_scale / np.sqrt(m))
     seed = int(rng.integers(0, 2**63 - 1))
-    full = params.batch_size == 0 or params.batch_size >= train.n
+    full = params.batch == 0 or params.batch >= train.n
     return ReluNetState(w=frozen(np.concatenate([U.ravel(), a])), iteration=0, passes=0.0, seed=seed,
                         epoch=0, pos=0, perm=None if full else _perm(seed, 0, train.n))
 
@@ -75,7 +76,7 @@ def relu_net_step(train: TrainingSet, params: ReluNetParams, state: ReluNetState
     >>> from stopwise.problem.problem import TrainingSet
     >>> X = np.array([[1.0, 0.5], [-1.0, 0.2], [0.3, -1.0], [-0.2, 1.0]]); y = np.array([1.0, -1.0, 1.0, -1.0])
     >>> tr = TrainingSet(X, y, L=0.5, task="binary", loss="logistic")
-    >>> p = ReluNetParams(width=3, batch_size=2)
+    >>> p = ReluNetParams(width=3, batch=2)
     >>> s = relu_net_init(tr, p, np.random.default_rng(0))
     >>> s = relu_net_step(tr, p, relu_net_step(tr, p, s))
     >>> s.passes, s.epoch, s.w.shape
@@ -90,7 +91,7 @@ def relu_net_step(train: TrainingSet, params: ReluNetParams, state: ReluNetState
         g += state.w
         return ReluNetState(w=frozen(g), iteration=state.iteration + 1, passes=state.passes + 1.0,
                             seed=state.seed, epoch=state.epoch, pos=0, perm=None)
-    b = params.batch_size
+    b = params.batch
     rows = state.perm[state.pos:state.pos + b]
     _, g = model.logistic_value_and_gradient(train.X[rows], train.y[rows], state.w)
     g *= -eta

@@ -1,28 +1,38 @@
 """Campaigns: expand a sweep, validate every job before anything runs, write the manifest,
-and hand the launch to Hydra's multirun (its sweeper and whichever launcher is chosen).
+and hand the pending runs, in chunks, to Hydra's multirun and whichever launcher is chosen.
 
-The sweep is expanded here with Hydra's own override parser and basic sweeper, so bad
-input in any job is reported as one line before a single file is written, and the
-manifest lists every run id before the first run starts (which makes resume exact).
+Expansion uses Hydra's own override grammar and basic sweeper to list the jobs, composes
+once per distinct combination of config-group choices (:mod:`stopwise.config.compose`)
+and validates each job into a RunSpec, so bad input in any job is reported as one line
+before a single file is written, and the manifest lists every run id before the first
+run starts (which makes resume exact). Launch lists the store once, writes the pending
+runs' identities into chunk files, and asks the launcher for one job per chunk; a chunk
+executes its stored identities without composing again (:mod:`stopwise.sweep.chunks`).
 """
 from __future__ import annotations
 
+import hashlib
+import math
 import re
 import sys
 import time
-from contextlib import contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any
 
+from stopwise.config.compose import Composer, compose_job, hydra_context
 from stopwise.config.spec import (
+    RENAMED_SOLVER_KEYS,
     RunSpec,
     SpecError,
+    TaskMismatch,
     campaigns_dir,
+    canonical_json,
     conf_dir,
     group_options,
     hydra_error_line,
     register_configs,
+    solver_keys,
     spec_from_config,
 )
 from stopwise.results.store import Store, campaign_digest
@@ -30,139 +40,326 @@ from stopwise.results.store import Store, campaign_digest
 NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 
 
-@contextmanager
-def hydra_context() -> Iterator[Any]:
-    """Initialize Hydra on stopwise's config dir once for many compositions."""
-    from hydra import initialize_config_dir
-    from hydra.core.global_hydra import GlobalHydra
-
-    register_configs()
-    with initialize_config_dir(config_dir=str(conf_dir()), version_base="1.3"):
-        yield GlobalHydra.instance()
-
-
-def _compose(overrides: list[str]):
-    from hydra import compose
-    from hydra.errors import HydraException
-    from omegaconf.errors import OmegaConfBaseException
-
-    try:
-        return compose(config_name="config", overrides=overrides)
-    except (HydraException, OmegaConfBaseException) as e:
-        raise SpecError(hydra_error_line(e)) from None
-
-
 def check_data(specs: list[RunSpec]) -> None:
-    """Build each distinct problem once, so data errors (unknown feature, bad row indices,
-    a missing file, an OpenML id that is not cached) are reported before anything is
-    written; then store them in the processed-problem cache for the runs (in any process)."""
+    """Build one problem per distinct data source and split rule (the seed aside), so data
+    errors (unknown feature, bad row indices, a missing file, an OpenML id that is not
+    cached) are reported before anything is written. The other seeds' problems are built
+    by the runs themselves (costly ones go through the on-disk problem cache)."""
     from stopwise.data import prepare_problems
 
+    firsts: dict[str, RunSpec] = {}
+    for s in specs:
+        firsts.setdefault(canonical_json([s.dataset, s.split]), s)
     try:
-        prepare_problems(specs)
+        prepare_problems(list(firsts.values()))
     except MemoryError as e:  # e.g. dataset.params.n=1e15: bad input, not a crash
         raise SpecError(f"a dataset of this sweep does not fit in memory: {' '.join(str(e).split())}") from None
 
 
-def campaign_file(name: str) -> Path:
-    if not NAME.match(name or ""):
-        raise SpecError(f"campaign name {name!r} is invalid: use letters, digits, '_', '-', '.'")
-    path = campaigns_dir() / f"{name}.yaml"
-    if not path.is_file():
-        raise SpecError(f"unknown campaign {name!r}; valid: {', '.join(group_options('campaign')) or '(none)'}")
-    return path
+# ---------------------------------------------------------------- campaign files
 
+@dataclass
+class CampaignFile:
+    name: str
+    path: Path
+    text: str
+
+
+def campaign_file(ref: str) -> CampaignFile:
+    """A campaign by path (``my/trial.yaml``) or by name: ``campaigns/NAME.yaml`` in the
+    working directory first, then the campaigns that ship with stopwise."""
+    if ref.endswith((".yaml", ".yml")):
+        path = Path(ref).expanduser()
+        if not path.is_file():
+            raise SpecError(f"campaign file {ref!r} does not exist")
+        name = path.stem
+        if not NAME.match(name):
+            raise SpecError(f"campaign file name {path.name!r} is invalid: use letters, digits, '_', '-', '.'")
+    else:
+        if not NAME.match(ref or ""):
+            raise SpecError(f"campaign name {ref!r} is invalid: use letters, digits, '_', '-', '.' "
+                            "(or give a campaign file's path, ending in .yaml)")
+        local = Path.cwd() / "campaigns" / f"{ref}.yaml"
+        path = local if local.is_file() else campaigns_dir() / f"{ref}.yaml"
+        name = ref
+        if not path.is_file():
+            here = sorted(p.stem for p in (Path.cwd() / "campaigns").glob("*.yaml"))
+            known = sorted(set(here) | set(group_options("campaign")))
+            raise SpecError(f"unknown campaign {ref!r}; valid: {', '.join(known) or '(none)'} "
+                            "(or a path to a campaign file)")
+    try:
+        text = path.read_text()
+    except (OSError, UnicodeDecodeError) as e:
+        raise SpecError(f"campaign file {str(path)!r} cannot be read: {type(e).__name__}") from None
+    return CampaignFile(name=name, path=path, text=text)
+
+
+_PACKAGE = re.compile(r"^#\s*@package\s+(\S+)\s*$")
+
+
+def _header_package(text: str) -> str:
+    """The ``# @package`` of a config file's leading comments (Hydra's rule); a campaign
+    file without one is global."""
+    for line in text.splitlines():
+        s = line.strip()
+        if not s:
+            continue
+        if not s.startswith("#"):
+            break
+        m = _PACKAGE.match(s)
+        if m:
+            return m.group(1)
+    return "_global_"
+
+
+def load_campaign(cf: CampaignFile) -> tuple[str, dict[str, str], list[dict[str, str]]]:
+    """Register the file's config (without its sweep lists) in Hydra's ConfigStore and
+    return (the name to select it with, the common sweep params, the sub-sweeps)."""
+    from hydra.core.config_store import ConfigStore
+    from omegaconf import OmegaConf
+    from omegaconf.errors import OmegaConfBaseException
+
+    try:
+        doc = OmegaConf.create(cf.text)
+    except (OmegaConfBaseException, ValueError) as e:
+        raise SpecError(f"campaign file {str(cf.path)!r} is not valid YAML: {' '.join(str(e).split())[:200]}") from None
+    if not isinstance(doc, type(OmegaConf.create({}))):
+        raise SpecError(f"campaign file {str(cf.path)!r} must be a mapping")
+    params = OmegaConf.select(doc, "hydra.sweeper.params", default=None)
+    common = {str(k): _sweep_text(v) for k, v in (OmegaConf.to_container(params) or {}).items()} if params is not None else {}
+    subs: list[dict[str, str]] = []
+    if "sweeps" in doc:
+        raw = OmegaConf.to_container(doc.sweeps)
+        if not isinstance(raw, list) or not raw or not all(isinstance(s, dict) for s in raw):
+            raise SpecError(f"campaign file {str(cf.path)!r}: sweeps must be a list of key: values mappings")
+        subs = [{str(k): _sweep_text(v) for k, v in s.items()} for s in raw]
+        del doc["sweeps"]
+    name = f"_file_{hashlib.sha256(cf.text.encode()).hexdigest()[:12]}"
+    ConfigStore.instance().store(group="campaign", name=name, node=doc, package=_header_package(cf.text))
+    return name, common, subs
+
+
+def _sweep_text(v: Any) -> str:
+    if isinstance(v, list):
+        return ",".join(str(x) for x in v)
+    return str(v)
+
+
+# ---------------------------------------------------------------- expansion
 
 @dataclass
 class Expansion:
     name: str
     base: list[str]                 # overrides common to every job (campaign selection + user's)
-    jobs: list[list[str]]           # each job's full override list
-    specs: list[RunSpec]            # one per job (several jobs may share a run id)
+    jobs: list[list[str]]           # each kept job's full override list
+    specs: list[RunSpec]            # one per distinct run id, in the manifest's order
     root: str
     manifest: dict[str, Any]
+    launch_overrides: list[str] = field(default_factory=list)  # hydra... overrides for the launcher
+    threads: int | None = None
+    notes: list[str] = field(default_factory=list)  # one line each: collapsed keys, pairs left out
 
     @property
     def run_ids(self) -> list[str]:
         return self.manifest["run_ids"]
 
 
-def expand(campaign: str | None, overrides: list[str]) -> Expansion:
-    """Expand a campaign plus command-line overrides into validated jobs and a manifest."""
+def sweep_jobs(composer: Composer, lines: list[str]) -> list[list[str]]:
+    """Hydra's basic sweeper's cartesian product of the sweep overrides in ``lines``."""
     from hydra._internal.core_plugins.basic_sweeper import BasicSweeper
-    from hydra.core.override_parser.overrides_parser import OverridesParser
     from hydra.errors import HydraException
-    from omegaconf import OmegaConf
 
-    name = campaign or "adhoc"
-    file_params: dict[str, str] = {}
-    text = ""
-    base = []
-    if campaign:
-        path = campaign_file(campaign)
-        text = path.read_text()
-        doc = OmegaConf.load(path)
-        params = OmegaConf.select(doc, "hydra.sweeper.params", default=None)
-        if params is not None:
-            file_params = {str(k): str(v) for k, v in OmegaConf.to_container(params).items()}
-        base.append(f"+campaign={campaign}")
+    try:
+        parsed = composer.parser.parse_overrides(lines)
+        return [list(j) for j in BasicSweeper.split_arguments(parsed, None)[0]]
+    except HydraException as e:
+        raise SpecError(hydra_error_line(e)) from None
+
+
+def expand(campaign: str | None, overrides: list[str], strict: bool = False) -> Expansion:
+    """Expand a campaign plus command-line overrides into validated runs and a manifest.
+
+    A ``solver.KEY`` that some swept solvers have applies to them and collapses for the
+    others (one note line); a key none of them has is an error. A solver x dataset pair
+    that cannot run (the solver does not handle the dataset's task) is left out with one
+    note line, or refused when ``strict``.
+    """
+    from hydra.core.override_parser.types import OverrideType
+
     for o in overrides:
         if o.lstrip("+~").split("=", 1)[0].strip() == "campaign_id":
             raise SpecError(f"{o!r} is not allowed: campaign_id is set by stopwise sweep from the campaign's hash")
     user = list(overrides)
-    with hydra_context() as gh:
-        parser = OverridesParser.create(config_loader=gh.config_loader())
-        try:
-            parsed = parser.parse_overrides([f"{k}={v}" for k, v in file_params.items()] + base + user)
-            jobs = BasicSweeper.split_arguments(parsed, None)[0]
-        except HydraException as e:
-            raise SpecError(hydra_error_line(e)) from None
-        specs, roots = [], set()
+    cf = campaign_file(campaign) if campaign else None
+    name = cf.name if cf else "adhoc"
+    with hydra_context():
+        common: dict[str, str] = {}
+        subs: list[dict[str, str]] = [{}]
+        base: list[str] = []
+        if cf is not None:
+            reg, common, file_subs = load_campaign(cf)
+            subs = file_subs or [{}]
+            base.append(f"+campaign={reg}")
+        composer = Composer()
+        jobs: list[list[str]] = []
+        for sub in subs:
+            params = {**common, **sub}
+            jobs += sweep_jobs(composer, [f"{k}={v}" for k, v in params.items()] + base + user)
+        specs: dict[str, RunSpec] = {}
+        run_ids: list[str] = []
+        kept: list[list[str]] = []
+        roots, threads, launch = set(), set(), set()
+        collapsed: dict[str, set[str]] = {}
+        applied: set[str] = set()
+        swept_solvers: list[str] = []
+        left_out: dict[tuple[str, str], str] = {}
+        rules: list = []
         for job in jobs:
+            shown = " ".join(x for x in job if not x.startswith("+campaign="))
+
+            def where(e: Exception) -> SpecError:
+                return SpecError(f"{e} (in job: {shown})" if len(jobs) > 1 else str(e))
+
             try:
-                cfg = _compose(list(job))
-                specs.append(spec_from_config(cfg))
+                shaping, values = composer.split(job)
+                b = composer.base(shaping)
+                solver_cfg = b.plain.get("solver") if isinstance(b.plain.get("solver"), dict) else {}
+                solver = str(solver_cfg.get("name"))
+                if solver not in swept_solvers:
+                    swept_solvers.append(solver)
+                use = []
+                for o in values:
+                    key = o.key_or_group
+                    if key.startswith("solver.") and key.count(".") == 1 and o.type == OverrideType.CHANGE:
+                        k = key.split(".", 1)[1]
+                        if k in RENAMED_SOLVER_KEYS and k not in solver_cfg:
+                            raise SpecError(f"solver.{k} is now solver.{RENAMED_SOLVER_KEYS[k]} "
+                                            "(one name for the same setting across solvers)")
+                        if k not in solver_cfg:
+                            collapsed.setdefault(k, set()).add(solver)
+                            continue
+                        applied.add(k)
+                    use.append(o)
+                cfg = composer.apply(b, use)
+                spec = spec_from_config(cfg)
+            except TaskMismatch as e:
+                if strict:
+                    raise where(e) from None
+                left_out[(e.solver, e.dataset)] = e.task
+                continue
             except SpecError as e:
-                shown = " ".join(o for o in job if not o.startswith("+campaign="))
-                raise SpecError(f"{e} (in job: {shown})" if len(jobs) > 1 else str(e)) from None
-            roots.add(str(cfg.results_root))
+                raise where(e) from None
+            kept.append(job)
+            roots.add(str(cfg.get("results_root")))
+            threads.add(cfg.get("threads"))
+            launch.add(tuple(x for x in shaping if composer.parse(x).is_hydra_override()))
+            if spec.stopping not in rules:  # every job's rule, also of jobs that share a run
+                rules.append(spec.stopping)
+            if spec.run_id not in specs:
+                specs[spec.run_id] = spec
+                run_ids.append(spec.run_id)
+    notes: list[str] = []
+    for k in sorted(collapsed):
+        if k not in applied:
+            valid = sorted(set().union(*(solver_keys(s) for s in swept_solvers)))
+            who = ", ".join(swept_solvers)
+            raise SpecError(f"solver.{k} is not a parameter of {'solver' if len(swept_solvers) == 1 else 'any solver of this sweep'} "
+                            f"({who}); valid: {', '.join(valid)}")
+        notes.append(f"solver.{k} does not apply to {', '.join(sorted(collapsed[k]))}: collapsed for "
+                     f"{'it' if len(collapsed[k]) == 1 else 'them'}")
+    if left_out:
+        pairs = ", ".join(f"{s} x {d} ({t})" for (s, d), t in left_out.items())
+        if not kept:
+            raise SpecError(f"no job of this sweep can run: {pairs} (the solver does not handle the dataset's task)")
+        notes.append(f"left out {len(left_out)} solver x dataset {'pair' if len(left_out) == 1 else 'pairs'} "
+                     f"that cannot run: {pairs}; --strict makes this an error")
     if len(roots) != 1:
         raise SpecError("results_root must be the same for every job of a sweep")
-    check_data(specs)
-    run_ids: list[str] = []
-    for s in specs:
-        if s.run_id not in run_ids:
-            run_ids.append(s.run_id)
-    rules = []
-    for s in specs:
-        r = s.stopping
-        if r not in rules:
-            rules.append(r)
+    if len(threads) != 1:
+        raise SpecError("threads must be the same for every job of a sweep")
+    if len(launch) != 1:
+        raise SpecError("hydra launcher overrides must be the same for every job of a sweep")
     digest = campaign_digest(name, run_ids, rules)
+    file_params = dict(common)
     manifest = {
         "campaign_id": digest[:16], "digest": digest, "name": name,
         "definition": {"campaign": campaign, "overrides": user, "sweep_params": file_params,
-                       "campaign_file": text},
-        "run_ids": run_ids, "jobs": len(jobs), "stopping": rules, "created": time.time(),
+                       "campaign_file": cf.text if cf else ""},
+        "run_ids": run_ids, "jobs": len(kept), "stopping": rules, "created": time.time(),
     }
-    return Expansion(name=name, base=base + user, jobs=[list(j) for j in jobs], specs=specs,
-                     root=roots.pop(), manifest=manifest)
+    if subs != [{}]:
+        manifest["definition"]["sub_sweeps"] = subs
+    if notes:
+        manifest["notes"] = notes
+    return Expansion(name=name, base=base + user, jobs=kept, specs=[specs[r] for r in run_ids],
+                     root=roots.pop(), manifest=manifest, launch_overrides=list(launch.pop()),
+                     threads=threads.pop(), notes=notes)
 
 
-def launch(exp: Expansion, extra_hydra: list[str] | None = None) -> None:
-    """Run the expanded sweep through Hydra's multirun (its sweeper and launcher)."""
+# ---------------------------------------------------------------- launch
+
+def quote(value: str) -> str:
+    """A string as one quoted Hydra override value."""
+    return "'" + value.replace("\\", "\\\\").replace("'", "\\'") + "'"
+
+
+def launcher_workers(exp: Expansion) -> tuple[str, int]:
+    """(the launcher's kind, how many chunks it runs at once), read from Hydra's own
+    composition of the sweep's launcher overrides."""
+    with hydra_context():
+        cfg = compose_job(exp.launch_overrides + [f"results_root={quote(exp.root)}"], return_hydra_config=True)
+    target = str(cfg.hydra.launcher.get("_target_", ""))
+    if "joblib" in target.lower():
+        n = int(cfg.hydra.launcher.get("n_jobs") or 1)
+        return "joblib", n if n > 0 else 1
+    if "submitit" in target.lower():
+        return "queue", int(cfg.hydra.launcher.get("array_parallelism") or 1)
+    return "basic", 1
+
+
+def chunk_count(pending: int, kind: str, workers: int, size: int | None = None) -> int:
+    """How many chunks ``pending`` runs are cut into: ``--chunk N`` runs each when given;
+    one for the in-process launcher; four per worker for a local pool (so a slow chunk at
+    the end keeps the others busy); for a queue, one array task per worker at most and at
+    least 16 runs per task (an array task starts a Python process of its own)."""
+    if pending <= 0:
+        return 0
+    if size is not None:
+        return math.ceil(pending / size)
+    if kind == "basic":
+        return 1
+    if kind == "joblib":
+        return min(pending, 4 * workers)
+    return max(1, min(workers, math.ceil(pending / 16)))
+
+
+def launch(exp: Expansion, chunk: int | None = None) -> dict[str, Any]:
+    """Write the manifest, then run the pending runs (missing or failed) through Hydra's
+    multirun, one launcher job per chunk. Returns what was done (``pending``, ``chunks``)."""
     import hydra
 
+    from stopwise.sweep import chunks as plan
     from stopwise.sweep import task as app
 
     store = Store(exp.root)
+    status = store.statuses(exp.run_ids)
+    pending = [s for s in exp.specs if status.get(s.run_id) not in ("completed", "diverged")]
+    if pending:
+        check_data(pending)  # bad data input: one line, before any file is written
     old = store.read_campaign(exp.manifest["campaign_id"])
     if old is not None:  # keep the original creation time on resume
         exp.manifest["created"] = old.get("created", exp.manifest["created"])
     store.write_campaign(exp.manifest)
-    file_params = exp.manifest["definition"]["sweep_params"]
-    argv = ["stopwise", "--multirun", *[f"{k}={v}" for k, v in file_params.items()], *exp.base,
-            f"campaign_id={exp.manifest['campaign_id']}", *(extra_hydra or [])]
+    if not pending:
+        return {"pending": 0, "chunks": 0}
+    kind, workers = launcher_workers(exp)
+    k = chunk_count(len(pending), kind, workers, chunk)
+    cid = exp.manifest["campaign_id"]
+    plan.write_plan(store, cid, pending, k, total=len(exp.run_ids), done_before=len(exp.run_ids) - len(pending))
+    argv = ["stopwise", "--multirun", *exp.launch_overrides, f"results_root={quote(exp.root)}",
+            f"campaign_id={cid}", f"+chunk={','.join(str(i) for i in range(k))}"]
+    if exp.threads is not None:
+        argv.append(f"threads={exp.threads}")
     register_configs()
     saved = sys.argv
     sys.argv = argv
@@ -170,14 +367,14 @@ def launch(exp: Expansion, extra_hydra: list[str] | None = None) -> None:
         hydra.main(config_path=str(conf_dir()), config_name="config", version_base="1.3")(app.task)()
     finally:
         sys.argv = saved
+    return {"pending": len(pending), "chunks": k}
 
 
 def tally(exp_or_manifest: Any, root: str | Path) -> dict[str, int]:
     manifest = exp_or_manifest.manifest if isinstance(exp_or_manifest, Expansion) else exp_or_manifest
-    store = Store(root)
+    status = Store(root).statuses(manifest["run_ids"])
     counts = {"completed": 0, "diverged": 0, "failed": 0, "missing": 0}
     for rid in manifest["run_ids"]:
-        meta = store.run_meta(rid)
-        st = meta.get("status") if meta else "missing"
+        st = status.get(rid, "missing")
         counts[st if st in counts else "failed"] += 1
     return counts

@@ -11,6 +11,7 @@ from typing import Iterator
 from stopwise.running.runner import run_spec
 from stopwise.config.spec import SpecError, spec_from_config
 from stopwise.results.store import Store
+from stopwise.sweep.chunks import THREAD_VARS, limited_threads, outcome_line, worker_threads  # noqa: F401
 
 
 def progress(root: str, campaign_id: str | None) -> str:
@@ -27,57 +28,23 @@ def progress(root: str, campaign_id: str | None) -> str:
     return f"[{done:>{width}}/{len(ids)}] "
 
 
-def outcome_line(out) -> str:
-    bv = out.best_val_error
-    best = f"best val {bv:.4g} @ {out.best_val_iteration}" if isinstance(bv, float) and math.isfinite(bv) else "no val"
-    what = "skipped (done)" if out.skipped else out.status
-    extra = f"  ({out.message})" if out.status != "completed" and out.message else ""
-    return (f"{what:<14} {out.label}  {out.iterations} it  {best}  {out.seconds:.3f} s  "
-            f"{out.run_id}{extra}")
-
-
-THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
-               "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
-
-
-def worker_threads(cfg) -> int | None:
-    """BLAS/OpenMP threads for one run in this worker: ``threads`` from the config (set by
-    ``stopwise sweep --jobs N`` to cores // N), else the CPUs SLURM gave the task, else None
-    (the libraries' own default)."""
-    t = cfg.get("threads") if hasattr(cfg, "get") else None
-    if t is not None:
-        return int(t)
-    slurm = os.environ.get("SLURM_CPUS_PER_TASK", "")
-    return int(slurm) if slurm.isdigit() and int(slurm) > 0 else None
-
-
-@contextmanager
-def limited_threads(n: int | None) -> Iterator[None]:
-    """Cap the BLAS/OpenMP pools at ``n`` threads for the duration (threadpoolctl), and set
-    the usual environment variables for libraries loaded later in this process. The thread
-    counts in force are what the runner records in each trace's metadata."""
-    if n is None:
-        yield
-        return
-    saved = {var: os.environ.get(var) for var in THREAD_VARS}
-    os.environ.update({var: str(n) for var in THREAD_VARS})
-    from threadpoolctl import threadpool_limits
-
-    try:
-        with threadpool_limits(limits=n):
-            yield
-    finally:
-        for var, old in saved.items():
-            if old is None:
-                os.environ.pop(var, None)
-            else:
-                os.environ[var] = old
-
-
 def task(cfg) -> str:
-    """Run one job of a sweep. Never raises for a run's own failure: Hydra stops a multirun
-    (and skips its end-of-sweep callbacks) when a job raises, so every failure is caught here,
-    stored as status ``failed`` when possible, and counted by ``stopwise sweep`` at the end."""
+    """Run one job of a sweep: a chunk of stored run identities (what ``stopwise sweep``
+    launches), or one composed config (Hydra's multirun driven directly). Never raises for
+    a run's own failure: Hydra stops a multirun (and skips its end-of-sweep callbacks) when
+    a job raises, so every failure is caught here, stored as status ``failed`` when
+    possible, and counted by ``stopwise sweep`` at the end."""
+    chunk = cfg.get("chunk") if hasattr(cfg, "get") else None
+    if chunk is not None:
+        from stopwise.results.store import StoreError
+        from stopwise.sweep.chunks import run_chunk
+
+        try:
+            counts = run_chunk(str(cfg.results_root), str(cfg.campaign_id), int(chunk), worker_threads(cfg))
+        except StoreError as e:
+            print(f"error: {e}", file=sys.stderr, flush=True)
+            return "invalid"
+        return ", ".join(f"{v} {k}" for k, v in sorted(counts.items()))
     try:
         spec = spec_from_config(cfg)
     except SpecError as e:  # pre-validated by the CLI; reached only when Hydra is driven directly

@@ -60,7 +60,7 @@ def parse_method(method: str) -> tuple[str, dict[str, Any]]:
 def protocol_problem(protocol: str):
     """The Problem a protocol string of Hydra overrides builds."""
     from stopwise.data import build_problem
-    from stopwise.config.spec import spec_from_overrides
+    from stopwise.config.compose import spec_from_overrides
 
     spec = spec_from_overrides(shlex.split(protocol))
     return build_problem(spec.dataset, spec.split, spec.seed)

@@ -1,0 +1,233 @@
+"""Chunked launch: the pending runs of a campaign cut into chunk files of stored
+identities, one launcher job per chunk, and one shared progress count.
+
+Layout, under ``RESULTS/jobs/CAMPAIGN_ID/`` (Hydra's sweep folder for the campaign):
+
+- ``chunks/K.json``: ``{"chunk": K, "runs": [[run_id, identity], ...]}``, written before
+  the launch. A chunk rebuilds each RunSpec from its identity (plain data, validated like
+  a fresh config; nothing is imported or executed from the file) and checks that it
+  hashes to the listed run id.
+- ``progress.json``: the launch's start time, the campaign's run count, the runs stored
+  before the launch and the runs finished since; updated under an exclusive lock by
+  every worker, so each progress line carries an exact count.
+
+Runs that share a problem are put next to each other, so a chunk builds each problem once.
+"""
+from __future__ import annotations
+
+import json
+import math
+import os
+import sys
+import time
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any, Iterator
+
+from stopwise.config.spec import RunSpec, SpecError, canonical_json, spec_from_identity
+from stopwise.core.files import atomic_write_bytes, batched_sync
+from stopwise.results.store import Store, StoreError
+
+
+def jobs_dir(store: Store, campaign_id: str) -> Path:
+    return store.root / "jobs" / campaign_id
+
+
+def chunk_path(store: Store, campaign_id: str, k: int) -> Path:
+    return jobs_dir(store, campaign_id) / "chunks" / f"{int(k)}.json"
+
+
+def order_by_problem(specs: list[RunSpec]) -> list[RunSpec]:
+    """Runs of the same data (dataset, split, seed) next to each other, first-seen order kept."""
+    groups: dict[str, list[RunSpec]] = {}
+    for s in specs:
+        groups.setdefault(canonical_json([s.dataset, s.split, s.seed]), []).append(s)
+    return [s for g in groups.values() for s in g]
+
+
+def write_plan(store: Store, campaign_id: str, pending: list[RunSpec], k: int, total: int,
+               done_before: int) -> list[int]:
+    """Cut ``pending`` into ``k`` contiguous chunks of near-equal size, write one chunk file
+    each (replacing any of an earlier launch) and reset the progress count. Returns the sizes."""
+    folder = jobs_dir(store, campaign_id) / "chunks"
+    if folder.is_dir():
+        for old in folder.glob("*.json"):
+            old.unlink()
+    ordered = order_by_problem(pending)
+    sizes = [len(ordered) // k + (1 if i < len(ordered) % k else 0) for i in range(k)]
+    at = 0
+    for i, n in enumerate(sizes):
+        runs = [[s.run_id, s.identity()] for s in ordered[at:at + n]]
+        at += n
+        atomic_write_bytes(chunk_path(store, campaign_id, i),
+                           json.dumps({"chunk": i, "runs": runs}, separators=(",", ":")).encode(), durable=False)
+    atomic_write_bytes(jobs_dir(store, campaign_id) / "progress.json",
+                       json.dumps({"start": time.time(), "total": total, "before": done_before,
+                                   "pending": len(pending), "done": 0}).encode(), durable=False)
+    return sizes
+
+
+def read_chunk(store: Store, campaign_id: str, k: int) -> list[tuple[str, Any]]:
+    path = chunk_path(store, campaign_id, k)
+    try:
+        doc = json.loads(path.read_text())
+        runs = doc["runs"]
+        if not isinstance(runs, list) or not all(isinstance(r, list) and len(r) == 2 for r in runs):
+            raise ValueError("runs is not a list of [run_id, identity] pairs")
+    except (OSError, ValueError, KeyError, TypeError) as e:
+        raise StoreError(f"chunk file {path} is unreadable: {type(e).__name__}: {e}") from None
+    return [(str(r[0]), r[1]) for r in runs]
+
+
+@contextmanager
+def _locked(path: Path) -> Iterator[Any]:
+    import fcntl
+
+    fd = os.open(path, os.O_RDWR)
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX)
+        with os.fdopen(os.dup(fd), "r+") as fh:
+            yield fh
+    finally:
+        os.close(fd)  # closing the last descriptor releases the lock
+
+
+def count_one(store: Store, campaign_id: str) -> dict[str, Any] | None:
+    """Add one finished run to the launch's progress count; the count after it, or None
+    when there is no progress file (Hydra driven directly) or it cannot be locked."""
+    path = jobs_dir(store, campaign_id) / "progress.json"
+    try:
+        with _locked(path) as fh:
+            state = json.loads(fh.read() or "{}")
+            state["done"] = int(state.get("done", 0)) + 1
+            fh.seek(0)
+            fh.write(json.dumps(state))
+            fh.truncate()
+            return state
+    except (OSError, ValueError, ImportError):
+        return None
+
+
+def eta_text(seconds: float) -> str:
+    """Time left, rounded to the second.
+
+    >>> eta_text(42.4), eta_text(125), eta_text(3 * 3600 + 60), eta_text(float("nan"))
+    ('42s left', '2m05s left', '3h01m left', '')
+    """
+    if not math.isfinite(seconds) or seconds < 0:
+        return ""
+    s = int(round(seconds))
+    if s >= 3600:
+        return f"{s // 3600}h{(s % 3600) // 60:02d}m left"
+    if s >= 60:
+        return f"{s // 60}m{s % 60:02d}s left"
+    return f"{s}s left"
+
+
+def progress_prefix(state: dict[str, Any] | None) -> tuple[str, str]:
+    """(``[done/total] ``, ``  ~time left``) from a progress count: ``done`` counts the
+    runs stored before this launch too; the time left extrapolates this launch's pace.
+
+    >>> import time
+    >>> progress_prefix({"start": time.time() - 10, "total": 120, "before": 20, "pending": 100, "done": 10})
+    ('[ 30/120] ', '  ~1m30s left')
+    """
+    if not state:
+        return "", ""
+    total = int(state.get("total", 0))
+    done = int(state.get("before", 0)) + int(state.get("done", 0))
+    width = len(str(total))
+    finished, pending = int(state.get("done", 0)), int(state.get("pending", 0))
+    elapsed = time.time() - float(state.get("start", time.time()))
+    left = elapsed / finished * (pending - finished) if finished else math.nan
+    eta = eta_text(left) if finished < pending else ""
+    return f"[{min(done, total):>{width}}/{total}] ", (f"  ~{eta}" if eta else "")
+
+
+def outcome_line(out) -> str:
+    bv = out.best_val_error
+    best = f"best val {bv:.4g} @ {out.best_val_iteration}" if isinstance(bv, float) and math.isfinite(bv) else "no val"
+    what = "skipped (done)" if out.skipped else out.status
+    extra = f"  ({out.message})" if out.status != "completed" and out.message else ""
+    return (f"{what:<14} {out.label}  {out.iterations} it  {best}  {out.seconds:.3f} s  "
+            f"{out.run_id}{extra}")
+
+
+THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
+               "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+
+
+def worker_threads(cfg) -> int | None:
+    """BLAS/OpenMP threads for one run in this worker: ``threads`` from the config (set by
+    ``stopwise sweep --jobs N`` to cores // N), else the CPUs SLURM gave the task, else None
+    (the libraries' own default)."""
+    t = cfg.get("threads") if hasattr(cfg, "get") else None
+    if t is not None:
+        return int(t)
+    slurm = os.environ.get("SLURM_CPUS_PER_TASK", "")
+    return int(slurm) if slurm.isdigit() and int(slurm) > 0 else None
+
+
+@contextmanager
+def limited_threads(n: int | None) -> Iterator[None]:
+    """Cap the BLAS/OpenMP pools at ``n`` threads for the duration (threadpoolctl), and set
+    the usual environment variables for libraries loaded later in this process. The thread
+    counts in force are what the runner records in each trace's metadata."""
+    if n is None:
+        yield
+        return
+    saved = {var: os.environ.get(var) for var in THREAD_VARS}
+    os.environ.update({var: str(n) for var in THREAD_VARS})
+    from threadpoolctl import threadpool_limits
+
+    try:
+        with threadpool_limits(limits=n):
+            yield
+    finally:
+        for var, old in saved.items():
+            if old is None:
+                os.environ.pop(var, None)
+            else:
+                os.environ[var] = old
+
+
+def run_chunk(root: str, campaign_id: str, k: int, threads: int | None = None) -> dict[str, int]:
+    """Execute chunk ``k`` of a launch: every run in it that is not stored yet, one after
+    another; a run's failure is stored as a failed run and never stops the others.
+    Returns the count per outcome."""
+    from stopwise.running.runner import run_spec
+
+    store = Store(root)
+    counts: dict[str, int] = {}
+    runs = read_chunk(store, campaign_id, k)
+    with limited_threads(threads), batched_sync():
+        for run_id, ident in runs:
+            try:
+                spec = spec_from_identity(ident)
+                if spec.run_id != run_id:
+                    raise SpecError(f"chunk {k}: identity of {run_id} hashes to {spec.run_id}")
+            except SpecError as e:
+                print(f"failed         {run_id}  (invalid chunk entry: {e})", file=sys.stderr, flush=True)
+                counts["invalid"] = counts.get("invalid", 0) + 1
+                continue
+            try:
+                out = run_spec(spec, root, store=store)
+            except Exception as e:  # the store itself failed (disk full, permissions): report, go on
+                print(f"failed         {spec.label()}  {spec.run_id}  (could not store the trace: "
+                      f"{type(e).__name__}: {e})".replace("\n", " "), file=sys.stderr, flush=True)
+                counts["failed"] = counts.get("failed", 0) + 1
+                continue
+            what = "skipped" if out.skipped else out.status
+            counts[what] = counts.get(what, 0) + 1
+            if out.skipped:  # stored by an earlier attempt of this chunk (a requeue): counted then
+                continue
+            try:
+                head, tail = progress_prefix(count_one(store, campaign_id))
+                print(head + outcome_line(out) + tail, flush=True)
+            except Exception:  # a progress line must never fail a run
+                pass
+    return counts
+
+
+__all__ = ["chunk_path", "count_one", "order_by_problem", "progress_prefix", "read_chunk", "run_chunk",
+           "write_plan"]
