@@ -65,6 +65,20 @@ def test_keys_and_pairs_that_cannot_apply_are_one_line_exit_2_and_write_nothing(
     assert files_under(tmp_path) == []
 
 
+@pytest.mark.parametrize("text,needle", [
+    ("# @package _global_\nfoo: 1\n", "bad.yaml: foo: Key 'foo' not in 'StopwiseConfig'"),
+    ("solver:\n  step_scale: fast\n", "bad.yaml: solver.step_scale: Value 'fast' of type 'str' could not be converted"),
+    ("budget:\n  iterations: [\n", "bad.yaml' is not valid YAML"),
+    ("sweeps: 3\n", "sweeps must be a list of key: values mappings"),
+])
+def test_a_bad_campaign_file_is_one_line_naming_the_file(tmp_path, capsys, monkeypatch, text, needle):
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "bad.yaml").write_text(text)
+    code, out, err = sweep(capsys, "bad.yaml", f"results_root={tmp_path / 'res'}")
+    assert code == 2 and needle in err and err.count("\n") == 1, err
+    assert files_under(tmp_path) == ["bad.yaml"]
+
+
 def test_the_former_name_is_refused_by_stopwise_run_too(capsys):
     assert main(["run", "solver=relu_net", "dataset=iris_setosa_versicolor", "solver.batch_size=4"]) == 2
     err = capsys.readouterr().err

@@ -566,6 +566,10 @@ def group_options(group: str) -> list[str]:
 def hydra_error_line(e: BaseException) -> str:
     """Turn a Hydra / OmegaConf composition error into one line."""
     msg = str(e)
+    m = re.match(r"In '([^']+)': \w+ raised while composing config:\s*\n(.*?)(?:\n\s+full_key: (\S+))?(?:\n|$)", msg)
+    if m:  # a value in a config file that its schema refuses: the file, the key, the reason
+        where, why, key = m.group(1), m.group(2).strip(), m.group(3)
+        return f"{where}: {key + ': ' if key else ''}{why}"
     m = re.search(r"Could not find '([^']+)/([^'/]+)'", msg)
     if m:
         group, option = m.group(1), m.group(2)

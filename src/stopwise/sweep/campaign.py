@@ -117,11 +117,10 @@ def load_campaign(cf: CampaignFile) -> tuple[str, dict[str, str], list[dict[str,
     return (the name to select it with, the common sweep params, the sub-sweeps)."""
     from hydra.core.config_store import ConfigStore
     from omegaconf import OmegaConf
-    from omegaconf.errors import OmegaConfBaseException
 
     try:
         doc = OmegaConf.create(cf.text)
-    except (OmegaConfBaseException, ValueError) as e:
+    except Exception as e:  # YAML syntax (yaml.YAMLError) or what OmegaConf refuses
         raise SpecError(f"campaign file {str(cf.path)!r} is not valid YAML: {' '.join(str(e).split())[:200]}") from None
     if not isinstance(doc, type(OmegaConf.create({}))):
         raise SpecError(f"campaign file {str(cf.path)!r} must be a mapping")
@@ -129,7 +128,8 @@ def load_campaign(cf: CampaignFile) -> tuple[str, dict[str, str], list[dict[str,
     common = {str(k): _sweep_text(v) for k, v in (OmegaConf.to_container(params) or {}).items()} if params is not None else {}
     subs: list[dict[str, str]] = []
     if "sweeps" in doc:
-        raw = OmegaConf.to_container(doc.sweeps)
+        raw = doc.sweeps
+        raw = OmegaConf.to_container(raw) if OmegaConf.is_config(raw) else raw
         if not isinstance(raw, list) or not raw or not all(isinstance(s, dict) for s in raw):
             raise SpecError(f"campaign file {str(cf.path)!r}: sweeps must be a list of key: values mappings")
         subs = [{str(k): _sweep_text(v) for k, v in s.items()} for s in raw]
@@ -248,6 +248,8 @@ def expand(campaign: str | None, overrides: list[str], strict: bool = False) -> 
                 left_out[(e.solver, e.dataset)] = e.task
                 continue
             except SpecError as e:
+                if cf is not None:  # name the campaign's file, not its registered copy
+                    e = SpecError(str(e).replace(f"campaign/{reg}", str(cf.path)))
                 raise where(e) from None
             kept.append(job)
             roots.add(str(cfg.get("results_root")))
