@@ -2,7 +2,7 @@
 
     step cost      logistic / softmax / hinge-diagonal / normalized / network steps against
                    one least-squares gradient-descent step on the same matrix
-    record cost    one classification row of the Recorder against one regression row
+    record cost    one classification row of the recorder against one regression row
 
 Run by hand: ``python benchmarks/bench_classification.py``. No assertions; prints ratios.
 """
@@ -13,7 +13,7 @@ import timeit
 import numpy as np
 
 from stopwise.problem.problem import Problem, TrainingSet
-from stopwise.running.record import Recorder
+from stopwise.running.record import make_recorder
 from stopwise.solvers import get_solver
 
 N, D, K = 4000, 100, 5
@@ -65,13 +65,13 @@ def main() -> None:
         return Problem(name="bench", task=task, X_train=X[tr], y_train=y[tr], X_val=X[va], y_val=y[va],
                        X_test=X[te], y_test=y[te])
 
-    reg = Recorder(problem("regression", X @ w0), capacity=REPEAT * NUMBER + 10)
+    reg = make_recorder(problem("regression", X @ w0), capacity=REPEAT * NUMBER + 10)
     peer_rec = best(lambda: reg.record(0, 0.0, 0.0, w0))
     pb = problem("binary", yb)
-    cls = Recorder(pb, capacity=REPEAT * NUMBER + 10)  # computes the hard-margin reference once, here
+    cls = make_recorder(pb, capacity=REPEAT * NUMBER + 10)  # computes the hard-margin reference once, here
     pm = problem("multiclass", ym)
     Wm = rng.standard_normal(D * K)
-    mc = Recorder(pm, capacity=REPEAT * NUMBER + 10)
+    mc = make_recorder(pm, capacity=REPEAT * NUMBER + 10)
     print(f"record cost relative to one regression row ({peer_rec * 1e6:.0f} us)")
     print(f"  {'binary logistic row (separable: ' + str(cls.info.get('separable')) + ')':<40} "
           f"{best(lambda: cls.record(0, 0.0, 0.0, w0)) / peer_rec:6.2f}x")

@@ -6,6 +6,8 @@ import os
 import sys
 from pathlib import Path
 
+from stopwise.core.errors import StopwiseError
+
 EXIT_BAD_INPUT = 2
 
 USAGE = """stopwise COMMAND [args]
@@ -34,7 +36,7 @@ commands:
 """
 
 
-class BadArguments(ValueError):
+class BadArguments(StopwiseError, ValueError):
     """A subcommand's options could not be parsed (one line)."""
 
 

@@ -58,12 +58,3 @@ def test_every_registry_refuses_duplicates_and_names_its_entries(index):
     msg = str(e.value)
     assert isinstance(e.value, SpecError) and "\n" not in msg
     assert msg.startswith("unknown ") and all(n in msg for n in reg.names())
-
-
-def test_the_sparsity_metric_set_is_registered_by_the_running_package():
-    import subprocess
-    import sys
-
-    out = subprocess.run([sys.executable, "-c", "import stopwise.running, stopwise.running.record as r; "
-                          "print(','.join(r.METRIC_SETS))"], capture_output=True, text=True, check=True)
-    assert out.stdout.strip() == "sparsity"

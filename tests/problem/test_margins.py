@@ -12,7 +12,7 @@ import stopwise
 from stopwise.cli import main as cli_main
 from stopwise.problem.margins import hard_margin, is_separable, normalized_margin, reference
 from stopwise.problem.problem import Problem
-from stopwise.running.record import Recorder
+from stopwise.running.record import make_recorder
 
 from helpers.classif_refs import iris_setosa_versicolor, separable_gaussian, slsqp_hard_margin, svc_hard_margin
 
@@ -68,7 +68,7 @@ def test_recorder_binary_columns_against_references():
     X, y = iris_setosa_versicolor()
     p = _problem(X, y)
     w_svm = slsqp_hard_margin(p.X_train, p.y_train)
-    rec = Recorder(p)
+    rec = make_recorder(p)
     rng = np.random.default_rng(1)
     w = rng.standard_normal(5)
     for v in (w, w_svm, 3.0 * w_svm):
@@ -93,7 +93,7 @@ def test_recorder_binary_columns_against_references():
     assert cols["svm_dist"][0] == pytest.approx(np.linalg.norm(w / np.linalg.norm(w) - u), rel=1e-6)
     assert rec.info["separable"] and rec.info["svm_margin"] == pytest.approx(1 / np.linalg.norm(w_svm), rel=1e-5)
     # hinge loss per split follows the run's loss (sklearn.metrics.hinge_loss)
-    rh = Recorder(p, loss="hinge")
+    rh = make_recorder(p, loss="hinge")
     rh.record(0, 0.0, 0.0, w)
     assert rh.result()["test_loss"][0] == pytest.approx(hinge_loss(p.y_test, p.X_test @ w))
 
@@ -103,7 +103,7 @@ def test_recorder_multiclass_columns():
     X = (X - X.mean(0)) / X.std(0)
     p = _problem(X, t.astype(float), task="multiclass")
     W = np.random.default_rng(2).standard_normal(13 * 3)
-    rec = Recorder(p)
+    rec = make_recorder(p)
     rec.record(0, 0.0, 0.0, W)
     cols = rec.result()
     S = p.X_test @ W.reshape(13, 3)
@@ -152,7 +152,7 @@ def test_reference_skipped_above_the_row_limit(monkeypatch):
     X, y = separable_gaussian(n=60)
     monkeypatch.setattr(margins, "REFERENCE_MAX_ROWS", 20)
     p = _problem(X, y)
-    rec = Recorder(p)
+    rec = make_recorder(p)
     rec.record(0, 0.0, 0.0, np.ones(X.shape[1]))
     assert rec.info["separable"] is None and "skipped" in rec.info["svm_method"]
     assert math.isnan(rec.result()["svm_dist"][0]) and not math.isnan(rec.result()["margin"][0])

@@ -7,7 +7,7 @@ import pytest
 
 import stopwise
 from helpers.biased import as_problem, final, piecewise_constant, slsqp_elastic_limit, training, underdetermined
-from stopwise.running.record import Recorder
+from stopwise.running.record import make_recorder
 from stopwise.running.runner import execute
 from stopwise.config.compose import spec_from_overrides
 
@@ -84,7 +84,7 @@ def test_no_support_columns_without_a_truth(root):
 def test_state_metric_columns_may_not_shadow_recorder_columns():
     X, y, w = underdetermined()
     with pytest.raises(ValueError, match="clashes"):
-        Recorder(as_problem(X, y, w), state_metrics={"w_norm": lambda s: 0.0})
+        make_recorder(as_problem(X, y, w), state_metrics={"w_norm": lambda s: 0.0})
 
 
 # ---------------------------------------------------------------- early stopping

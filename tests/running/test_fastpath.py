@@ -8,7 +8,7 @@ import stopwise
 from stopwise.running import fastpath
 from stopwise.data import build_problem
 from stopwise.problem.problem import TrainingSet
-from stopwise.running.record import Recorder
+from stopwise.running.record import make_recorder
 from stopwise.running.rerun import rerun_one
 from stopwise.running.runner import execute
 from stopwise.config.compose import spec_from_overrides
@@ -142,8 +142,8 @@ def test_cancellation_guard_keeps_the_digits_near_interpolation():
     the scale) and uses the compressed rows (QR of [X y]), so it agrees with the rows
     evaluated directly (numpy) to rounding of the residual itself."""
     p = _problem("dataset=wellposed", "dataset.params.noise=none")
-    fast = Recorder(p, statistics="gram")
-    plain = Recorder(p, statistics=None)
+    fast = make_recorder(p, statistics="gram")
+    plain = make_recorder(p, statistics=None)
     assert fast.statistics.splits == ("train", "val", "test") and plain.statistics is None
     w_ls = np.linalg.lstsq(p.X_train, p.y_train, rcond=None)[0]
     rng = np.random.default_rng(1)

@@ -9,7 +9,7 @@ from sklearn.metrics import log_loss
 import stopwise
 from stopwise.problem.models import TwoLayerReLU
 from stopwise.problem.problem import TrainingSet
-from stopwise.running.record import Recorder
+from stopwise.running.record import make_recorder
 from stopwise.solvers import get_solver
 
 from helpers.classif_refs import iris_setosa_versicolor
@@ -53,7 +53,7 @@ def test_recorder_uses_the_network_margin():
                 X_test=X[3::4], y_test=y[3::4])
     model = TwoLayerReLU(5, 6)
     theta = np.random.default_rng(3).standard_normal(model.dim)
-    rec = Recorder(p, loss="logistic", model=model)
+    rec = make_recorder(p, loss="logistic", model=model)
     rec.record(0, 0.0, 0.0, theta)
     cols = rec.result()
     s = model.scores(p.X_train, theta)

@@ -447,6 +447,14 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
     ``traces`` is a DataFrame with run_id, iteration, passes, test_error for (at least)
     the tuned runs, or a function ``run_ids -> DataFrame`` that reads only those. Without
     it, passes to target and the profiles are left empty.
+
+    The stages, each a function from table to table (``notes`` collects what a stage
+    left out and why): :func:`tune` (one tuned run per dataset, method and seed, at the
+    iterate the rule selected), :func:`_with_levels` (the target level), :func:`_with_passes`
+    (the target and the passes each tuned run needed to reach it), :func:`_with_explicit`
+    (explicit baselines as methods), :func:`summarize` (per dataset and method),
+    :func:`_with_reference_gap`, :func:`_rank_scores` and :func:`_rank_tests` (order), and
+    :func:`_profiles`.
     """
     target = check_options(target=target, eps=eps, tau=tau, by=by, alpha=alpha, confidence=confidence,
                            tuning=tuning, unit=unit)
@@ -454,8 +462,26 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
     pcols = param_columns(selections, tuple(method_by), params)
     rep = tune(selections, rule, method_by, pcols, tuning)
     rep["kind"] = "iterative"
+    rep = _with_levels(rep, target, baselines, references, notes)
+    rep = _with_passes(rep, target, _tuned_traces(rep, traces, target, notes))
+    both = _with_explicit(rep, baselines if include_baselines else None)
+    table = summarize(both, confidence)
+    table = _with_reference_gap(table, rep["dataset"], references, notes)
+    scores = _rank_scores(table, by, include_baselines, notes)
+    ranks, test = _rank_tests(scores, alpha, notes)
+    if not ranks.empty:
+        table["average_rank"] = table["method"].map(ranks.mean(axis=0))
+    costs, perf, dprof = _profiles(both, table, unit)
+    return Ranking(rule=rule, by=by, target=target, tuning=tuning, confidence=confidence, unit=unit,
+                   replicates=both.reset_index(drop=True), table=table, ranks=ranks, test=test, costs=costs,
+                   performance=perf, data=dprof, params=tuple(pcols), notes=notes)
 
-    # ---- target per (dataset, seed), and passes to reach it along each tuned run's path
+
+def _with_levels(rep: pd.DataFrame, target: Target, baselines: pd.DataFrame | None,
+                 references: pd.DataFrame | None, notes: list[str]) -> pd.DataFrame:
+    """Add ``f_l``, the level the target loosens, per (dataset, seed): the best explicit
+    baseline (with ``f_l_method``), the published reference score of the dataset, the
+    target's fixed value, or NaN for no target."""
     rep["f_l"] = np.nan
     if target.kind == "baseline":
         lv = baseline_levels(baselines)
@@ -470,18 +496,36 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
                                             on="dataset", how="left")
     elif target.kind == "value":
         rep["f_l"] = float(target.value)
+    return rep
+
+
+def _tuned_traces(rep: pd.DataFrame, traces: pd.DataFrame | Callable | None, target: Target,
+                  notes: list[str]) -> pd.DataFrame | None:
+    """The traces of the tuned runs (``traces`` itself, or what the function reads for their
+    ids); None when there is no target, no tuned run or no traces."""
+    run_ids = _tuned_ids(rep)
+    if target.kind == "none" or not run_ids:
+        return None
+    if traces is None:
+        notes.append("no traces given: passes to target not computed")
+        return None
+    tr = traces(run_ids) if callable(traces) else traces
+    _require(tr, ("run_id", "passes", "test_error"), "the trace table")
+    return tr
+
+
+def _tuned_ids(rep: pd.DataFrame) -> list[str]:
+    return rep.loc[rep["valid"].to_numpy(bool), "run_id"].astype(str).unique().tolist()
+
+
+def _with_passes(rep: pd.DataFrame, target: Target, tr: pd.DataFrame | None) -> pd.DataFrame:
+    """Add ``f_0`` (the tuned run's first recorded test error), ``target``,
+    ``reached_at_stop`` (the selected iterate meets the target) and ``passes_to_target``
+    along each tuned run's trace (inf on a seed where the method has no valid selection)."""
     valid = rep["valid"].to_numpy(bool)
-    run_ids = rep.loc[valid, "run_id"].astype(str).unique().tolist()
-    tr = None
-    if target.kind != "none" and run_ids:
-        if traces is None:
-            notes.append("no traces given: passes to target not computed")
-        else:
-            tr = traces(run_ids) if callable(traces) else traces
-            _require(tr, ("run_id", "passes", "test_error"), "the trace table")
     f0 = pd.Series(dtype=float)
     if tr is not None:
-        t0 = tr[tr["run_id"].isin(run_ids)]
+        t0 = tr[tr["run_id"].isin(_tuned_ids(rep))]
         if "iteration" in t0.columns:
             t0 = t0.sort_values(["run_id", "iteration"], kind="stable")
         f0 = t0.groupby("run_id", sort=False)["test_error"].first()
@@ -498,9 +542,14 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
         rep["passes_to_target"] = rep["run_id"].map(hit).astype(float)
         # a seed on which the method found no valid selection never reaches the target
         rep.loc[~rep["valid"] & rep["f_l"].notna(), "passes_to_target"] = math.inf
+    return rep
 
-    # ---- explicit baselines as methods of their own (error only; no data passes)
-    ex = _explicit_replicates(baselines) if include_baselines else pd.DataFrame()
+
+def _with_explicit(rep: pd.DataFrame, baselines: pd.DataFrame | None) -> pd.DataFrame:
+    """The replicates of the iterative methods followed by the explicit baselines as
+    methods of their own (kind ``explicit``: error only, no data passes; the target of
+    the same dataset and seed) on the datasets ``rep`` has."""
+    ex = _explicit_replicates(baselines)
     if not ex.empty:
         ex = ex[ex["dataset"].isin(rep["dataset"].unique())]
         lv = rep.groupby(["dataset", "seed"])["target"].first()
@@ -513,13 +562,18 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
     both["valid"] = both["valid"].astype(bool)
     if "reached_at_stop" in both.columns:
         both["reached_at_stop"] = both["reached_at_stop"].fillna(False).astype(bool)
-    table = summarize(both, confidence)
+    return both
 
-    # ---- reference gap
+
+def _with_reference_gap(table: pd.DataFrame, datasets: pd.Series, references: pd.DataFrame | None,
+                        notes: list[str]) -> pd.DataFrame:
+    """Add the published reference of each dataset (``reference``, ``reference_method``,
+    ``reference_source``), ``gap`` (test error minus reference) and ``rel_gap``; a dataset
+    of ``datasets`` whose references all use another protocol gets a note."""
     refs = reference_levels(references)
     if references is not None and "protocol_matches" in references.columns:
         other = sorted(set(references.loc[~references["protocol_matches"].astype(bool), "dataset"].astype(str))
-                       & set(map(str, rep["dataset"])) - set(map(str, refs["dataset"])))
+                       & set(map(str, datasets)) - set(map(str, refs["dataset"])))
         if other:
             notes.append("published references for " + ", ".join(other) + " use another split or preprocessing "
                          "than this campaign (see their protocol): no gap to reference computed")
@@ -527,15 +581,19 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
         reference=np.nan, reference_method=None, reference_source=None)
     table["gap"] = table["test_error"] - table["reference"]
     table["rel_gap"] = table["gap"] / table["reference"]
+    return table
 
-    # ---- ranks and rank tests
+
+def _rank_scores(table: pd.DataFrame, by: str, include_baselines: bool, notes: list[str]) -> pd.DataFrame:
+    """Datasets x methods of the ranked quantity ``by``: only methods present on every
+    dataset; a method without a valid selection on some seed of a dataset scores inf
+    there; ranking by passes drops the datasets without a target."""
     ranked_kinds = ("iterative",) if (by == "passes_to_target" or not include_baselines) else ("iterative", "explicit")
     rankable = table[table["kind"].isin(ranked_kinds)]
     present = rankable.pivot(index="dataset", columns="method", values="seeds").notna()
     full = present.all(axis=0)
     if not full.all():
         notes.append("methods missing on some dataset are not ranked: " + ", ".join(map(str, full.index[~full])))
-    # a method without a valid selection on some seed of a dataset fails on that dataset
     score = rankable[by].where(rankable["valid"] == rankable["seeds"], np.inf)
     if by == "passes_to_target":
         score = score.where(rankable["target"].notna(), np.nan)
@@ -546,33 +604,34 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
         if len(dropped):
             notes.append(f"datasets without a target are not ranked by passes: {', '.join(map(str, dropped))}")
         scores = scores.dropna(axis=0, how="any")
-    ranks = rank_table(scores) if scores.shape[0] and scores.shape[1] else pd.DataFrame()
-    test = None
-    if ranks.shape[0] >= 2 and ranks.shape[1] >= 2:
-        test = friedman_from_ranks(ranks.mean(axis=0).to_numpy(), ranks.shape[0], alpha, methods=list(ranks.columns))
-    else:
-        notes.append(f"rank tests need at least 2 datasets and 2 methods (have {ranks.shape[0]} and {ranks.shape[1]})")
-    if not ranks.empty:
-        avg = ranks.mean(axis=0)
-        table["average_rank"] = table["method"].map(avg)
+    return scores
 
-    # ---- profiles over passes to target (iterative methods only)
-    it = both[both["kind"] == "iterative"]
+
+def _rank_tests(scores: pd.DataFrame, alpha: float, notes: list[str]) -> tuple[pd.DataFrame, RankTest | None]:
+    """Ranks per dataset (1 best, ties averaged) and the Friedman / Iman-Davenport /
+    Nemenyi statistics (None with fewer than 2 datasets or methods)."""
+    ranks = rank_table(scores) if scores.shape[0] and scores.shape[1] else pd.DataFrame()
+    if ranks.shape[0] >= 2 and ranks.shape[1] >= 2:
+        return ranks, friedman_from_ranks(ranks.mean(axis=0).to_numpy(), ranks.shape[0], alpha,
+                                          methods=list(ranks.columns))
+    notes.append(f"rank tests need at least 2 datasets and 2 methods (have {ranks.shape[0]} and {ranks.shape[1]})")
+    return ranks, None
+
+
+def _profiles(both: pd.DataFrame, table: pd.DataFrame, unit: str) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+    """Passes to target of the iterative methods (problems x methods, a problem being a
+    dataset or a (dataset, seed) replicate; problems some method lacks are dropped), and
+    their Dolan-More performance and More-Wild data profiles."""
     if unit == "dataset":
         costs = table[table["kind"] == "iterative"].pivot(index="dataset", columns="method", values="passes_to_target")
     else:
+        it = both[both["kind"] == "iterative"]
         costs = it.pivot_table(index=["dataset", "seed"], columns="method", values="passes_to_target",
                                aggfunc="first", dropna=False)
     costs = costs.dropna(axis=0, how="any") if not costs.empty else costs
     if not costs.empty and costs.shape[0]:
-        perf = performance_profile(costs)
-        dprof = data_profile(costs)
-    else:
-        perf = pd.DataFrame(columns=["method", "tau", "share"])
-        dprof = pd.DataFrame(columns=["method", "budget", "share"])
-    return Ranking(rule=rule, by=by, target=target, tuning=tuning, confidence=confidence, unit=unit,
-                   replicates=both.reset_index(drop=True), table=table, ranks=ranks, test=test, costs=costs,
-                   performance=perf, data=dprof, params=tuple(pcols), notes=notes)
+        return costs, performance_profile(costs), data_profile(costs)
+    return costs, pd.DataFrame(columns=["method", "tau", "share"]), pd.DataFrame(columns=["method", "budget", "share"])
 
 
 # ---------------------------------------------------------------- reading a campaign

@@ -389,7 +389,7 @@ def _dataset_section(raw: dict) -> dict:
 
 
 def _split_section(raw: dict | None) -> dict:
-    split = dict(SplitConfig().__dict__, **(raw or {}))
+    split = dict(dataclasses.asdict(SplitConfig()), **(raw or {}))
     _check("split.kind", split["kind"])
     split["test"] = float(_check("split.test", split["test"]))
     split["val"] = float(_check("split.val", split["val"]))
@@ -439,7 +439,7 @@ def _solver_section(raw: dict, dataset: dict, asked_loss: Any) -> tuple[str, Any
 
 
 def _budget_section(raw: dict | None) -> dict:
-    budget = dict(BudgetConfig().__dict__, **(raw or {}))
+    budget = dict(dataclasses.asdict(BudgetConfig()), **(raw or {}))
     budget["iterations"] = int(_check("budget.iterations", budget["iterations"]))
     if budget["passes"] is not None:
         budget["passes"] = float(_check("budget.passes", budget["passes"]))
@@ -448,10 +448,11 @@ def _budget_section(raw: dict | None) -> dict:
 
 
 def _record_section(raw: dict | None) -> dict:
-    record = dict(RecordConfig().__dict__, **(raw or {}))
-    unknown = sorted(set(record) - set(RecordConfig().__dict__))
+    record = dict(dataclasses.asdict(RecordConfig()), **(raw or {}))
+    keys = [f.name for f in dataclasses.fields(RecordConfig)]
+    unknown = sorted(set(record) - set(keys))
     if unknown:
-        raise SpecError(f"record has no key {unknown[0]!r}; valid: {', '.join(RecordConfig().__dict__)}")
+        raise SpecError(f"record has no key {unknown[0]!r}; valid: {', '.join(keys)}")
     record["every"] = int(_check("record.every", record["every"]))
     _check("record.residual", record["residual"])
     if record["residual"]:
@@ -477,7 +478,7 @@ def _run_options_section(c: dict) -> None:
 
 def _stopping_section(raw: dict | None, record: dict, dataset: dict) -> dict:
     try:
-        stopping = normalize_stopping(dict(StoppingConfig().__dict__, **(raw or {})))
+        stopping = normalize_stopping(dict(dataclasses.asdict(StoppingConfig()), **(raw or {})))
     except RuleError as e:
         raise SpecError(str(e)) from None
     if stopping["halt"]:

@@ -13,6 +13,7 @@ import numpy as np
 
 from stopwise.core.params import Choice, Flag, Interval, param
 from stopwise.core.registry import Registry
+from stopwise.core.errors import StopwiseError
 from stopwise.data.errors import DataError
 
 NOISE_MODELS = ("none", "gaussian", "norm")
@@ -89,7 +90,7 @@ SKLEARN_CLASSES: dict[str, tuple[str, ...]] = {
 }
 
 
-class SourceParamError(ValueError):
+class SourceParamError(StopwiseError, ValueError):
     """Source params that are each valid but do not fit together; the message is one line."""
 
 

@@ -8,12 +8,14 @@ from __future__ import annotations
 
 import numpy as np
 
+from stopwise.core.errors import StopwiseError
+
 SPLIT_KINDS = ("random", "tail", "indices")
 _SPLIT_STREAM = 0x5EED_5B17  # separates the split's random stream from the solver's
 
 
-class SplitError(ValueError):
-    pass
+class SplitError(StopwiseError, ValueError):
+    """A split that cannot be made of the rows given; the message is one line."""
 
 
 def part_size(n: int, size: float, what: str) -> int:

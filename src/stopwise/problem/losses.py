@@ -202,16 +202,33 @@ def logistic_value(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 1) -> f
     return value_from_scores("logistic", X @ w, y)
 
 
-def logistic_gradient(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 1) -> np.ndarray:
-    """``-(1/n) X^T (y * sigma(-y X w))`` as a new array."""
+def _margin_gradient(X: np.ndarray, y: np.ndarray, w: np.ndarray,
+                     weights: Callable[[np.ndarray, np.ndarray], np.ndarray]) -> np.ndarray:
+    """Gradient of a margin loss ``(1/n) sum_i l(y_i <x_i, w>)``: ``-(1/n) X^T c`` with
+    ``c = weights(q, y) = -y * l'(q)`` of the margins ``q = y X w`` (which ``weights`` may
+    overwrite), as a new array."""
     q = X @ w
     q *= y
+    g = X.T @ weights(q, y)
+    g *= -1.0 / max(X.shape[0], 1)
+    return g
+
+
+def _logistic_weights(q: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """``y * sigma(-q)``, in place in ``q``."""
     np.negative(q, out=q)
     expit(q, out=q)
     q *= y
-    g = X.T @ q
-    g *= -1.0 / max(X.shape[0], 1)
-    return g
+    return q
+
+
+def _hinge_weights(q: np.ndarray, y: np.ndarray) -> np.ndarray:
+    return np.where(q < 1.0, y, 0.0)
+
+
+def logistic_gradient(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 1) -> np.ndarray:
+    """``-(1/n) X^T (y * sigma(-y X w))`` as a new array."""
+    return _margin_gradient(X, y, w, _logistic_weights)
 
 
 def hinge_value(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 1) -> float:
@@ -220,12 +237,7 @@ def hinge_value(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 1) -> floa
 
 def hinge_gradient(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 1) -> np.ndarray:
     """Subgradient ``-(1/n) sum_{i: y_i <x_i, w> < 1} y_i x_i`` (0 at the kink)."""
-    q = X @ w
-    q *= y
-    coef = np.where(q < 1.0, y, 0.0)
-    g = X.T @ coef
-    g *= -1.0 / max(X.shape[0], 1)
-    return g
+    return _margin_gradient(X, y, w, _hinge_weights)
 
 
 def softmax_value(X: np.ndarray, y: np.ndarray, w: np.ndarray, k: int = 2) -> float:

@@ -21,6 +21,8 @@ from typing import Iterable
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from stopwise.core.errors import StopwiseError
+
 RUN_LEVEL_SCHEMA = pa.schema([
     ("run_id", pa.string()),
     ("dataset", pa.string()),
@@ -73,7 +75,7 @@ def type_mismatches(schema: pa.Schema) -> list[str]:
             if f.name in schema.names and f.name != "loss" and not _kind_fits(f.name, f.type, schema.field(f.name).type)]
 
 
-class SchemaError(TypeError):
+class SchemaError(StopwiseError, TypeError):
     """A trace whose declared columns have the wrong types."""
 
 

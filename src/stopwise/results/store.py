@@ -27,6 +27,7 @@ import pyarrow.parquet as pq
 
 from stopwise.core.files import atomic_write as _atomic_write  # noqa: F401  (the store's writes)
 from stopwise.core.files import atomic_write_bytes
+from stopwise.core.errors import StopwiseError
 from stopwise.config.spec import canonical_json
 from stopwise.results.schema import RUN_LEVEL, STATUSES  # noqa: F401  (re-exported)
 
@@ -35,8 +36,8 @@ _ID = re.compile(r"^[0-9a-f]{4,64}$")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")  # the campaign file names' rule (campaign.NAME)
 
 
-class StoreError(ValueError):
-    pass
+class StoreError(StopwiseError, ValueError):
+    """A results folder's name, id or file that cannot be used; the message is one line."""
 
 
 class Store:

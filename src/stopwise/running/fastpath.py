@@ -57,6 +57,7 @@ from typing import Callable
 import numpy as np
 
 from stopwise.problem.problem import Problem, TrainingSet
+from stopwise.core.errors import StopwiseError
 
 PATHS = ("auto", "direct", "fused", "gram")
 SPLITS = ("train", "val", "test")
@@ -65,7 +66,7 @@ GRAM_MAX_BYTES = 256 * 2**20     # no Gram matrix (of all splits together) above
 FUSED_MIN_BYTES = 4 * 2**20      # below this X stays in cache and the direct path is as fast
 GUARD = 1e-3                     # Gram-form errors below GUARD * scale are recomputed from compressed rows
 
-class PathError(ValueError):
+class PathError(StopwiseError, ValueError):
     """Unknown evaluation path; the message is one line."""
 
 

@@ -1,7 +1,10 @@
 """Recorder: the one place where per-iterate metrics are computed.
 
 The recorder owns preallocated columns and scratch buffers; recording an iterate writes
-one row in place. It never knows which solver produced the iterate.
+one row in place. It never knows which solver produced the iterate. :func:`make_recorder`
+picks the recorder for the problem's task: :class:`RegressionRecorder` or
+:class:`ClassificationRecorder`, both behind the one interface of :class:`Recorder`
+(``record``, ``view``, ``result``, ``columns``, ``size``, ``info``, ``fallbacks``).
 
 Regression traces carry the residual statistics of :mod:`stopwise.stopping.residual` after the
 base columns (unless ``residual=False``). Two extension points add columns after those:
@@ -61,51 +64,151 @@ def register_metric_set(name: str, make: MetricSet) -> MetricSet:
     return METRIC_SETS.register(name, make)
 
 
+def make_recorder(problem: Problem, capacity: int = 256,
+                  state_metrics: Mapping[str, Callable[[Any], float]] | None = None,
+                  loss: str | None = None, model: Any = None,
+                  statistics: "fastpath.SplitStatistics | None | str" = "auto",
+                  residual: bool = True) -> "Recorder":
+    """The recorder for ``problem``'s task: a :class:`RegressionRecorder` (which reads
+    ``statistics`` and ``residual``) or a :class:`ClassificationRecorder` (``problem.task``
+    binary or multiclass; reads ``loss`` and ``model``). The arguments a task does not read
+    are ignored, so the runner calls this one way for every task."""
+    if problem.task == "regression":
+        return RegressionRecorder(problem, capacity, state_metrics, statistics=statistics, residual=residual)
+    return ClassificationRecorder(problem, capacity, state_metrics, loss=loss, model=model)
+
+
 class Recorder:
-    """Records iterates of one run. Regression problems get squared errors; classification
-    problems (``problem.task`` binary or multiclass) get the columns of
-    :class:`stopwise.running.classify.ClassificationMetrics` for the run's ``loss`` and ``model``
-    (default: the problem's loss and a linear model)."""
+    """Records iterates of one run into preallocated columns: the interface the runner uses
+    (:meth:`record`, :meth:`view`, :meth:`result`, ``columns``, ``size``, ``info``,
+    ``fallbacks``) and the columns every task shares. Build one with :func:`make_recorder`;
+    a subclass writes its task's columns in :meth:`_fill`.
 
-    def __init__(self, problem: Problem, capacity: int = 256,
-                 state_metrics: Mapping[str, Callable[[Any], float]] | None = None,
-                 loss: str | None = None, model: Any = None,
-                 statistics: "fastpath.SplitStatistics | None | str" = "auto",
-                 residual: bool = True):
-        """``statistics`` (regression): the split statistics to use, None for direct
-        evaluation only, or an evaluation path name (``auto``, ``gram``, ``direct``,
-        ``fused``); see :mod:`stopwise.running.fastpath`. ``residual`` (regression): record the
-        residual statistics of :mod:`stopwise.stopping.residual` (``residual_dot_prev`` always,
-        ``ncp_distance`` when ``problem.signal_rows``)."""
+    Columns, in order: the base columns (``results.schema.BASE_COLUMNS``), the task's
+    ``task_columns``, the metric sets' extras, then the solver's ``state_metrics``."""
+
+    info: dict          # run metadata the recorder contributes (the runner stores it)
+    fallbacks: int = 0  # Gram-form errors recomputed from compressed rows (regression only)
+
+    def __init__(self, problem: Problem, capacity: int,
+                 state_metrics: Mapping[str, Callable[[Any], float]] | None,
+                 task_columns: tuple[str, ...]):
         self.problem = problem
-        self._cls = None
-        self.info: dict = {}
-        if problem.task != "regression":
-            from stopwise.running.classify import ClassificationMetrics
-
-            self._cls = ClassificationMetrics(problem, loss or problem.objective, model)
-            self.info = self._cls.info
+        self.info = {}
         self._extras: dict[str, Callable[[np.ndarray], float]] = {}
         for make in METRIC_SETS.values():
             self._extras.update(make(problem) or {})
-        regression = self._cls is None
-        self._dot = bool(residual) and regression
-        self._ncp = NCPDistance(problem.n_train) if self._dot and problem.signal_rows else None
-        res_cols = RESIDUAL_COLUMNS[: 2 if self._ncp is not None else 1] if self._dot else ()
-        cls_cols = self._cls.columns if self._cls is not None else ()
         self._state_extras = dict(state_metrics or {})
-        clash = sorted(set(self._state_extras) & (set(BASE_COLUMNS) | set(cls_cols) | set(res_cols)
-                                                  | set(self._extras)))
+        clash = sorted(set(self._state_extras) & (set(BASE_COLUMNS) | set(task_columns) | set(self._extras)))
         if clash:
             raise ValueError(f"solver metric column {clash[0]!r} clashes with a recorder column")
-        self.columns = BASE_COLUMNS + cls_cols + res_cols + tuple(self._extras) + tuple(self._state_extras)
+        self.columns = BASE_COLUMNS + task_columns + tuple(self._extras) + tuple(self._state_extras)
         self._cap = max(int(capacity), 1)
         self._data = {c: np.empty(self._cap, dtype=np.int64 if c == "iteration" else np.float64)
                       for c in self.columns}
         self.size = 0
-        p = problem
-        self._buf = {k: np.empty(getattr(p, "X_" + k).shape[0]) for k in ("train", "val", "test")}
-        self._dbuf = np.empty(p.d)
+        self._dbuf = np.empty(problem.d)
+
+    def record(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
+               state: Any = None) -> float:
+        """Write one row for iterate ``w`` (of solver ``state``); returns the training objective."""
+        if self.size == self._cap:
+            self._grow()
+        i, col = self.size, self._data
+        col["iteration"][i] = iteration
+        col["passes"][i] = passes
+        col["seconds"][i] = seconds
+        loss = self._fill(i, w)
+        self._finish_row(i, w, state)
+        return loss
+
+    def _fill(self, i: int, w: np.ndarray) -> float:
+        """Write row ``i`` of the task's columns (training loss and errors included); return
+        the training objective."""
+        raise NotImplementedError
+
+    def _finish_row(self, i: int, w: np.ndarray, state: Any) -> None:
+        """Columns every task shares: ||w||, distance to the truth, metric sets; then count the row."""
+        p, col = self.problem, self._data
+        col["w_norm"][i] = math.sqrt(float(w @ w))
+        if p.w_true is not None and p.w_true.shape == w.shape:
+            buf = self._dbuf if self._dbuf.shape == w.shape else np.empty_like(w)
+            np.subtract(w, p.w_true, out=buf)
+            col["dist_truth"][i] = math.sqrt(float(buf @ buf))
+        else:
+            col["dist_truth"][i] = math.nan
+        for name, fn in self._extras.items():
+            col[name][i] = fn(w)
+        for name, fn in self._state_extras.items():
+            col[name][i] = fn(state) if state is not None else math.nan
+        self.size += 1
+
+    def _grow(self) -> None:
+        self._cap *= 2
+        for c, a in self._data.items():
+            b = np.empty(self._cap, dtype=a.dtype)
+            b[: self.size] = a[: self.size]
+            self._data[c] = b
+
+    def view(self) -> dict[str, np.ndarray]:
+        """The rows recorded so far as read-only views (no copy; valid until the next record)."""
+        out = {}
+        for c, a in self._data.items():
+            v = a[: self.size]
+            v.flags.writeable = False
+            out[c] = v
+        return out
+
+    def result(self) -> dict[str, np.ndarray]:
+        return {c: a[: self.size].copy() for c, a in self._data.items()}
+
+
+class ClassificationRecorder(Recorder):
+    """Classification problems (``problem.task`` binary or multiclass): the columns of
+    :class:`stopwise.running.classify.ClassificationMetrics` for the run's ``loss`` and
+    ``model`` (default: the problem's loss and a linear model)."""
+
+    def __init__(self, problem: Problem, capacity: int = 256,
+                 state_metrics: Mapping[str, Callable[[Any], float]] | None = None,
+                 loss: str | None = None, model: Any = None):
+        from stopwise.running.classify import ClassificationMetrics
+
+        metrics = ClassificationMetrics(problem, loss or problem.objective, model)
+        super().__init__(problem, capacity, state_metrics, metrics.columns)
+        self._metrics = metrics
+        self.info = metrics.info
+
+    def _fill(self, i: int, w: np.ndarray) -> float:
+        return self._metrics.fill(self._data, i, w)
+
+
+class RegressionRecorder(Recorder):
+    """Regression problems: squared errors per split and, unless ``residual=False``, the
+    residual statistics of :mod:`stopwise.stopping.residual` (``residual_dot_prev`` always,
+    ``ncp_distance`` when ``problem.signal_rows``).
+
+    ``statistics``: the split statistics to use, None for direct evaluation only, or an
+    evaluation path name (``auto``, ``gram``, ``direct``, ``fused``); see
+    :mod:`stopwise.running.fastpath`."""
+
+    def __init__(self, problem: Problem, capacity: int = 256,
+                 state_metrics: Mapping[str, Callable[[Any], float]] | None = None,
+                 statistics: "fastpath.SplitStatistics | None | str" = "auto",
+                 residual: bool = True):
+        self._dot = bool(residual)
+        self._ncp = NCPDistance(problem.n_train) if self._dot and problem.signal_rows else None
+        res_cols = RESIDUAL_COLUMNS[: 2 if self._ncp is not None else 1] if self._dot else ()
+        super().__init__(problem, capacity, state_metrics, res_cols)
+        self._res_rows = False  # the training residual vector is evaluated at every row
+        self._buf = {k: np.empty(getattr(problem, "X_" + k).shape[0]) for k in ("train", "val", "test")}
+        self._init_statistics(statistics)
+        if self._dot:
+            self._init_residual()
+
+    def _init_statistics(self, statistics: "fastpath.SplitStatistics | None | str") -> None:
+        """Which splits are evaluated from the statistics (one stacked product) and which
+        from their rows, and the scratch buffers of the stacked product."""
+        p = self.problem
         if isinstance(statistics, str):
             statistics = fastpath.split_statistics(p, statistics)
         self.statistics = statistics
@@ -124,22 +227,23 @@ class Recorder:
             self._v = np.empty(k)
             self._wa = np.empty(p.d + 1)
             self._wa[p.d] = -1.0
-        self.fallbacks = 0  # Gram-form errors recomputed from compressed rows (cancellation guard)
-        # Residual statistics (regression). The training residual vector is evaluated at
-        # every row when the training error is direct or the NCP is recorded; then the
-        # inner product comes from two residual vectors (alternating buffers), else from
-        # the training split's statistics (O(d) beyond the error, see _gram_dot).
         self._train_stat = used.index("train") if "train" in used else None
-        self._res_rows = self._dot and (self._ncp is not None or self._train_stat is None)
-        if self._dot:
-            n = p.n_train
-            self._rb = (self._buf["train"], np.empty(n)) if self._res_rows else ()
-            self._rk = 0                       # buffer holding this row's residual
-            self._wprev = np.empty(p.d)        # previous recorded iterate, its c^T w and scale
-            self._lprev = self._sprev = math.nan
-            self._ltr = self._str = math.nan   # this row's c^T w and scale (statistics path)
-            self._za = np.empty(p.d + 1)       # [w_prev; -1] for the compressed-rows fall back
-            self._za[p.d] = -1.0
+        self.fallbacks = 0
+
+    def _init_residual(self) -> None:
+        """Buffers of the residual statistics. The training residual vector is evaluated at
+        every row when the training error is direct or the NCP is recorded; then the inner
+        product comes from two residual vectors (alternating buffers), else from the
+        training split's statistics (O(d) beyond the error, see :meth:`_gram_dot`)."""
+        p = self.problem
+        self._res_rows = self._ncp is not None or self._train_stat is None
+        self._rb = (self._buf["train"], np.empty(p.n_train)) if self._res_rows else ()
+        self._rk = 0                       # buffer holding this row's residual
+        self._wprev = np.empty(p.d)        # previous recorded iterate, its c^T w and scale
+        self._lprev = self._sprev = math.nan
+        self._ltr = self._str = math.nan   # this row's c^T w and scale (statistics path)
+        self._za = np.empty(p.d + 1)       # [w_prev; -1] for the compressed-rows fall back
+        self._za[p.d] = -1.0
 
     def _sq_error(self, split: str, w: np.ndarray) -> float:
         X = getattr(self.problem, "X_" + split)
@@ -180,21 +284,12 @@ class Recorder:
             sq[i] = self._sq_error(fastpath.SPLITS[i], w)
         return sq
 
-    def record(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
-               state: Any = None) -> float:
-        """Write one row for iterate ``w`` (of solver ``state``); returns the training objective."""
-        if self.size == self._cap:
-            self._grow()
-        if self._cls is not None:
-            return self._record_classification(iteration, passes, seconds, w, state)
-        p, i, col = self.problem, self.size, self._data
+    def _fill(self, i: int, w: np.ndarray) -> float:
+        p, col = self.problem, self._data
         if self._res_rows:
             self._buf["train"] = self._rb[self._rk]   # the direct training error writes this row's residual
         sq_tr, sq_va, sq_te = self.squared_errors(w).tolist()
         n = p.n_train
-        col["iteration"][i] = iteration
-        col["passes"][i] = passes
-        col["seconds"][i] = seconds
         col["train_loss"][i] = sq_tr / (2 * n)
         col["train_error"][i] = sq_tr / n
         col["residual_norm"][i] = math.sqrt(sq_tr) if sq_tr >= 0 else math.nan
@@ -202,7 +297,6 @@ class Recorder:
         col["test_error"][i] = sq_te / p.X_test.shape[0]
         if self._dot:
             self._residual_row(i, w)
-        self._finish_row(i, w, state)
         return sq_tr / (2 * n)
 
     def _residual_row(self, i: int, w: np.ndarray) -> None:
@@ -235,48 +329,3 @@ class Recorder:
         self._wa[:-1] = w
         self._za[:-1] = self._wprev
         return float((R @ self._za) @ (R @ self._wa))
-
-    def _record_classification(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
-                               state: Any = None) -> float:
-        p, i, col = self.problem, self.size, self._data
-        col["iteration"][i] = iteration
-        col["passes"][i] = passes
-        col["seconds"][i] = seconds
-        loss = self._cls.fill(col, i, w)
-        self._finish_row(i, w, state)
-        return loss
-
-    def _finish_row(self, i: int, w: np.ndarray, state: Any) -> None:
-        """Columns every task shares: ||w||, distance to the truth, metric sets; then count the row."""
-        p, col = self.problem, self._data
-        col["w_norm"][i] = math.sqrt(float(w @ w))
-        if p.w_true is not None and p.w_true.shape == w.shape:
-            buf = self._dbuf if self._dbuf.shape == w.shape else np.empty_like(w)
-            np.subtract(w, p.w_true, out=buf)
-            col["dist_truth"][i] = math.sqrt(float(buf @ buf))
-        else:
-            col["dist_truth"][i] = math.nan
-        for name, fn in self._extras.items():
-            col[name][i] = fn(w)
-        for name, fn in self._state_extras.items():
-            col[name][i] = fn(state) if state is not None else math.nan
-        self.size += 1
-
-    def _grow(self) -> None:
-        self._cap *= 2
-        for c, a in self._data.items():
-            b = np.empty(self._cap, dtype=a.dtype)
-            b[: self.size] = a[: self.size]
-            self._data[c] = b
-
-    def view(self) -> dict[str, np.ndarray]:
-        """The rows recorded so far as read-only views (no copy; valid until the next record)."""
-        out = {}
-        for c, a in self._data.items():
-            v = a[: self.size]
-            v.flags.writeable = False
-            out[c] = v
-        return out
-
-    def result(self) -> dict[str, np.ndarray]:
-        return {c: a[: self.size].copy() for c, a in self._data.items()}

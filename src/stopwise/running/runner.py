@@ -17,7 +17,7 @@ from stopwise.running import fastpath
 from stopwise.data import cached_problem
 from stopwise.problem.losses import resolve_loss
 from stopwise.problem.problem import Problem
-from stopwise.running.record import Recorder
+from stopwise.running.record import Recorder, make_recorder
 from stopwise.solvers import get_solver
 from stopwise.config.spec import RunSpec, halt_missing_column
 from stopwise.config.compose import spec_from_overrides
@@ -132,10 +132,10 @@ def _prepare(spec: RunSpec, problem: Problem, path: str, record_path: str | None
         stats = fastpath.split_statistics(problem, record_path)
     t_prep = clock() - t_prep
     model = sdef.model(params, train) if sdef.model is not None else None
-    rec = Recorder(problem, capacity=_record_rows(spec),
-                   state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None,
-                   loss=train.loss, model=model, statistics=stats,
-                   residual=spec.record.get("residual", True))
+    rec = make_recorder(problem, capacity=_record_rows(spec),
+                        state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None,
+                        loss=train.loss, model=model, statistics=stats,
+                        residual=spec.record.get("residual", True))
     if spec.stopping.get("halt"):  # a Problem given directly may lack a column the rule reads
         from stopwise.stopping.rules import get_rule
 

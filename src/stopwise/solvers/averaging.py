@@ -32,6 +32,7 @@ import numpy as np
 
 from stopwise.problem.problem import TrainingSet
 from stopwise.core.params import Choice, Interval, param  # noqa: F401
+from stopwise.core.errors import StopwiseError
 from stopwise.solvers.base import SolverDef, State, frozen
 
 AVERAGES = ("none", "full", "tail", "ema")
@@ -58,7 +59,7 @@ class AveragedState(State):
     horizon_passes: float | None = None
 
 
-class AveragingError(ValueError):
+class AveragingError(StopwiseError, ValueError):
     """Averaging asked for something it cannot do; the message is one line."""
 
 

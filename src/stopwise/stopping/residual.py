@@ -27,7 +27,7 @@ than its norm (which every trace has as ``residual_norm``):
     ``dataset.params.row_order=signal``); on exchangeable rows it would cost one read of
     the training rows per recorded row and carry no information.
 
-The recorder (:class:`stopwise.running.record.Recorder`) computes both columns; this module holds
+The regression recorder (:class:`stopwise.running.record.RegressionRecorder`) computes both columns; this module holds
 the statistics themselves. ``record.residual: false`` leaves both out.
 """
 from __future__ import annotations

@@ -146,6 +146,29 @@ def _g(x: float) -> str:
     return f"{x:.4g}"
 
 
+def _smallest(cols: Columns, x: np.ndarray, what: str, reason: Callable[[str], str]) -> Selection:
+    """The row of the smallest finite value of ``x`` (the first of ties), spending the whole
+    trace and not final (a later row may be smaller); nothing when no value is finite.
+    ``reason(value)`` says why, given the chosen value as written."""
+    if not np.isfinite(x).any():
+        return _none(cols, f"{what} is never finite")
+    row = int(np.nanargmin(np.where(np.isfinite(x), x, np.nan)))
+    return _pick(cols, row, _n(cols) - 1, reason(_g(x[row])), False)
+
+
+def _first_at_or_below(cols: Columns, x: np.ndarray, limit: float, hit: Callable[[str], str],
+                       never: Callable[[str], str]) -> Selection:
+    """The first row with ``x <= limit``, spending up to it and final (no later row changes
+    it); else nothing. ``hit(value)`` says why, given the value there as written;
+    ``never(smallest)`` why not, given the smallest finite value (``nan`` for none)."""
+    rows = np.flatnonzero(x <= limit)
+    if rows.size:
+        row = int(rows[0])
+        return _pick(cols, row, row, hit(_g(x[row])), True)
+    fin = x[np.isfinite(x)]
+    return _none(cols, never(_g(float(fin.min())) if fin.size else "nan"))
+
+
 def _delta(ctx: RuleContext, given: float | None) -> tuple[float | None, str]:
     if given is not None:
         return float(given), "given"
@@ -281,15 +304,10 @@ def discrepancy(trace: Any, ctx: RuleContext, params: DiscrepancyParams = Discre
     thr = params.tau * delta
     if "residual_norm" not in cols:
         return _none(cols, "trace has no residual_norm column")
-    res = cols["residual_norm"]
-    hit = np.flatnonzero(res <= thr)
-    if hit.size:
-        row = int(hit[0])
-        return _pick(cols, row, row, f"first iterate with residual {_g(res[row])} <= tau*delta = "
-                     f"{params.tau:g}*{_g(delta)} ({how})", True)
-    fin = res[np.isfinite(res)]
-    low = _g(float(fin.min())) if fin.size else "nan"
-    return _none(cols, f"residual never reached tau*delta = {_g(thr)} ({how} delta); smallest {low}")
+    return _first_at_or_below(
+        cols, cols["residual_norm"], thr,
+        lambda v: f"first iterate with residual {v} <= tau*delta = {params.tau:g}*{_g(delta)} ({how})",
+        lambda low: f"residual never reached tau*delta = {_g(thr)} ({how} delta); smallest {low}")
 
 
 # ---------------------------------------------------------------- monotone error rule
@@ -373,18 +391,12 @@ def ncp(trace: Any, ctx: RuleContext, params: NCPParams = NCPParams()) -> Select
         if q < 2:
             return _none(cols, f"too few training rows ({ctx.n_train}) for the white-noise test")
         lim = white_noise_limit(q, params.significance)
-        hit = np.flatnonzero(dist <= lim)
-        if hit.size:
-            row = int(hit[0])
-            return _pick(cols, row, row, f"first iterate whose residual passes the white-noise test: NCP distance "
-                         f"{_g(dist[row])} <= {_g(lim)} (level {params.significance:g})", True)
-        fin = dist[np.isfinite(dist)]
-        return _none(cols, f"residual never passes the white-noise test (limit {_g(lim)}; smallest distance "
-                     f"{_g(float(fin.min())) if fin.size else 'nan'})")
-    if not np.isfinite(dist).any():
-        return _none(cols, "NCP distance is never finite")
-    row = int(np.nanargmin(np.where(np.isfinite(dist), dist, np.nan)))
-    return _pick(cols, row, n - 1, f"residual closest to white noise: NCP distance {_g(dist[row])}", False)
+        return _first_at_or_below(
+            cols, dist, lim,
+            lambda v: (f"first iterate whose residual passes the white-noise test: NCP distance {v} <= {_g(lim)} "
+                       f"(level {params.significance:g})"),
+            lambda low: f"residual never passes the white-noise test (limit {_g(lim)}; smallest distance {low})")
+    return _smallest(cols, dist, "NCP distance", lambda v: f"residual closest to white noise: NCP distance {v}")
 
 
 # ---------------------------------------------------------------- a priori
@@ -452,11 +464,8 @@ def oracle(trace: Any, ctx: RuleContext, params: OracleParams = OracleParams()) 
     n = _n(cols)
     if n == 0:
         return _none(cols, "empty trace")
-    te = cols["test_error"]
-    if not np.isfinite(te).any():
-        return _none(cols, "test error is never finite")
-    row = int(np.nanargmin(np.where(np.isfinite(te), te, np.nan)))
-    return _pick(cols, row, n - 1, f"minimum test error {_g(te[row])} (reference: peeks at test data)", False)
+    return _smallest(cols, cols["test_error"], "test error",
+                     lambda v: f"minimum test error {v} (reference: peeks at test data)")
 
 
 # ---------------------------------------------------------------- registry

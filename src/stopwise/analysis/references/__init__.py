@@ -20,12 +20,14 @@ from typing import Any, Mapping
 import numpy as np
 import pandas as pd
 
+from stopwise.core.errors import StopwiseError
+
 REFERENCE_COLUMNS = ("dataset", "protocol", "metric", "value", "method", "source", "read_at_source", "note",
                      "tolerance")
 METRICS = ("mse", "r2")
 
 
-class ReferenceRowError(ValueError):
+class ReferenceRowError(StopwiseError, ValueError):
     """A reference row that cannot be read; the message is one line."""
 
 
