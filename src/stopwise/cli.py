@@ -126,6 +126,9 @@ def cmd_sweep(argv: list[str]) -> int:
     except Exception as e:  # the launcher itself gave up (a worker died, the cluster refused a job)
         stopped = " ".join(f"{type(e).__name__}: {e}".split())[:300]
         print(f"stopwise: the launcher stopped early: {stopped}", file=sys.stderr, flush=True)
+    except SystemExit as e:  # Hydra printed the launcher's exception (above) and exits
+        stopped = f"Hydra's multirun exited with status {e.code}; its error is printed above"
+        print(f"stopwise: the launcher stopped early: {stopped}", file=sys.stderr, flush=True)
     counts = tally(exp, exp.root)
     print(f"campaign {exp.name} ({exp.manifest['campaign_id']}): "
           + ", ".join(f"{v} {k}" for k, v in counts.items() if v or k == "completed")

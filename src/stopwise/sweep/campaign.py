@@ -151,6 +151,7 @@ def expand(campaign: str | None, overrides: list[str]) -> Expansion:
 
 def launch(exp: Expansion, extra_hydra: list[str] | None = None) -> None:
     """Run the expanded sweep through Hydra's multirun (its sweeper and launcher)."""
+    from stopwise.sweep.scheduler import quiet_repeats; quiet_repeats()  # noqa: E702 (scheduler messages once per sweep)
     import hydra
 
     from stopwise.sweep import task as app
