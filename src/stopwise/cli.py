@@ -158,6 +158,9 @@ def cmd_sweep(argv: list[str]) -> int:
     except Exception as e:  # the launcher itself gave up (a worker died, the cluster refused a job)
         stopped = " ".join(f"{type(e).__name__}: {e}".split())[:300]
         print(f"stopwise: the launcher stopped early: {stopped}", file=sys.stderr, flush=True)
+    except SystemExit as e:  # Hydra printed the launcher's exception (above) and exits
+        stopped = f"Hydra's multirun exited with status {e.code}; its error is printed above"
+        print(f"stopwise: the launcher stopped early: {stopped}", file=sys.stderr, flush=True)
     counts = tally(exp, exp.root)
     ran = (f"{done['pending']} runs in {done['chunks']} {'chunk' if done['chunks'] == 1 else 'chunks'}"
            if done.get("pending") else "every run already stored")

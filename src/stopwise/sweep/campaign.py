@@ -338,6 +338,9 @@ def chunk_count(pending: int, kind: str, workers: int, size: int | None = None) 
 def launch(exp: Expansion, chunk: int | None = None) -> dict[str, Any]:
     """Write the manifest, then run the pending runs (missing or failed) through Hydra's
     multirun, one launcher job per chunk. Returns what was done (``pending``, ``chunks``)."""
+    from stopwise.sweep.scheduler import quiet_repeats
+
+    quiet_repeats()  # the scheduler's repeated messages: each distinct one once per sweep
     import hydra
 
     from stopwise.sweep import chunks as plan
