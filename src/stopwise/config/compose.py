@@ -26,6 +26,7 @@ from dataclasses import dataclass, field
 from typing import Any, Iterator
 
 from stopwise.config.spec import SpecError, conf_dir, hydra_error_line, register_configs
+from stopwise.core.errors import StopwiseError
 
 
 @contextmanager
@@ -95,7 +96,7 @@ class Base:
 _ABSENT = object()
 
 
-class _NeedHydra(Exception):
+class _NeedHydra(StopwiseError):
     """A detached composer met a group or a composition it has not seen (internal)."""
 
 

@@ -19,6 +19,7 @@ The hierarchy (module of each class in brackets)::
     |   |   +-- PreprocessError                                            [data.preprocess]
     |   |   +-- TabularError                                               [data.tabular]
     |   |   +-- OpenMLCacheError                                           [data.openml_source]
+    |   +-- TaskMismatch                      a solver that does not handle the task [config.spec]
     |   +-- UnknownSolver                                                  [solvers.base]
     |   +-- UnknownProx                                                    [solvers.prox]
     |   +-- RuleError                         stopping rule name or params [stopping.rules]
@@ -35,6 +36,7 @@ The hierarchy (module of each class in brackets)::
     +-- PathError(ValueError)                 unknown evaluation path      [running.fastpath]
     +-- ReferenceRowError(ValueError)         an unreadable reference row  [analysis.references]
     +-- BadArguments(ValueError)              a subcommand's options did not parse [cli]
+    +-- _NeedHydra                            internal: a cached composer meets a new group [config.compose]
 
 The classes outside :class:`SpecError` are raised below the layer that turns them into
 one-line bad input (``DataError`` from a ``SplitError``, the CLI's own handlers for
