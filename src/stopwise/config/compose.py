@@ -96,7 +96,7 @@ class Base:
 _ABSENT = object()
 
 
-class _NeedHydra(StopwiseError):
+class CompositionMiss(StopwiseError):
     """A detached composer met a group or a composition it has not seen (internal)."""
 
 
@@ -155,7 +155,7 @@ class Composer:
         known = self._groups.get(key)
         if known is None:
             if self.repo is None:
-                raise _NeedHydra
+                raise CompositionMiss
             known = self._groups[key] = bool(self.repo.group_exists(key))
         return known and not isinstance(o.value(), dict)
 
@@ -180,7 +180,7 @@ class Composer:
         b = self.bases.get(shaping)
         if b is None:
             if self.repo is None:
-                raise _NeedHydra
+                raise CompositionMiss
             from omegaconf import OmegaConf
 
             cfg = compose_job(list(shaping))
@@ -287,7 +287,7 @@ def compose_cached(overrides: list[str]) -> dict:
         composer.bases.clear()
     try:
         return composer.config(list(overrides))
-    except _NeedHydra:
+    except CompositionMiss:
         pass
     with hydra_context():
         composer.attach()

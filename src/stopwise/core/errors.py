@@ -36,7 +36,7 @@ The hierarchy (module of each class in brackets)::
     +-- PathError(ValueError)                 unknown evaluation path      [running.fastpath]
     +-- ReferenceRowError(ValueError)         an unreadable reference row  [analysis.references]
     +-- BadArguments(ValueError)              a subcommand's options did not parse [cli]
-    +-- _NeedHydra                            internal: a cached composer meets a new group [config.compose]
+    +-- CompositionMiss                       internal: a cached composer meets a new group [config.compose]
 
 The classes outside :class:`SpecError` are raised below the layer that turns them into
 one-line bad input (``DataError`` from a ``SplitError``, the CLI's own handlers for
