@@ -165,11 +165,13 @@ def openml_cache(openml_fixture, tmp_path, monkeypatch, no_network):
 
 @pytest.fixture
 def problem_cache(tmp_path, monkeypatch):
-    """A fresh, empty processed-problem cache for this test (and no in-process memo)."""
+    """A fresh, empty processed-problem cache for this test (and no in-process memo), which
+    stores every problem however quickly it builds (STOPWISE_CACHE_MIN_SECONDS=0)."""
     from stopwise import data
 
     d = tmp_path / "problem-cache"
     monkeypatch.setenv("STOPWISE_CACHE", str(d))
+    monkeypatch.setenv("STOPWISE_CACHE_MIN_SECONDS", "0")
     data._CACHE.clear()
     yield d
     data._CACHE.clear()

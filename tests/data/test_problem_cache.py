@@ -145,3 +145,36 @@ def test_a_sweep_builds_each_data_spec_once(problem_cache, root, capsys):
     assert main(args) == 0
     assert {n: (problem_cache / "problems" / n).stat().st_mtime_ns for n in entries(problem_cache)} == stamps
     capsys.readouterr()
+
+
+def test_by_default_only_problems_that_take_time_to_build_are_written(problem_cache, monkeypatch):
+    """The default threshold: diabetes (442 x 10, about a millisecond) is rebuilt by each run
+    rather than written; a problem that takes longer than the threshold is written."""
+    monkeypatch.delenv("STOPWISE_CACHE_MIN_SECONDS")
+    assert data.cache_min_seconds() == data.CACHE_MIN_SECONDS
+    quick = spec_from_overrides(["dataset=diabetes", "seed=4"])
+    cached_problem(quick.dataset, quick.split, quick.seed)
+    assert entries(problem_cache) == []
+    monkeypatch.setenv("STOPWISE_CACHE_MIN_SECONDS", "0")
+    data._CACHE.clear()
+    cached_problem(quick.dataset, quick.split, quick.seed)
+    assert len(entries(problem_cache)) == 2
+    monkeypatch.setenv("STOPWISE_CACHE_MIN_SECONDS", "bogus")
+    assert data.cache_min_seconds() == data.CACHE_MIN_SECONDS
+
+
+def test_raw_data_kept_in_memory_is_read_only(problem_cache):
+    """A sweep over seeds splits the same raw arrays many times: they are kept, and kept
+    read-only, so a problem built from them cannot change them for the next one."""
+    import pytest
+
+    a = spec_from_overrides(["dataset=diabetes", "seed=0"])
+    b = spec_from_overrides(["dataset=diabetes", "seed=1"])
+    pa_, pb = build_problem(a.dataset, a.split, a.seed), build_problem(b.dataset, b.split, b.seed)
+    (raw,) = [r for k, r in data._RAW.items() if k[0] == "sklearn" and '"diabetes"' in k[1]]
+    with pytest.raises(ValueError):
+        raw.X[0, 0] = 1.0
+    assert not np.shares_memory(pa_.X_train, raw.X) and not np.shares_memory(pb.X_test, raw.X)  # own copies
+    from sklearn.datasets import load_diabetes
+
+    assert np.array_equal(raw.X, load_diabetes(scaled=False).data)

@@ -81,7 +81,7 @@ import json, sys
 assert not any(m.startswith("stopwise") for m in sys.modules)  # a fresh interpreter
 import numpy as np
 import stopwise.running
-from stopwise.config.spec import spec_from_overrides
+from stopwise.config.compose import spec_from_overrides
 from stopwise.problem.problem import Problem
 from stopwise.running.record import METRIC_SETS, make_recorder
 from stopwise.running.runner import execute

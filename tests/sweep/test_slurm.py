@@ -103,12 +103,18 @@ def sequential(tmp_path_factory):
 @pytest.fixture(scope="module")
 def on_slurm(tmp_path_factory):
     """The same sweep through `hydra/launcher=slurm`, and the controller's view of its jobs
-    right after it returned."""
+    once they have ended."""
     if scheduler_missing():
         pytest.skip(scheduler_missing())
     root = tmp_path_factory.mktemp("slurm") / "res"
     res = cli(*QUICK, *SLURM, f"results_root={root}", cwd=root.parent, timeout=900)
-    states = _controller_states(f"stopwise-{_campaign_id(res.stdout)}") if res.stdout else []
+    states = []
+    if res.stdout:
+        # a task may still be exiting when its result is read: wait (bounded) until the
+        # controller lists it as ended, then read how it ended
+        name = f"stopwise-{_campaign_id(res.stdout)}"
+        _wait_until_no_job_left(name, limit_s=120)
+        states = _controller_states(name)
     return root, res, states
 
 

@@ -21,6 +21,8 @@ checks both ways against composing every job from scratch.
 from __future__ import annotations
 
 import copy
+import dataclasses
+import re
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any, Iterator
@@ -94,6 +96,7 @@ class Base:
 
 
 _ABSENT = object()
+_NUMBER = re.compile(r"^([A-Za-z_][A-Za-z0-9_]*(?:\.[A-Za-z_][A-Za-z0-9_]*)*)=(-?(?:0|[1-9][0-9]*)(?:\.[0-9]+)?)$")
 
 
 class CompositionMiss(StopwiseError):
@@ -114,6 +117,7 @@ class Composer:
         self.parser = OverridesParser.create()  # grammar only; attach() adds Hydra's loader
         self.repo = None
         self._parsed: dict[str, Any] = {}
+        self._templates: dict[str, Any] = {}
         self._groups: dict[str, bool] = {}
         self.bases: dict[tuple[str, ...], Base] = {}
         if live:
@@ -139,13 +143,37 @@ class Composer:
     def parse(self, line: str):
         o = self._parsed.get(line)
         if o is None:
-            from hydra.errors import HydraException
+            o = self._parse_number(line)
+        if o is None:
+            o = self._parsed[line] = self._grammar(line)
+        return o
 
-            try:
-                (o,) = self.parser.parse_overrides([line])
-            except HydraException as e:
-                raise SpecError(hydra_error_line(e)) from None
-            self._parsed[line] = o
+    def _grammar(self, line: str):
+        from hydra.errors import HydraException
+
+        try:
+            (o,) = self.parser.parse_overrides([line])
+        except HydraException as e:
+            raise SpecError(hydra_error_line(e)) from None
+        return o
+
+    def _parse_number(self, line: str):
+        """``key=12`` / ``key=-0.5``: the Override Hydra's grammar makes of it, without
+        running the grammar (a sweep over a thousand seeds has a thousand such lines).
+        Hydra's parse of the first ``key=0`` of each key is the template; only plain
+        decimal numbers take this path (``tests/config/test_compose.py`` checks them)."""
+        m = _NUMBER.match(line)
+        if m is None:
+            return None
+        key, text = m.group(1), m.group(2)
+        template = self._templates.get(key)
+        if template is None:
+            template = self._templates[key] = self._grammar(f"{key}=0")
+            if template.type.name != "CHANGE" or template.value_type.name != "ELEMENT":
+                return None
+        value = float(text) if "." in text else int(text)
+        o = dataclasses.replace(template, _value=value, input_line=line)
+        self._parsed[line] = o
         return o
 
     def is_group(self, o) -> bool:

@@ -8,6 +8,7 @@ the solver and source params declare, and raises :class:`SpecError` with one lin
 from __future__ import annotations
 
 import dataclasses
+import functools
 import hashlib
 import json
 import math
@@ -299,8 +300,8 @@ class RunSpec:
             ident["halt"] = {"rule": self.stopping["rule"], "params": self.stopping.get("params", {})}
         return ident
 
-    @property
-    def digest(self) -> str:
+    @functools.cached_property
+    def digest(self) -> str:  # computed once: a spec is frozen
         return hashlib.sha256(canonical_json(self.identity()).encode()).hexdigest()
 
     @property
@@ -381,15 +382,41 @@ def spec_from_config(cfg: Any) -> RunSpec:
                    record=record, seed=seed, stopping=stopping)
 
 
+_DATASETS: dict[str, dict] = {}  # normalized dataset sections by their input (a sweep repeats a few)
+
+
+@functools.lru_cache(maxsize=None)
+def _default_items(cls: type) -> str:
+    return json.dumps(dataclasses.asdict(cls()))
+
+
+def _defaults(cls: type) -> dict:
+    """A fresh dict of a fixed schema's defaults (built once per class, copied per call)."""
+    return json.loads(_default_items(cls))
+
+
 def _dataset_section(raw: dict) -> dict:
     try:
-        return normalize_dataset(raw)
+        key = json.dumps(raw, sort_keys=True, default=repr)
+    except (TypeError, ValueError):
+        key = None
+    hit = _DATASETS.get(key) if key is not None else None
+    if hit is not None:
+        return json.loads(json.dumps(hit))  # a fresh copy: a RunSpec owns its dict
+    try:
+        out = normalize_dataset(raw)
     except DataError as e:
         raise SpecError(str(e)) from None
+    if key is not None and len(_DATASETS) < 256:
+        try:
+            _DATASETS[key] = json.loads(json.dumps(out))
+        except (TypeError, ValueError):  # not plain data: not kept
+            pass
+    return out
 
 
 def _split_section(raw: dict | None) -> dict:
-    split = dict(dataclasses.asdict(SplitConfig()), **(raw or {}))
+    split = dict(_defaults(SplitConfig), **(raw or {}))
     _check("split.kind", split["kind"])
     split["test"] = float(_check("split.test", split["test"]))
     split["val"] = float(_check("split.val", split["val"]))
@@ -439,7 +466,7 @@ def _solver_section(raw: dict, dataset: dict, asked_loss: Any) -> tuple[str, Any
 
 
 def _budget_section(raw: dict | None) -> dict:
-    budget = dict(dataclasses.asdict(BudgetConfig()), **(raw or {}))
+    budget = dict(_defaults(BudgetConfig), **(raw or {}))
     budget["iterations"] = int(_check("budget.iterations", budget["iterations"]))
     if budget["passes"] is not None:
         budget["passes"] = float(_check("budget.passes", budget["passes"]))
@@ -448,7 +475,7 @@ def _budget_section(raw: dict | None) -> dict:
 
 
 def _record_section(raw: dict | None) -> dict:
-    record = dict(dataclasses.asdict(RecordConfig()), **(raw or {}))
+    record = dict(_defaults(RecordConfig), **(raw or {}))
     keys = [f.name for f in dataclasses.fields(RecordConfig)]
     unknown = sorted(set(record) - set(keys))
     if unknown:
@@ -478,7 +505,7 @@ def _run_options_section(c: dict) -> None:
 
 def _stopping_section(raw: dict | None, record: dict, dataset: dict) -> dict:
     try:
-        stopping = normalize_stopping(dict(dataclasses.asdict(StoppingConfig()), **(raw or {})))
+        stopping = normalize_stopping(dict(_defaults(StoppingConfig), **(raw or {})))
     except RuleError as e:
         raise SpecError(str(e)) from None
     if stopping["halt"]:

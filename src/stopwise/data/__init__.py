@@ -364,7 +364,20 @@ def problem_key(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> st
 # A problem that builds faster than this is not written to the on-disk cache: reading
 # it back would cost about as much as building it (diabetes: ~1 ms) and every write is a
 # file pair per run. Costly problems (OpenML, large generators, random features) are cached.
+# STOPWISE_CACHE_MIN_SECONDS overrides it (0: cache every problem).
 CACHE_MIN_SECONDS = 0.05
+
+
+def cache_min_seconds() -> float:
+    """The build time from which a problem is written to the on-disk cache."""
+    import os
+
+    text = os.environ.get("STOPWISE_CACHE_MIN_SECONDS", "")
+    try:
+        v = float(text) if text else CACHE_MIN_SECONDS
+    except ValueError:
+        v = CACHE_MIN_SECONDS
+    return v if v >= 0 else CACHE_MIN_SECONDS
 
 _CACHE: "OrderedDict[str, Problem]" = OrderedDict()
 _CACHE_SIZE = 8
@@ -389,7 +402,7 @@ def cached_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) ->
     if prob is None:
         t0 = time.perf_counter()
         prob = build_problem(dataset, split, seed)
-        if time.perf_counter() - t0 >= CACHE_MIN_SECONDS:
+        if time.perf_counter() - t0 >= cache_min_seconds():
             _cache.write(key, prob)
     return _remember(key, prob)
 
@@ -397,7 +410,7 @@ def cached_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) ->
 def prepare_problems(specs: Iterable[Any]) -> int:
     """Build every distinct data spec of ``specs`` (RunSpecs) that is not cached yet, then
     keep them all in this process and store the costly ones in the on-disk cache (those
-    that took at least :data:`CACHE_MIN_SECONDS`). Raises :class:`DataError` on the first
+    that took at least :func:`cache_min_seconds`). Raises :class:`DataError` on the first
     bad one, before anything is written. Returns the number of distinct data specs."""
     todo: list[tuple[str, Problem, float]] = []
     seen: set[str] = set()
@@ -411,8 +424,9 @@ def prepare_problems(specs: Iterable[Any]) -> int:
         t0 = time.perf_counter()
         prob = build_problem(s.dataset, s.split, s.seed)
         todo.append((key, prob, time.perf_counter() - t0))
+    least = cache_min_seconds()
     for key, prob, took in todo:
-        if took >= CACHE_MIN_SECONDS:
+        if took >= least:
             _cache.write(key, prob)
         _remember(key, prob)
     return len(seen)

@@ -41,7 +41,13 @@ _COUNTER = re.compile(r"^Call #\d+ - ")
 
 class OncePerSweep(logging.Filter):
     """Pass a warning (or worse) of submitit's logger only the first time its text is seen,
-    with the poll counter (``Call #N - ``) left out of the comparison."""
+    with the poll counter (``Call #N - ``) left out of the comparison.
+
+    >>> f = OncePerSweep()
+    >>> rec = lambda msg: logging.LogRecord("submitit", logging.WARNING, "", 0, msg, None, None)
+    >>> [f.filter(rec(m)) for m in ("Call #1 - sacct failed", "Call #2 - sacct failed", "other")]
+    [True, False, True]
+    """
 
     def __init__(self) -> None:
         super().__init__("")
