@@ -166,3 +166,14 @@ def test_the_python_api_composes_once_per_group_choice(tmp_path, monkeypatch):
 def per_job_fresh(job):
     with hydra_context():
         return per_job(job)
+
+
+@pytest.mark.parametrize("line", ["seed=0", "seed=17", "solver.step_scale=-0.25", "budget.iterations=300",
+                                  "split.val=0.10", "seed=-0"])
+def test_numbers_parsed_without_the_grammar_are_what_the_grammar_makes(line):
+    with hydra_context():
+        composer = Composer()
+        composer.parse(line.split("=")[0] + "=5")  # the template comes first
+        fast = composer.parse(line)
+        (ref,) = composer.parser.parse_overrides([line])
+    assert fast == ref and type(fast.value()) is type(ref.value())

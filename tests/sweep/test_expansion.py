@@ -166,3 +166,15 @@ def test_resume_runs_only_what_is_missing_or_failed(tmp_path, capsys):
     code, out, err = sweep(capsys, *args)
     assert "3 completed; every run already stored" in out
     assert not [line for line in out.splitlines() if line.startswith("[")]
+
+
+def test_the_readme_sweep_with_collapse_and_pairs_runs_as_documented(tmp_path, capsys):
+    """The README's line, as written there (budget aside, to keep the test short)."""
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text().splitlines()
+    (line,) = [x for x in readme if "solver.batch=0.05,0.2 dataset=diabetes,breast_cancer" in x]
+    args = line.split("#")[0].split()[2:]  # drop ".venv/bin/stopwise sweep"
+    code, out, err = sweep(capsys, *args, "budget.iterations=20", f"results_root={tmp_path / 'res'}")
+    assert code == 0, err
+    assert "note: solver.batch does not apply to gd, nesterov: collapsed for them" in out
+    assert "left out 1 solver x dataset pair that cannot run: " not in out  # gd, nesterov, sgd all take binary
+    assert "12 jobs, 8 distinct runs" in out, out

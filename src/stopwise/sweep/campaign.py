@@ -307,7 +307,9 @@ def quote(value: str) -> str:
 
 def launcher_workers(exp: Expansion) -> tuple[str, int]:
     """(the launcher's kind, how many chunks it runs at once), read from Hydra's own
-    composition of the sweep's launcher overrides."""
+    composition of the sweep's launcher overrides (none: Hydra's basic launcher)."""
+    if not exp.launch_overrides:
+        return "basic", 1
     with hydra_context():
         cfg = compose_job(exp.launch_overrides + [f"results_root={quote(exp.root)}"], return_hydra_config=True)
     target = str(cfg.hydra.launcher.get("_target_", ""))
@@ -321,9 +323,11 @@ def launcher_workers(exp: Expansion) -> tuple[str, int]:
 
 def chunk_count(pending: int, kind: str, workers: int, size: int | None = None) -> int:
     """How many chunks ``pending`` runs are cut into: ``--chunk N`` runs each when given;
-    one for the in-process launcher; four per worker for a local pool (so a slow chunk at
-    the end keeps the others busy); for a queue, one array task per worker at most and at
-    least 16 runs per task (an array task starts a Python process of its own)."""
+    one for the in-process launcher; two per worker for a local pool (Hydra composes the
+    config of every launched job, about 0.3 s each, in the launching process and again in
+    the worker, so few chunks; :func:`stopwise.sweep.chunks.cut` balances them); for a
+    queue, one array task per worker at most and at least 16 runs per task (an array task
+    starts a Python process of its own)."""
     if pending <= 0:
         return 0
     if size is not None:
@@ -331,7 +335,7 @@ def chunk_count(pending: int, kind: str, workers: int, size: int | None = None) 
     if kind == "basic":
         return 1
     if kind == "joblib":
-        return min(pending, 4 * workers)
+        return min(pending, 2 * workers)
     return max(1, min(workers, math.ceil(pending / 16)))
 
 
@@ -360,7 +364,8 @@ def launch(exp: Expansion, chunk: int | None = None) -> dict[str, Any]:
     kind, workers = launcher_workers(exp)
     k = chunk_count(len(pending), kind, workers, chunk)
     cid = exp.manifest["campaign_id"]
-    plan.write_plan(store, cid, pending, k, total=len(exp.run_ids), done_before=len(exp.run_ids) - len(pending))
+    sizes = plan.write_plan(store, cid, pending, k, total=len(exp.run_ids), done_before=len(exp.run_ids) - len(pending))
+    k = len(sizes)
     argv = ["stopwise", "--multirun", *exp.launch_overrides, f"results_root={quote(exp.root)}",
             f"campaign_id={cid}", f"+chunk={','.join(str(i) for i in range(k))}"]
     if exp.threads is not None:

@@ -11,7 +11,8 @@ Layout, under ``RESULTS/jobs/CAMPAIGN_ID/`` (Hydra's sweep folder for the campai
   before the launch and the runs finished since; updated under an exclusive lock by
   every worker, so each progress line carries an exact count.
 
-Runs that share a problem are put next to each other, so a chunk builds each problem once.
+Runs that share a problem go to one chunk, next to each other, so a chunk builds each
+problem once.
 """
 from __future__ import annotations
 
@@ -37,34 +38,45 @@ def chunk_path(store: Store, campaign_id: str, k: int) -> Path:
     return jobs_dir(store, campaign_id) / "chunks" / f"{int(k)}.json"
 
 
-def order_by_problem(specs: list[RunSpec]) -> list[RunSpec]:
-    """Runs of the same data (dataset, split, seed) next to each other, first-seen order kept."""
+def problem_groups(specs: list[RunSpec]) -> list[list[RunSpec]]:
+    """Runs of the same data (dataset, split, seed) together, first-seen order kept."""
     groups: dict[str, list[RunSpec]] = {}
     for s in specs:
         groups.setdefault(canonical_json([s.dataset, s.split, s.seed]), []).append(s)
-    return [s for g in groups.values() for s in g]
+    return list(groups.values())
+
+
+def cut(specs: list[RunSpec], k: int) -> list[list[RunSpec]]:
+    """``k`` chunks of near-equal run counts. Runs of one problem stay in one chunk (so it
+    is built once) unless a group is larger than a chunk; groups are dealt to the chunk
+    with the fewest runs so far, so a campaign whose datasets differ in cost mixes them."""
+    target = math.ceil(len(specs) / k) if k else 0
+    pieces: list[list[RunSpec]] = []
+    for g in problem_groups(specs):
+        pieces += [g[i:i + target] for i in range(0, len(g), target)] if len(g) > target else [g]
+    chunks: list[list[RunSpec]] = [[] for _ in range(k)]
+    for piece in pieces:
+        min(chunks, key=len).extend(piece)
+    return [c for c in chunks if c]
 
 
 def write_plan(store: Store, campaign_id: str, pending: list[RunSpec], k: int, total: int,
                done_before: int) -> list[int]:
-    """Cut ``pending`` into ``k`` contiguous chunks of near-equal size, write one chunk file
-    each (replacing any of an earlier launch) and reset the progress count. Returns the sizes."""
+    """Cut ``pending`` into ``k`` chunks (:func:`cut`), write one chunk file each
+    (replacing any of an earlier launch) and reset the progress count. Returns the sizes."""
     folder = jobs_dir(store, campaign_id) / "chunks"
     if folder.is_dir():
         for old in folder.glob("*.json"):
             old.unlink()
-    ordered = order_by_problem(pending)
-    sizes = [len(ordered) // k + (1 if i < len(ordered) % k else 0) for i in range(k)]
-    at = 0
-    for i, n in enumerate(sizes):
-        runs = [[s.run_id, s.identity()] for s in ordered[at:at + n]]
-        at += n
+    chunks = cut(pending, k)
+    for i, part in enumerate(chunks):
+        runs = [[s.run_id, s.identity()] for s in part]
         atomic_write_bytes(chunk_path(store, campaign_id, i),
                            json.dumps({"chunk": i, "runs": runs}, separators=(",", ":")).encode(), durable=False)
     atomic_write_bytes(jobs_dir(store, campaign_id) / "progress.json",
                        json.dumps({"start": time.time(), "total": total, "before": done_before,
                                    "pending": len(pending), "done": 0}).encode(), durable=False)
-    return sizes
+    return [len(c) for c in chunks]
 
 
 def read_chunk(store: Store, campaign_id: str, k: int) -> list[tuple[str, Any]]:
@@ -229,5 +241,5 @@ def run_chunk(root: str, campaign_id: str, k: int, threads: int | None = None) -
     return counts
 
 
-__all__ = ["chunk_path", "count_one", "order_by_problem", "progress_prefix", "read_chunk", "run_chunk",
+__all__ = ["chunk_path", "count_one", "cut", "problem_groups", "progress_prefix", "read_chunk", "run_chunk",
            "write_plan"]
