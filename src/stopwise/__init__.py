@@ -15,6 +15,8 @@ Public API::
     load_references()                 published reference scores shipped with the package
     rank(selections, rule, ...)       tune on validation error, aggregate over seeds, rank across datasets
     rank_campaign(root, campaign, rule)  the same on a stored campaign (reads only the columns it needs)
+    compare_campaign(root, campaign)  stopping rules against the oracle on a campaign's paths, ranked
+    compare_rules(selections)         the same on a select() table that holds the oracle rows
     report_campaign(root, campaign)   static HTML report (tables, PNG figures) of a campaign
     verify_root(root, quarantine=False)   check every trace and manifest under a results root
 """
@@ -44,6 +46,8 @@ _LAZY = {
     "load_references": "analysis.references",
     "RULES": "stopping.rules", "RuleContext": "stopping.rules", "Selection": "stopping.rules", "apply_rule": "stopping.rules",
     "Ranking": "analysis.rank", "RankError": "analysis.rank", "Target": "analysis.rank", "rank": "analysis.rank", "rank_campaign": "analysis.rank",
+    "compare_campaign": "analysis.rule_comparison", "compare_rules": "analysis.rule_comparison",
+    "RuleComparison": "analysis.rule_comparison",
     "RankTest": "analysis.rankstats", "critical_difference": "analysis.rankstats", "data_profile": "analysis.rankstats",
     "friedman_from_ranks": "analysis.rankstats", "friedman_test": "analysis.rankstats", "nemenyi_q": "analysis.rankstats",
     "performance_profile": "analysis.rankstats", "rank_table": "analysis.rankstats", "student_interval": "analysis.rankstats",
@@ -97,7 +101,7 @@ __all__ = ["RawData", "SourceDef", "build_problem", "cached_problem", "register_
            "BASELINES", "ensure_baselines", "fit_path", "load_baselines", "load_references",
            "RankError", "RankTest", "Ranking", "Target", "critical_difference", "data_profile", "friedman_from_ranks",
            "friedman_test", "nemenyi_q", "performance_profile", "rank", "rank_campaign", "rank_table",
-           "report_campaign", "student_interval",
+           "report_campaign", "student_interval", "RuleComparison", "compare_campaign", "compare_rules",
            "LOSSES", "get_loss", "HardMargin", "hard_margin", "is_separable", "normalized_margin",
            "LinearModel", "TwoLayerReLU", "verify_root",
            "AveragingParams", "SGDParams", "averaged", "minibatch_gradient"]

@@ -477,18 +477,46 @@ def cmd_rank(argv: list[str]) -> int:
                                           "rank the methods across datasets")
     ap.add_argument("--format", default="text", choices=FORMATS, help="output format (default text)")
     ap.add_argument("--out", default=None, metavar="FILE", help="write the output to FILE instead of the terminal")
+    ap.add_argument("--compare", action="append", default=None, metavar="NAME[:k=v,...]|none",
+                    help="stopping rule to compare against the oracle, repeatable (default: the campaign's rules "
+                         "and every registered rule at its defaults; none: no comparison; not in csv format)")
     a = ap.parse_args(argv)
     try:
+        compare = _compare_rules_arg(a.compare)
         r = rank_campaign(a.root, a.campaign, a.rule, baselines=a.baselines, **_ranking_options(a))
+        text = render(r, a.format)
+        if compare is not False and a.format != "csv":
+            from stopwise.analysis.rule_comparison import compare_campaign
+            from stopwise.report.tables import render_rules
+
+            opts = _ranking_options(a)
+            c = compare_campaign(a.root, a.campaign, compare, method_by=opts["method_by"], params=opts["params"],
+                                 alpha=a.alpha)
+            text += ("\n" if a.format == "text" else "\n### Stopping rules compared\n\n") + render_rules(c, a.format)
     except (SpecError, StoreError) as e:
         return _fail(str(e))
-    text = render(r, a.format)
     if a.out:
         atomic_write_bytes(Path(a.out), text.encode())
         print(f"wrote {a.out}")
     else:
         print(text, end="")
     return 0
+
+
+def _compare_rules_arg(values: list[str] | None):
+    """``--compare`` values: None (the default set), False (``none``) or a list of rule specs."""
+    if values is None:
+        return None
+    if values == ["none"]:
+        return False
+    from stopwise.analysis.selection import parse_rule_arg
+    from stopwise.stopping.rules import rule_specs
+
+    specs = [parse_rule_arg(v) for v in values]
+    if any(s["rule"] == "oracle" for s in specs):
+        raise BadArguments("--compare oracle is invalid: the oracle is what the rules are compared against")
+    rule_specs(specs)  # unknown names and bad params: one line
+    return specs
 
 
 def cmd_report(argv: list[str]) -> int:

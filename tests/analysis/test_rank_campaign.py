@@ -89,7 +89,9 @@ def test_rank_command_formats_and_output_file(campaign, tmp_path):
     assert csv.loc[csv.kind == "explicit", "average_rank"].isna().all()  # ranked by passes: iterative only
     target = tmp_path / "ranking.md"
     code, out, _ = cli("rank", cid, "--root", str(root), "--format", "markdown", "--out", str(target))
-    assert code == 0 and target.read_text().count("| dataset |") == 2
+    md = target.read_text()
+    method_part, _, rules_part = md.partition("### Stopping rules compared")
+    assert code == 0 and method_part.count("| dataset |") == 2 and "| rule |" in rules_part
 
 
 @pytest.mark.parametrize("args, hint", [
@@ -145,7 +147,14 @@ def test_report_command_writes_a_complete_offline_page(campaign, tmp_path):
 
     Reader().feed(html)
     names = {Path(i["src"]).stem for i in imgs}
-    assert names == {"curves", "implicit_explicit", "profiles", "critical_difference", "heatmaps"}
+    assert {"curves", "implicit_explicit", "profiles", "critical_difference", "heatmaps", "stopping_rules"} <= names
+    assert names <= {"curves", "implicit_explicit", "profiles", "critical_difference", "heatmaps", "stopping_rules",
+                     "critical_difference_rules"}
+    assert "<h2>Stopping rules compared</h2>" in html
+    rules = pd.read_csv(out / "rules.csv")
+    assert {"dataset", "method", "config", "rule", "relative_error", "not_stopped"} <= set(rules.columns)
+    assert "oracle" not in set(rules["rule"]) and (rules["relative_error"].dropna() >= 1).all()
+    assert "## Stopping rules compared" in (out / "tables.md").read_text()
     assert len(captions) == len(imgs) and all(len(c) > 60 for c in captions)
     for i in imgs:
         with Image.open(out / i["src"]) as im:

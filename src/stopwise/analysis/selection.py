@@ -25,7 +25,8 @@ from stopwise.results.schema import one_line, read_trace
 from stopwise.results.store import Store, StoreError
 
 SELECT_COLUMNS = ("run_id", "dataset", "solver", "seed", "status", "rule", "reference", "selected_iteration",
-                  "selected_passes", "passes_spent", "val_error", "test_error", "train_error", "reason")
+                  "selected_passes", "passes_spent", "val_error", "test_error", "train_error", "reason", "outcome",
+                  "last_test_error")
 # errors of the selected iterate that every selection row reports
 REPORTED = ("val_error", "test_error", "train_error")
 _HEAD = SELECT_COLUMNS[:4]
@@ -69,7 +70,12 @@ def select(root: str | Path = "results", campaign: str | None = None,
 
     Columns: run_id, dataset, solver, seed, <solver params>, status, rule, reference,
     selected_iteration (nullable), selected_passes, passes_spent, val_error, test_error,
-    train_error, reason. Errors are those of the selected iterate (NaN when none).
+    train_error, reason, outcome, last_test_error. Errors are those of the selected iterate
+    (NaN when none). ``outcome`` is ``stopped`` (the rule decided before the trace's end and
+    later iterates cannot change it), ``not stopped`` (evaluated on the whole trace without
+    deciding), ``not applicable`` (the rule cannot be evaluated on this trace, ``reason``
+    says why) or ``no trace``; ``last_test_error`` is the test error of the trace's last
+    row, what a run that its rule does not stop returns.
     """
     store = Store(root)
     if campaign is not None:
@@ -97,13 +103,15 @@ def select(root: str | Path = "results", campaign: str | None = None,
         status = (meta or {}).get("status", "missing" if why.startswith("no trace") else "failed")
         ctx = RuleContext.from_problem_info((meta or {}).get("problem"))
         empty = trace is None or len(trace) == 0
+        last_test = (float(trace["test_error"].iloc[-1]) if not empty and "test_error" in trace else math.nan)
         for spec, rdef, params in defs:
             row = dict(base, status=status, rule=spec["label"], reference=bool(rdef.reference))
             if empty:
                 reason = why or (f"run {status}: {(meta or {}).get('message', '')}".rstrip(": ")
                                  if status == "failed" else "empty trace")
                 row.update(selected_iteration=None, selected_passes=math.nan, passes_spent=0.0,
-                           val_error=math.nan, test_error=math.nan, train_error=math.nan, reason=reason)
+                           val_error=math.nan, test_error=math.nan, train_error=math.nan, reason=reason,
+                           outcome="no trace", last_test_error=math.nan)
             else:
                 sel = rdef.select(trace, ctx, params)
                 r = sel.row
@@ -113,7 +121,8 @@ def select(root: str | Path = "results", campaign: str | None = None,
 
                 row.update(selected_iteration=sel.iteration, selected_passes=sel.passes_selected,
                            passes_spent=sel.passes_spent, val_error=at("val_error"), test_error=at("test_error"),
-                           train_error=at("train_error"), reason=sel.reason)
+                           train_error=at("train_error"), reason=sel.reason, outcome=sel.outcome,
+                           last_test_error=last_test)
             rows.append(row)
     columns = list(_HEAD) + param_names + list(_TAIL)
     if not rows:
@@ -125,7 +134,7 @@ def select(root: str | Path = "results", campaign: str | None = None,
     df = df[columns]
     df["selected_iteration"] = df["selected_iteration"].astype("Int64")
     df["reference"] = df["reference"].astype(bool)
-    for c in ("selected_passes", "passes_spent", "val_error", "test_error", "train_error"):
+    for c in ("selected_passes", "passes_spent", "val_error", "test_error", "train_error", "last_test_error"):
         df[c] = df[c].astype(np.float64)
     return df.reset_index(drop=True)
 

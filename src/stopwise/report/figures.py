@@ -385,3 +385,72 @@ def _box(j: int, i: int):
 
 __all__ = ["Plot", "critical_difference_diagram", "curves", "heatmaps", "implicit_explicit", "method_colors",
            "profiles"]
+
+
+# ---------------------------------------------------------------- stopping rules compared
+
+CLIP = 100.0  # relative errors above this are drawn at it
+
+
+def rule_comparison(per_run: pd.DataFrame, rules: Sequence[str]) -> Plot:
+    """Left: each rule's test error at its choice relative to the oracle's, one dot per run
+    (datasets in colour), with the median as a bar. Right: median relative error against
+    median passes spent per rule, both over every run where the rule applies."""
+    runs = per_run[np.isfinite(per_run["relative_error"].to_numpy(float))]
+    fig = Figure(figsize=(11.5, 4.2))
+    ax, bx = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.6, 1]})
+    datasets = sorted(map(str, runs["dataset"].unique()))
+    colors = method_colors(datasets)
+    rng = np.random.default_rng(0)  # horizontal jitter only, so dots of one rule don't hide each other
+    finite_hi, clipped = 1.0, {}
+    for i, r in enumerate(rules):
+        sub = runs[runs["rule"] == r]
+        for d in datasets:
+            y = sub.loc[sub["dataset"].astype(str) == d, "relative_error"].to_numpy(float)
+            if y.size:
+                over = y > CLIP
+                y = np.minimum(y, CLIP)
+                finite_hi = max(finite_hi, float(y.max()))
+                x = i + rng.uniform(-0.28, 0.28, y.size)
+                ax.scatter(x[~over], y[~over], s=9, alpha=0.55, color=colors[d],
+                           label=d if d not in ax.get_legend_handles_labels()[1] else None)
+                if over.any():  # drawn at the clip, as triangles pointing up
+                    ax.scatter(x[over], y[over], s=22, marker="^", alpha=0.8, color=colors[d])
+                    clipped[i] = clipped.get(i, 0) + int(over.sum())
+        if len(sub):
+            med = float(np.median(sub["relative_error"]))
+            ax.hlines(med, i - 0.38, i + 0.38, color="black", lw=2.2)
+    ax.axhline(1.0, color="#555555", lw=0.8, ls="--")
+    for i, k in clipped.items():
+        ax.annotate(f"{k} > {CLIP:g}", (i, CLIP), textcoords="offset points", xytext=(0, 6), ha="center", fontsize=7)
+    ax.set_xticks(range(len(rules)))
+    ax.set_xticklabels(list(rules), rotation=25, ha="right")
+    ax.set_yscale("log")
+    ax.set_ylim(0.98, max(1.05, finite_hi * (1.6 if clipped else 1.15)))
+    _plain_log_ticks(ax)
+    ax.set_ylabel("test error at the rule's choice / oracle's (log)")
+    handles, labels = ax.get_legend_handles_labels()
+    uniq = dict(zip(labels, handles))
+    if uniq:
+        ax.legend(uniq.values(), uniq.keys(), fontsize=8, title="dataset", title_fontsize=8, loc="upper left")
+    for i, r in enumerate(rules):
+        sub = runs[runs["rule"] == r]
+        if not len(sub):
+            continue
+        x = float(np.median(sub["passes_spent"].to_numpy(float)))
+        y = float(np.median(sub["relative_error"].to_numpy(float)))
+        bx.scatter([max(x, 1e-3)], [y], marker=RULE_MARKERS[i % len(RULE_MARKERS)], s=60, color=PALETTE[i % len(PALETTE)],
+                   label=r)
+    bx.set_xscale("log")
+    bx.set_xlabel("data passes the rule spent before deciding (median, log)")
+    bx.set_ylabel("test error / oracle's (median)")
+    bx.axhline(1.0, color="#555555", lw=0.8, ls="--")
+    bx.legend(fontsize=8, loc="best")
+    caption = ("Stopping rules compared on the campaign's own paths: for each run, the test error of the iterate "
+               "each rule returns divided by the smallest test error recorded on the same path (the oracle; "
+               "1 = the rule found the best iterate; dashed line). A rule that never decides returns its choice "
+               "after the whole trace, or the last iterate. Bars: medians. Right: median error ratio against the "
+               "median data passes the rule needed before deciding (lower left is better). Runs where a rule "
+               f"cannot be evaluated are left out; ratios above {CLIP:g} are drawn at {CLIP:g} as triangles.")
+    alt = "Strip plot of error ratio per stopping rule (%s) and a scatter of ratio against passes." % ", ".join(rules)
+    return Plot("stopping_rules", caption, alt, _png(fig))

@@ -7,6 +7,8 @@ Layout of the output folder::
     tables.md           the page's tables in Markdown
     results.csv         per (dataset, method) numbers at full precision
     ranks.csv, tests.csv
+    rules.csv           stopping rules compared, per (dataset, method, configuration, rule)
+    rules_per_run.csv   the same per (run, rule)
     figures/<name>.png  every figure the page shows
 
 Everything is computed before the first file is written; each file is written
@@ -19,7 +21,7 @@ import os
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Sequence
+from typing import Any, Sequence
 
 import pandas as pd
 
@@ -27,7 +29,8 @@ from stopwise.core.version import __version__
 from stopwise.report.figures import Plot
 from stopwise.analysis.rank import Ranking
 from stopwise.results.store import atomic_write_bytes
-from stopwise.report.tables import display_tables, heading, to_csv, to_markdown
+from stopwise.report.tables import (display_tables, heading, render_rules, rules_frame, rules_scores_frame, to_csv,
+                                    to_markdown)
 
 FIGURE_DIR = "figures"
 
@@ -57,6 +60,7 @@ class ReportPage:
     plots: list[Plot]
     context: list[str] = field(default_factory=list)   # plain-text lines shown under the title
     notes: list[str] = field(default_factory=list)
+    rules: Any = None  # a RuleComparison: the stopping rules compared against the oracle
 
 
 def _html_table(df: pd.DataFrame) -> str:
@@ -97,6 +101,24 @@ def render_html(page: ReportPage) -> str:
     notes = list(r.notes) + list(page.notes)
     if notes:
         parts.append('<ul class="notes">' + "".join(f"<li>{esc(n)}</li>" for n in notes) + "</ul>")
+    if page.rules is not None:
+        c = page.rules
+        parts.append("<h2>Stopping rules compared</h2>")
+        parts.append("<p>Test error of the iterate each rule returns relative to the oracle's (the smallest test "
+                     "error recorded on the same path), data passes the rule spent before deciding, and how often "
+                     "it did not stop or stopped at iteration 0; per run in rules_per_run.csv, per dataset, method "
+                     "and configuration in rules.csv.</p>")
+        parts.append(_html_table(rules_frame(c)))
+        sc = rules_scores_frame(c)
+        if not sc.empty:
+            parts.append("<h3>Per dataset: median over paths of error / oracle</h3>")
+            parts.append(_html_table(sc))
+        if c.test is not None:
+            parts.append("<h3>Rank tests of the rules (Friedman, Iman-Davenport, Nemenyi)</h3>")
+            from stopwise.report.tables import num
+            parts.append(_html_table(c.test.as_frame().assign(value=lambda f: f["value"].map(num))))
+        if c.notes:
+            parts.append('<ul class="notes">' + "".join(f"<li>{esc(n)}</li>" for n in c.notes) + "</ul>")
     parts.append("<h2>Figures</h2>")
     for i, p in enumerate(page.plots, 1):
         parts.append(f'<figure id="{esc(p.name)}"><img src="{FIGURE_DIR}/{esc(p.name)}.png" alt="{esc(p.alt, quote=True)}">'
@@ -118,6 +140,8 @@ def render_markdown(page: ReportPage) -> str:
     notes = list(r.notes) + list(page.notes)
     if notes:
         out += [""] + [f"- note: {n}" for n in notes]
+    if page.rules is not None:
+        out += ["", "## Stopping rules compared", "", render_rules(page.rules, "markdown").rstrip("\n")]
     out += ["", "## Figures", ""]
     for i, p in enumerate(page.plots, 1):
         out += [f"![{p.alt}]({FIGURE_DIR}/{p.name}.png)", "", f"*Figure {i}. {p.caption}*", ""]
@@ -137,6 +161,9 @@ def write_report(page: ReportPage, out_dir: str | Path) -> Path:
         files.append((out / "ranks.csv", to_csv(raw["ranks"]).encode()))
     if not raw["tests"].empty:
         files.append((out / "tests.csv", to_csv(raw["tests"]).encode()))
+    if page.rules is not None:
+        files.append((out / "rules.csv", to_csv(page.rules.table).encode()))
+        files.append((out / "rules_per_run.csv", to_csv(page.rules.per_run).encode()))
     files.append((out / "tables.md", render_markdown(page).encode()))
     files.append((out / "index.html", render_html(page).encode()))  # last: the page appears when all is there
     mode = 0o666 & ~_umask()
@@ -270,7 +297,20 @@ def report_campaign(root: str | Path = "results", campaign: str = "", out: str |
                f"Seeds are repeated random splits and initializations; intervals are two-sided Student t intervals "
                f"at {ranking.confidence:g} over seeds. Stopping points are marked for rules: "
                + ", ".join(dict.fromkeys([data.rule] + [rule_spec(r)["label"] for r in extra])) + "."]
-    page = ReportPage(f"stopwise report: campaign {manifest.get('name', campaign)}", ranking, plots, context, notes)
+    from stopwise.analysis.rule_comparison import compare_campaign
+    from stopwise.report import figures as F
+
+    method_by = tuple(options.get("method_by") or ("solver",))
+    rules = compare_campaign(root, campaign, method_by=method_by, params=options.get("params"),
+                             alpha=options.get("alpha", 0.05))
+    if len(rules.per_run):
+        plots.append(F.rule_comparison(rules.per_run, rules.rules))
+    if rules.test is not None:
+        cd = F.critical_difference_diagram(rules.test, "test error relative to the oracle")
+        plots.append(F.Plot("critical_difference_rules", cd.caption.replace("each method", "each stopping rule")
+                            .replace("methods whose", "rules whose"), cd.alt, cd.png))
+    page = ReportPage(f"stopwise report: campaign {manifest.get('name', campaign)}", ranking, plots, context, notes,
+                      rules)
     target = Path(out) if out is not None else Path(root) / "reports" / str(manifest.get("name", campaign))
     return write_report(page, target)
 

@@ -106,6 +106,62 @@ def tests_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
     return f
 
 
+def rules_frame(c: Any, raw: bool = False) -> pd.DataFrame:
+    """One row per stopping rule of a :class:`~stopwise.analysis.rule_comparison.RuleComparison`:
+    median test error at the rule's choice relative to the oracle's, median passes spent,
+    shares not stopped / stopped at iteration 0 / not applicable, average rank."""
+    f = c.summary.rename(columns={"relative_error": "error / oracle (median)", "passes_spent": "passes (median)",
+                                  "not_stopped": "not stopped", "stopped_at_0": "stopped at 0",
+                                  "not_applicable": "not applicable", "average_rank": "average rank"})
+    if raw:
+        return f
+    f = f.copy()
+    for col in f.columns[1:]:
+        pct = col in ("not stopped", "stopped at 0", "not applicable")
+        f[col] = f[col].map(lambda v, pct=pct: (f"{100 * v:.0f}%" if pct and np.isfinite(v) else num(v)))
+    return f
+
+
+def rules_scores_frame(c: Any) -> pd.DataFrame:
+    """Datasets x rules median relative test error (``-`` where the rule does not apply)."""
+    if c.scores.empty:
+        return pd.DataFrame()
+    f = c.scores.reset_index()
+    for col in f.columns[1:]:
+        f[col] = f[col].map(num)
+    return f
+
+
+def render_rules(c: Any, fmt: str = "text") -> str:
+    """The stopping-rule comparison in one format (CSV: the per-(dataset, method, config,
+    rule) table at full precision)."""
+    if fmt not in FORMATS:
+        raise FormatError(f"format {fmt!r} is invalid; valid: {', '.join(FORMATS)}")
+    if fmt == "csv":
+        return to_csv(c.table)
+    title = ("stopping rules compared: test error at each rule's choice relative to the oracle's "
+             "(the best test error on the same path), over every run")
+    test = (c.test.as_frame().assign(value=lambda f: f["value"].map(num)) if c.test is not None else None)
+    if fmt == "text":
+        out = [title, to_text(rules_frame(c))]
+        sc = rules_scores_frame(c)
+        if not sc.empty:
+            out += ["", "per dataset: median over paths of error / oracle", to_text(sc)]
+        if test is not None:
+            out += ["", "rank tests of the rules (Friedman, Iman-Davenport, Nemenyi)", to_text(test)]
+        out += [f"note: {n}" for n in c.notes]
+        return "\n".join(out) + "\n"
+    out = [f"_{title}_", "", to_markdown(rules_frame(c))]
+    sc = rules_scores_frame(c)
+    if not sc.empty:
+        out += ["", "#### Per dataset: median over paths of error / oracle", "", to_markdown(sc)]
+    if test is not None:
+        out += ["", "#### Rank tests of the rules", "", to_markdown(test)]
+    if c.notes:
+        out += [""] + [f"- note: {n}" for n in c.notes]
+    return "\n".join(out) + "\n"
+
+
 def display_tables(r: Ranking, raw: bool = False) -> dict[str, pd.DataFrame]:
     """The named tables of a ranking: ``results``, ``ranks``, ``tests``."""
     return {"results": results_frame(r, raw), "ranks": ranks_frame(r, raw), "tests": tests_frame(r, raw)}
@@ -197,4 +253,4 @@ def render(r: Ranking, fmt: str = "text") -> str:
     return "\n".join(out) + "\n"
 
 
-__all__ = ["FORMATS", "FormatError", "display_tables", "render", "to_csv", "to_markdown", "to_text"]
+__all__ = ["FORMATS", "FormatError", "display_tables", "render", "render_rules", "rules_frame", "to_csv", "to_markdown", "to_text"]

@@ -92,7 +92,9 @@ class Selection:
     ``passes_spent`` the data passes the rule needed before it could decide (for
     ``holdout``, where patience ran out; for rules that never became final, the whole
     trace). ``final`` says that later iterates cannot change the choice; ``row`` is the
-    selected row's position in the trace.
+    selected row's position in the trace. ``applicable`` is False when the rule cannot be
+    evaluated on this trace at all (no stated noise level, a column the trace lacks, too
+    few rows), as against a rule that was evaluated and never stopped.
     """
 
     iteration: int | None
@@ -101,6 +103,15 @@ class Selection:
     reason: str
     final: bool = False
     row: int | None = None
+    applicable: bool = True
+
+    @property
+    def outcome(self) -> str:
+        """``stopped`` (final, with an iterate), ``not stopped`` (evaluated on the whole trace
+        without becoming final) or ``not applicable``."""
+        if not self.applicable:
+            return "not applicable"
+        return "stopped" if self.final and self.iteration is not None else "not stopped"
 
 
 Columns = Mapping[str, np.ndarray]
@@ -140,6 +151,11 @@ def _none(cols: Columns, reason: str, final: bool = False, spent_row: int | None
         return Selection(None, math.nan, 0.0, reason, final, None)
     r = n - 1 if spent_row is None else spent_row
     return Selection(None, math.nan, float(cols["passes"][r]), reason, final, None)
+
+
+def _cannot(reason: str) -> Selection:
+    """The rule cannot be evaluated on this trace (see ``Selection.applicable``)."""
+    return Selection(None, math.nan, 0.0, reason, False, None, applicable=False)
 
 
 def _g(x: float) -> str:
@@ -252,7 +268,7 @@ def holdout(trace: Any, ctx: RuleContext, params: HoldoutParams = HoldoutParams(
         return _none(cols, "empty trace")
     val = cols.get("val_error")
     if val is None or not np.isfinite(val).any():
-        return _none(cols, "no validation error in the trace (the split has no validation rows)")
+        return _cannot("no validation error in the trace (the split has no validation rows)")
     passes = cols["passes"]
     v = np.where(np.isfinite(val), val, np.inf)  # a missing validation error never improves
     run_min = np.minimum.accumulate(v)
@@ -300,10 +316,10 @@ def discrepancy(trace: Any, ctx: RuleContext, params: DiscrepancyParams = Discre
         return _none(cols, "empty trace")
     delta, how = _delta(ctx, params.delta)
     if delta is None:
-        return _none(cols, NO_DELTA)
+        return _cannot(NO_DELTA)
     thr = params.tau * delta
     if "residual_norm" not in cols:
-        return _none(cols, "trace has no residual_norm column")
+        return _cannot("trace has no residual_norm column")
     return _first_at_or_below(
         cols, cols["residual_norm"], thr,
         lambda v: f"first iterate with residual {v} <= tau*delta = {params.tau:g}*{_g(delta)} ({how})",
@@ -337,12 +353,12 @@ def monotone_error(trace: Any, ctx: RuleContext, params: MonotoneErrorParams = M
     if n == 0:
         return _none(cols, "empty trace")
     if "residual_dot_prev" not in cols:
-        return _none(cols, "trace has no residual_dot_prev column (a regression trace with record.residual on has it)")
+        return _cannot("trace has no residual_dot_prev column (a regression trace with record.residual on has it)")
     delta, how = _delta(ctx, params.delta)
     if delta is None:
-        return _none(cols, NO_DELTA)
+        return _cannot(NO_DELTA)
     if n < 2:
-        return _none(cols, "needs two recorded iterates")
+        return _cannot("needs two recorded iterates")
     r = cols["residual_norm"][:-1]
     dot = cols["residual_dot_prev"][1:]
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
@@ -383,13 +399,13 @@ def ncp(trace: Any, ctx: RuleContext, params: NCPParams = NCPParams()) -> Select
     if n == 0:
         return _none(cols, "empty trace")
     if "ncp_distance" not in cols:
-        return _none(cols, "trace has no ncp_distance column (recorded for regression problems whose training "
+        return _cannot("trace has no ncp_distance column (recorded for regression problems whose training "
                            "rows are in signal order, with record.residual on)")
     dist = cols["ncp_distance"]
     if params.criterion == "first":
         q = ctx.n_train // 2
         if q < 2:
-            return _none(cols, f"too few training rows ({ctx.n_train}) for the white-noise test")
+            return _cannot(f"too few training rows ({ctx.n_train}) for the white-noise test")
         lim = white_noise_limit(q, params.significance)
         return _first_at_or_below(
             cols, dist, lim,
@@ -440,7 +456,7 @@ def a_priori(trace: Any, ctx: RuleContext, params: APrioriParams = APrioriParams
         return _none(cols, "empty trace")
     t, what = a_priori_iteration(ctx, params)
     if t is None:
-        return _none(cols, what)
+        return _cannot(what)
     it = cols["iteration"]
     if it[-1] < t:
         return _none(cols, f"a priori iteration {what} = {t} lies beyond the trace (last iterate {int(it[-1])})")
