@@ -21,6 +21,7 @@ from stopwise.stopping.rules import (
     rule_specs,
     trace_columns,
 )
+from stopwise.core.errors import SpecError
 from stopwise.results.schema import one_line, read_trace
 from stopwise.results.store import Store, StoreError
 
@@ -31,6 +32,24 @@ SELECT_COLUMNS = ("run_id", "dataset", "solver", "seed", "status", "rule", "refe
 REPORTED = ("val_error", "test_error", "train_error")
 _HEAD = SELECT_COLUMNS[:4]
 _TAIL = SELECT_COLUMNS[4:]
+
+
+class DatasetNameClash(SpecError):
+    """Two different files stored under one dataset name (one line naming both)."""
+
+
+def _check_file_names(loaded: list) -> None:
+    seen: dict[str, str] = {}
+    for _, meta, _, _ in loaded:
+        d = ((meta or {}).get("config") or {}).get("dataset") or {}
+        if d.get("source") != "file":
+            continue
+        path = str((d.get("params") or {}).get("path"))
+        other = seen.setdefault(str(d.get("name")), path)
+        if other != path:
+            raise DatasetNameClash(f"dataset name {d.get('name')!r} belongs to runs on two files, {other} and {path}: "
+                                   "ranking them as one dataset would hide one; select one campaign, or rerun one "
+                                   "file under its own dataset.name")
 
 
 def _campaign_rules(store: Store, campaign: str | None, metas: list[dict]) -> list[Any]:
@@ -83,6 +102,7 @@ def select(root: str | Path = "results", campaign: str | None = None,
     else:
         run_ids = [p.stem for p in store.run_files()]
     loaded = [(rid, *_read(store, rid)) for rid in run_ids]
+    _check_file_names(loaded)
     specs = rule_specs(rules if rules is not None else
                        _campaign_rules(store, campaign, [m for _, m, _, _ in loaded if m]))
     # oracle last, once

@@ -24,6 +24,7 @@ The hierarchy (module of each class in brackets)::
     |   +-- UnknownProx                                                    [solvers.prox]
     |   +-- RuleError                         stopping rule name or params [stopping.rules]
     |   +-- UnknownMetricSet                                               [running.record]
+    |   +-- DatasetNameClash                  two files under one dataset name [analysis.selection]
     |   +-- BaselineError                                                  [analysis.baselines]
     |   +-- StatsError                        rank statistics' input       [analysis.rankstats]
     |   +-- RankError                         ranking options and tables   [analysis.rank]

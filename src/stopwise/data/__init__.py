@@ -81,6 +81,13 @@ def _prep_option(key: str, v: Any) -> Any:
     raise DataError(f"unknown dataset option {key!r}")  # pragma: no cover
 
 
+def file_dataset_name(path: Any) -> str:
+    """The name of a ``dataset=file`` dataset: the file's stem (``runs/a.csv`` -> ``a``)."""
+    from pathlib import PurePath
+
+    return PurePath(str(path)).stem or str(path)
+
+
 def normalize_dataset(cfg: dict[str, Any]) -> dict[str, Any]:
     """Validate a dataset config and return it with typed, defaulted source params."""
     src = get_source(cfg.get("source"))
@@ -91,6 +98,9 @@ def normalize_dataset(cfg: dict[str, Any]) -> dict[str, Any]:
         raise DataError(str(e)) from None
     out = dict(cfg)
     out["params"] = {k: v for k, v in asdict(params).items() if not _omitted(params, k, v)}
+    path = getattr(params, "path", None) if src.name == "file" else None
+    if path and out.get("name") in (None, "", "file"):
+        out["name"] = file_dataset_name(path)  # a file is named after itself unless dataset.name says otherwise
     out["features"] = _names_option("features", cfg.get("features"))
     for key, default in PREP_DEFAULTS.items():
         v = _prep_option(key, out.pop(key, default))

@@ -176,6 +176,20 @@ def sweep_jobs(composer: Composer, lines: list[str]) -> list[list[str]]:
         raise SpecError(hydra_error_line(e)) from None
 
 
+def _check_file_names(specs) -> None:
+    """Two different files never share a dataset name in one campaign (one line naming both)."""
+    seen: dict[str, str] = {}
+    for spec in specs:
+        d = spec.dataset
+        if d.get("source") != "file":
+            continue
+        path = str((d.get("params") or {}).get("path"))
+        other = seen.setdefault(str(d.get("name")), path)
+        if other != path:
+            raise SpecError(f"dataset name {d.get('name')!r} is given to two files, {other} and {path}: "
+                            "a ranking would merge them; name each with dataset.name=NAME")
+
+
 def expand(campaign: str | None, overrides: list[str], strict: bool = False) -> Expansion:
     """Expand a campaign plus command-line overrides into validated runs and a manifest.
 
@@ -260,6 +274,7 @@ def expand(campaign: str | None, overrides: list[str], strict: bool = False) -> 
             if spec.run_id not in specs:
                 specs[spec.run_id] = spec
                 run_ids.append(spec.run_id)
+    _check_file_names(specs.values())
     notes: list[str] = []
     for k in sorted(collapsed):
         if k not in applied:
