@@ -51,6 +51,7 @@ _LAZY = {
     "RankTest": "analysis.rankstats", "critical_difference": "analysis.rankstats", "data_profile": "analysis.rankstats",
     "friedman_from_ranks": "analysis.rankstats", "friedman_test": "analysis.rankstats", "nemenyi_q": "analysis.rankstats",
     "performance_profile": "analysis.rankstats", "rank_table": "analysis.rankstats", "student_interval": "analysis.rankstats",
+    "bootstrap_interval": "analysis.rankstats",
     "verify_root": "results.verify",
 }
 
@@ -101,7 +102,7 @@ __all__ = ["RawData", "SourceDef", "build_problem", "cached_problem", "register_
            "BASELINES", "ensure_baselines", "fit_path", "load_baselines", "load_references",
            "RankError", "RankTest", "Ranking", "Target", "critical_difference", "data_profile", "friedman_from_ranks",
            "friedman_test", "nemenyi_q", "performance_profile", "rank", "rank_campaign", "rank_table",
-           "report_campaign", "student_interval", "RuleComparison", "compare_campaign", "compare_rules",
+           "report_campaign", "student_interval", "bootstrap_interval", "RuleComparison", "compare_campaign", "compare_rules",
            "LOSSES", "get_loss", "HardMargin", "hard_margin", "is_separable", "normalized_margin",
            "LinearModel", "TwoLayerReLU", "verify_root",
            "AveragingParams", "SGDParams", "averaged", "minibatch_gradient"]

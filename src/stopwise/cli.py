@@ -449,7 +449,7 @@ def _ranking_parser(prog: str, description: str) -> ArgParser:
                     help="More-Wild target f_L + tau (f_0 - f_L) instead of (1 + eps) f_L")
     ap.add_argument("--by", default="test_error", choices=RANK_BY, help="quantity to rank (default test_error)")
     ap.add_argument("--alpha", type=float, default=0.05, help="significance level of the Nemenyi test (default 0.05)")
-    ap.add_argument("--confidence", type=float, default=0.95, help="Student t interval level over seeds (default 0.95)")
+    ap.add_argument("--confidence", type=float, default=0.95, help="level of the bootstrap interval over seeds (default 0.95)")
     ap.add_argument("--tuning", default="per_seed", choices=TUNINGS,
                     help="choose parameters per seed (default) or by mean validation error over seeds")
     ap.add_argument("--unit", default="dataset", choices=UNITS, help="profile problems: datasets or (dataset, seed)")

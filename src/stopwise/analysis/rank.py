@@ -40,7 +40,8 @@ from stopwise.analysis.rankstats import (
     performance_profile,
     performance_ratios,
     rank_table,
-    student_interval,
+    bootstrap_interval,
+    MIN_INTERVAL_SEEDS,
 )
 
 
@@ -382,10 +383,11 @@ SUMMARY_COLUMNS = ("dataset", "method", "kind", "seeds", "valid", "test_error", 
 
 
 def summarize(rep: pd.DataFrame, confidence: float = 0.95) -> pd.DataFrame:
-    """Per (dataset, method): means over seeds with Student t intervals.
+    """Per (dataset, method): means over seeds with percentile bootstrap intervals.
 
     ``test_error`` and ``passes_spent`` come with ``_low``/``_high`` interval ends over the
-    seeds that have a valid selection. ``passes_to_target`` is the mean over seeds when
+    seeds that have a valid selection (:func:`bootstrap_interval`: never below 0 for these
+    nonnegative quantities; NaN with fewer than 3 such seeds). ``passes_to_target`` is the mean over seeds when
     every seed reached the target and ``inf`` otherwise; ``reached`` counts the seeds that
     did (NaN when there is no target); ``reached_at_stop`` counts the seeds whose selected
     iterate itself meets the target.
@@ -393,13 +395,13 @@ def summarize(rep: pd.DataFrame, confidence: float = 0.95) -> pd.DataFrame:
     rows = []
     for (d, m), g in rep.groupby(["dataset", "method"], sort=True):
         ok = g[g["valid"].to_numpy(bool)]
-        te, te_lo, te_hi, _ = student_interval(ok["test_error"].to_numpy(dtype=float), confidence)
+        te, te_lo, te_hi, _ = bootstrap_interval(ok["test_error"].to_numpy(dtype=float), confidence)
         row = {"dataset": d, "method": m, "kind": g["kind"].iloc[0], "seeds": len(g), "valid": len(ok),
                "test_error": te, "test_error_low": te_lo, "test_error_high": te_hi,
                "val_error": float(ok["val_error"].mean()) if len(ok) else math.nan}
         ps = ok["passes_spent"].to_numpy(dtype=float) if "passes_spent" in ok else np.array([])
         if ps.size and np.isfinite(ps).any():
-            row["passes_spent"], row["passes_spent_low"], row["passes_spent_high"], _ = student_interval(ps, confidence)
+            row["passes_spent"], row["passes_spent_low"], row["passes_spent_high"], _ = bootstrap_interval(ps, confidence)
         else:
             row["passes_spent"] = row["passes_spent_low"] = row["passes_spent_high"] = math.nan
         sp = ok["selected_passes"].to_numpy(dtype=float) if "selected_passes" in ok else np.array([])
@@ -466,6 +468,12 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
     rep = _with_passes(rep, target, _tuned_traces(rep, traces, target, notes))
     both = _with_explicit(rep, baselines if include_baselines else None)
     table = summarize(both, confidence)
+    few = table[(table["valid"] > 0) & (table["valid"] < MIN_INTERVAL_SEEDS)]
+    if len(few):
+        notes.append(f"no interval for {len(few)} of {len(table)} (dataset, method) rows: they have fewer than "
+                     f"{MIN_INTERVAL_SEEDS} seeds with a valid selection ({int(few['valid'].min())}"
+                     f"{'' if few['valid'].min() == few['valid'].max() else '-' + str(int(few['valid'].max()))}), "
+                     "which give no usable interval; sweep more seeds")
     table = _with_reference_gap(table, rep["dataset"], references, notes)
     scores = _rank_scores(table, by, include_baselines, notes)
     ranks, test = _rank_tests(scores, alpha, notes)

@@ -65,6 +65,46 @@ def student_interval(values, confidence: float = 0.95) -> tuple[float, float, fl
     return mean, mean - half, mean + half, n
 
 
+MIN_INTERVAL_SEEDS = 3  # fewer values give no usable interval of the mean
+BOOTSTRAP_RESAMPLES = 9999
+
+
+def bootstrap_interval(values, confidence: float = 0.95, n_resamples: int = BOOTSTRAP_RESAMPLES,
+                       seed: int = 0) -> tuple[float, float, float, int]:
+    """Mean and percentile bootstrap interval of the mean: ``(mean, low, high, n)``.
+
+    The ``(1-c)/2`` and ``(1+c)/2`` quantiles of the means of ``n_resamples`` resamples
+    drawn with replacement (Efron & Tibshirani 1993, ch. 13), computed by
+    ``scipy.stats.bootstrap(method="percentile")`` with a generator seeded by ``seed``, so
+    the same values give the same interval. Every resampled mean lies between the smallest
+    and the largest value, so the interval of a nonnegative quantity (an error, a pass
+    count) never goes below 0, unlike ``mean +- t s / sqrt(n)``. With fewer than
+    :data:`MIN_INTERVAL_SEEDS` values the interval is not computed (NaN): two seeds give
+    no usable interval. Equal values give the point interval; an infinite value makes the
+    mean infinite and the interval NaN.
+
+    >>> m, lo, hi, n = bootstrap_interval([1.0, 2.0, 3.0, 4.0])
+    >>> m, 1.0 <= lo < m < hi <= 4.0, n
+    (2.5, True, 4)
+    """
+    if not 0.0 < confidence < 1.0:
+        raise StatsError(f"confidence={confidence!r} is invalid: must be strictly between 0 and 1")
+    a = np.asarray(values, dtype=float)
+    a = a[~np.isnan(a)]
+    n = int(a.size)
+    if n == 0:
+        return math.nan, math.nan, math.nan, 0
+    mean = float(a.mean())
+    if n < MIN_INTERVAL_SEEDS or not np.isfinite(a).all():
+        return mean, math.nan, math.nan, n
+    if float(a.max()) == float(a.min()):
+        return mean, mean, mean, n
+    res = stats.bootstrap((a,), np.mean, confidence_level=confidence, n_resamples=n_resamples,
+                          method="percentile", vectorized=True, random_state=np.random.default_rng(seed))
+    lo, hi = float(res.confidence_interval.low), float(res.confidence_interval.high)
+    return mean, max(lo, float(a.min())), min(hi, float(a.max())), n
+
+
 # ---------------------------------------------------------------- ranks and rank tests
 
 def rank_table(scores: pd.DataFrame, lower_is_better: bool = True) -> pd.DataFrame:
@@ -279,4 +319,4 @@ def data_profile(costs: pd.DataFrame, budgets=None) -> pd.DataFrame:
 
 __all__ = ["RankTest", "StatsError", "critical_difference", "data_profile", "friedman_from_ranks",
            "friedman_test", "nemenyi_q", "performance_profile", "performance_ratios", "rank_table",
-           "student_interval"]
+           "student_interval", "bootstrap_interval", "MIN_INTERVAL_SEEDS"]

@@ -294,8 +294,9 @@ def report_campaign(root: str | Path = "results", campaign: str = "", out: str |
     status = data.selections.drop_duplicates("run_id")["status"].value_counts()
     context = [f"Campaign {manifest.get('name', campaign)} ({str(manifest.get('campaign_id', ''))[:16]}) under "
                f"{Path(root)}: {n_runs} runs (" + ", ".join(f"{v} {k}" for k, v in status.items()) + ").",
-               f"Seeds are repeated random splits and initializations; intervals are two-sided Student t intervals "
-               f"at {ranking.confidence:g} over seeds. Stopping points are marked for rules: "
+               f"Seeds are repeated random splits and initializations; intervals are percentile bootstrap intervals "
+               f"of the mean over seeds at {ranking.confidence:g} (Efron and Tibshirani 1993; 9999 resamples), "
+               f"shown only with at least 3 seeds. Stopping points are marked for rules: "
                + ", ".join(dict.fromkeys([data.rule] + [rule_spec(r)["label"] for r in extra])) + "."]
     from stopwise.analysis.rule_comparison import compare_campaign
     from stopwise.report import figures as F

@@ -41,11 +41,12 @@ def num(x: Any, digits: int = 4) -> str:
 
 
 def with_interval(mean: float, low: float, high: float) -> str:
+    """``mean [low, high]``; the mean alone where there is no interval."""
     if mean is None or (isinstance(mean, float) and math.isnan(mean)):
         return "-"
     if low is None or high is None or not (np.isfinite(low) and np.isfinite(high)):
         return num(mean)
-    return f"{num(mean)} ± {num((high - low) / 2, 2)}"
+    return f"{num(mean)} [{num(low, 3)}, {num(high, 3)}]"
 
 
 def _frac(k: Any, n: Any) -> str:
@@ -65,7 +66,7 @@ def results_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
     out = pd.DataFrame({
         "dataset": t["dataset"], "method": t["method"],
         "tuned config": t["config"].replace("", "-"),
-        f"test error (mean ± {pc}% t-CI)": [with_interval(m, lo, hi) for m, lo, hi in
+        f"test error (mean [{pc}% bootstrap CI])": [with_interval(m, lo, hi) for m, lo, hi in
                                            zip(t["test_error"], t["test_error_low"], t["test_error_high"])],
         "val error": t["val_error"].map(num),
         "passes spent": [with_interval(m, lo, hi) for m, lo, hi in
