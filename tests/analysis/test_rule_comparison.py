@@ -178,3 +178,15 @@ def test_rank_prints_the_comparison_and_refuses_the_oracle(root, capsys):
 
 def test_api_exports(root):
     assert stopwise.compare_campaign is compare_campaign and stopwise.compare_rules is compare_rules
+
+
+def test_rank_under_a_rule_that_does_not_apply_on_a_dataset_leaves_it_out_with_the_reason(root):
+    """diabetes states no noise level: ranking under the discrepancy principle there would
+    make every method a tie on it; it is left out of the ranks, and the note says why."""
+    from stopwise.analysis.rank import rank_campaign
+
+    r = rank_campaign(root, "adhoc", "discrepancy", baselines="none", target="none")
+    assert "diabetes" not in r.ranks.index and {"illposed", "wellposed"} <= set(r.ranks.index)
+    (note,) = [n for n in r.notes if "does not apply on dataset diabetes" in n]
+    assert "noise" in note
+    assert r.test is not None and r.test.n_datasets == 2

@@ -476,6 +476,7 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
                      "which give no usable interval; sweep more seeds")
     table = _with_reference_gap(table, rep["dataset"], references, notes)
     scores = _rank_scores(table, by, include_baselines, notes)
+    scores = _without_inapplicable(scores, selections, rule, notes)
     ranks, test = _rank_tests(scores, alpha, notes)
     if not ranks.empty:
         table["average_rank"] = table["method"].map(ranks.mean(axis=0))
@@ -613,6 +614,23 @@ def _rank_scores(table: pd.DataFrame, by: str, include_baselines: bool, notes: l
             notes.append(f"datasets without a target are not ranked by passes: {', '.join(map(str, dropped))}")
         scores = scores.dropna(axis=0, how="any")
     return scores
+
+
+def _without_inapplicable(scores: pd.DataFrame, selections: pd.DataFrame, rule: str,
+                          notes: list[str]) -> pd.DataFrame:
+    """Leave out of the ranks the datasets where ``rule`` cannot be evaluated on any run
+    (no stated noise level for the discrepancy principle, a column no trace has), with a note
+    giving select's reason: such a dataset is no tie between the methods."""
+    if "outcome" not in selections.columns or scores.empty:
+        return scores
+    sel = selections[(selections["rule"] == rule) & (selections["outcome"] != "no trace")]
+    gone = []
+    for d, g in sel.groupby("dataset", sort=True):
+        if len(g) and (g["outcome"] == "not applicable").all() and d in scores.index:
+            reason = str(g["reason"].iloc[0]) if "reason" in g else ""
+            notes.append(f"rule {rule} does not apply on dataset {d}: {reason}; left out of the ranks and rank tests")
+            gone.append(d)
+    return scores.drop(index=gone)
 
 
 def _rank_tests(scores: pd.DataFrame, alpha: float, notes: list[str]) -> tuple[pd.DataFrame, RankTest | None]:
