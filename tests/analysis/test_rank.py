@@ -260,3 +260,17 @@ def test_target_without_traces():
     assert t.loc[("A", "cgls"), "target"] == pytest.approx(0.42) and t.loc[("A", "cgls"), "reached_at_stop"] == 2
     assert math.isnan(t.loc[("A", "cgls"), "passes_to_target"]) and r.performance.empty
     assert any("no traces" in n for n in r.notes)
+
+
+def test_the_best_method_per_dataset_is_marked_and_pairwise_tests_are_attached():
+    from stopwise.report.tables import render, results_frame
+
+    sel = small_campaign()
+    r = rank(sel, "holdout", traces=small_traces(sel), baselines=small_baselines())
+    f = results_frame(r)
+    for d in r.ranks.index:
+        marked = set(f.loc[(f["dataset"] == d) & (f["best"] == "*"), "method"])
+        assert marked == set(r.ranks.columns[r.ranks.loc[d] == r.ranks.loc[d].min()])
+    assert set(r.pairwise.columns) >= {"method_a", "method_b", "T", "p", "p_holm"}
+    assert len(r.pairwise) == len(r.ranks.columns) * (len(r.ranks.columns) - 1) // 2
+    assert "pairwise Wilcoxon" in render(r, "text")

@@ -41,6 +41,7 @@ from stopwise.analysis.rankstats import (
     performance_ratios,
     rank_table,
     bootstrap_interval,
+    pairwise_wilcoxon,
     MIN_INTERVAL_SEEDS,
 )
 
@@ -135,6 +136,8 @@ class Ranking:
     ``table``       one row per (dataset, method): means and Student t intervals over seeds.
     ``ranks``       datasets x methods ranks (1 best, ties averaged) of the ranked quantity.
     ``test``        Friedman / Iman-Davenport / Nemenyi statistics (None with < 2 datasets or methods).
+    ``pairwise``    Wilcoxon signed-rank test of every pair of methods over the ranked datasets,
+                    Holm-corrected (empty with < 2 datasets or methods).
     ``costs``       problems x methods passes to reach the target (inf: never reached).
     ``performance`` Dolan-More profile (method, tau, share); ``data`` More-Wild profile
                     (method, budget, share).
@@ -155,6 +158,7 @@ class Ranking:
     data: pd.DataFrame
     params: tuple[str, ...] = ()
     notes: list[str] = field(default_factory=list)
+    pairwise: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @property
     def average_ranks(self) -> pd.Series:
@@ -480,10 +484,11 @@ def rank(selections: pd.DataFrame, rule: str = "holdout", *, traces: pd.DataFram
     ranks, test = _rank_tests(scores, alpha, notes)
     if not ranks.empty:
         table["average_rank"] = table["method"].map(ranks.mean(axis=0))
+    pairwise = pairwise_wilcoxon(scores, alpha) if scores.shape[0] >= 2 and scores.shape[1] >= 2 else pd.DataFrame()
     costs, perf, dprof = _profiles(both, table, unit)
     return Ranking(rule=rule, by=by, target=target, tuning=tuning, confidence=confidence, unit=unit,
                    replicates=both.reset_index(drop=True), table=table, ranks=ranks, test=test, costs=costs,
-                   performance=perf, data=dprof, params=tuple(pcols), notes=notes)
+                   performance=perf, data=dprof, params=tuple(pcols), notes=notes, pairwise=pairwise)
 
 
 def _with_levels(rep: pd.DataFrame, target: Target, baselines: pd.DataFrame | None,

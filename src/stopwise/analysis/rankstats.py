@@ -25,6 +25,7 @@ has cost ``inf`` and counts for no finite ``tau`` or ``alpha``.
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -244,6 +245,90 @@ def friedman_test(scores: pd.DataFrame, alpha: float = 0.05, lower_is_better: bo
                                methods=list(scores.columns))
 
 
+# ---------------------------------------------------------------- pairwise tests
+
+PAIRWISE_COLUMNS = ("method_a", "method_b", "datasets", "r_plus", "r_minus", "T", "p", "p_holm", "significant",
+                    "better")
+
+
+def holm_adjust(pvalues) -> np.ndarray:
+    """Holm's step-down adjusted p-values (Holm 1979): with ``p_(1) <= ... <= p_(m)``,
+    ``p~_(i) = max_{j <= i} min(1, (m - j + 1) p_(j))``; rejecting where ``p~ <= alpha`` is
+    rejecting while ``p_(i) <= alpha / (m - i + 1)``. NaN stays NaN and does not count in m.
+
+    >>> holm_adjust([0.01, 0.04, 0.03, 0.005]).round(4).tolist()
+    [0.03, 0.06, 0.06, 0.02]
+    """
+    p = np.asarray(pvalues, dtype=float)
+    out = np.full(p.shape, np.nan)
+    ok = np.flatnonzero(~np.isnan(p))
+    m = ok.size
+    if m == 0:
+        return out
+    order = ok[np.argsort(p[ok], kind="stable")]
+    adj = np.minimum(1.0, (m - np.arange(m)) * p[order])
+    out[order] = np.maximum.accumulate(adj)
+    return out
+
+
+def signed_ranks(diff) -> tuple[float, float]:
+    """``(R+, R-)`` of the Wilcoxon signed-rank test: ranks of ``|d|`` (ties averaged), zero
+    differences split evenly between the two sums (Demsar 2006, section 3.1.3)."""
+    d = np.asarray(diff, dtype=float)
+    r = stats.rankdata(np.abs(d))
+    zero = r[d == 0].sum() / 2
+    return float(r[d > 0].sum() + zero), float(r[d < 0].sum() + zero)
+
+
+def pairwise_wilcoxon(scores: pd.DataFrame, alpha: float = 0.05, lower_is_better: bool = True) -> pd.DataFrame:
+    """Wilcoxon signed-rank test of every pair of methods (columns) over the datasets (rows),
+    with Holm's correction over the pairs (Demsar 2006 recommends the Wilcoxon test for
+    two methods over many datasets; Holm 1979).
+
+    For methods a and b, ``d = score_b - score_a`` on the datasets where both are finite;
+    ``T = min(R+, R-)``; ``p`` two-sided from ``scipy.stats.wilcoxon(d, zero_method="zsplit")``
+    (exact for small samples without ties, the normal approximation otherwise); ``p_holm``
+    the step-down adjusted p-value over all pairs; ``better``, where the test rejects at
+    ``alpha`` after the correction, the method whose scores are mostly lower
+    (``lower_is_better``; the larger rank sum is on the other side), else empty.
+    A pair with fewer than 2 shared finite datasets has no test (NaN).
+    """
+    if not 0.0 < alpha < 1.0:
+        raise StatsError(f"alpha={alpha!r} is invalid: must be strictly between 0 and 1")
+    cols = list(scores.columns)
+    rows = []
+    for i in range(len(cols)):
+        for j in range(i + 1, len(cols)):
+            a = scores[cols[i]].to_numpy(dtype=float)
+            b = scores[cols[j]].to_numpy(dtype=float)
+            ok = np.isfinite(a) & np.isfinite(b)
+            d = b[ok] - a[ok]
+            if d.size < 2:
+                rows.append([cols[i], cols[j], int(d.size), math.nan, math.nan, math.nan, math.nan])
+                continue
+            rp, rm = signed_ranks(d)
+            if np.all(d == 0):
+                p = 1.0
+            else:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")  # scipy's note on the normal approximation with few values
+                    p = float(stats.wilcoxon(d, zero_method="zsplit").pvalue)
+            rows.append([cols[i], cols[j], int(d.size), rp, rm, min(rp, rm), p])
+    out = pd.DataFrame(rows, columns=list(PAIRWISE_COLUMNS[:7]))
+    out["p_holm"] = holm_adjust(out["p"].to_numpy(float)) if len(out) else []
+    out["significant"] = out["p_holm"] <= alpha
+    better = []
+    for row in out.itertuples(index=False):
+        if not row.significant:
+            better.append("")
+            continue
+        # R+ > R-: b's scores are mostly above a's
+        a_wins = (row.r_plus > row.r_minus) if lower_is_better else (row.r_plus < row.r_minus)
+        better.append(str(row.method_a if a_wins else row.method_b))
+    out["better"] = better
+    return out
+
+
 # ---------------------------------------------------------------- profiles
 
 def _costs(costs: pd.DataFrame) -> np.ndarray:
@@ -319,4 +404,5 @@ def data_profile(costs: pd.DataFrame, budgets=None) -> pd.DataFrame:
 
 __all__ = ["RankTest", "StatsError", "critical_difference", "data_profile", "friedman_from_ranks",
            "friedman_test", "nemenyi_q", "performance_profile", "performance_ratios", "rank_table",
-           "student_interval", "bootstrap_interval", "MIN_INTERVAL_SEEDS"]
+           "student_interval", "bootstrap_interval", "MIN_INTERVAL_SEEDS", "PAIRWISE_COLUMNS", "holm_adjust",
+           "pairwise_wilcoxon", "signed_ranks"]

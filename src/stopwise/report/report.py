@@ -6,7 +6,7 @@ Layout of the output folder::
     index.html          the page (no scripts, no external resources)
     tables.md           the page's tables in Markdown
     results.csv         per (dataset, method) numbers at full precision
-    ranks.csv, tests.csv
+    ranks.csv, tests.csv, pairwise.csv
     rules.csv           stopping rules compared, per (dataset, method, configuration, rule)
     rules_per_run.csv   the same per (run, rule)
     figures/<name>.png  every figure the page shows
@@ -78,8 +78,10 @@ def _html_table(df: pd.DataFrame) -> str:
     return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
 
 
-TABLE_TITLES = {"results": "Per dataset and method", "ranks": "Ranks (1 = best, ties averaged)",
-                "tests": "Rank tests (Friedman, Iman-Davenport, Nemenyi)"}
+TABLE_TITLES = {"results": "Per dataset and method (* = rank 1 on the dataset)",
+                "ranks": "Ranks (1 = best, ties averaged)",
+                "tests": "Rank tests (Friedman, Iman-Davenport, Nemenyi)",
+                "pairwise": "Pairwise Wilcoxon signed-rank tests over datasets, Holm-corrected (Demsar 2006; Holm 1979)"}
 
 
 def render_html(page: ReportPage) -> str:
@@ -161,6 +163,8 @@ def write_report(page: ReportPage, out_dir: str | Path) -> Path:
         files.append((out / "ranks.csv", to_csv(raw["ranks"]).encode()))
     if not raw["tests"].empty:
         files.append((out / "tests.csv", to_csv(raw["tests"]).encode()))
+    if not raw["pairwise"].empty:
+        files.append((out / "pairwise.csv", to_csv(raw["pairwise"]).encode()))
     if page.rules is not None:
         files.append((out / "rules.csv", to_csv(page.rules.table).encode()))
         files.append((out / "rules_per_run.csv", to_csv(page.rules.per_run).encode()))

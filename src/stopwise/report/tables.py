@@ -63,6 +63,7 @@ def results_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
     if raw:
         return t
     pc = int(round(r.confidence * 100))
+    best = winners(r)
     out = pd.DataFrame({
         "dataset": t["dataset"], "method": t["method"],
         "tuned config": t["config"].replace("", "-"),
@@ -76,8 +77,32 @@ def results_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
         "target": t["target"].map(num),
         "gap to reference": t["gap"].map(num),
         "avg rank": t["average_rank"].map(lambda v: num(v, 3)),
+        "best": [("*" if m in best.get(d, ()) else "") for d, m in zip(t["dataset"], t["method"])],
     })
     return out
+
+
+def winners(r: Ranking) -> dict[Any, tuple]:
+    """Per ranked dataset, the methods of rank 1 there (ties all win)."""
+    if r.ranks.empty:
+        return {}
+    low = r.ranks.min(axis=1)
+    return {d: tuple(r.ranks.columns[r.ranks.loc[d] == low[d]]) for d in r.ranks.index}
+
+
+def pairwise_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
+    """The Holm-corrected pairwise Wilcoxon signed-rank tests of a ranking."""
+    f = r.pairwise
+    if raw or f.empty:
+        return f
+    f = f.copy()
+    for c in ("r_plus", "r_minus", "T", "p", "p_holm"):
+        f[c] = f[c].map(num)
+    f["significant"] = f["significant"].map(lambda v: "yes" if v else "no")
+    f["better"] = f["better"].replace("", "-")
+    return f.rename(columns={"method_a": "method a", "method_b": "method b", "r_plus": "R+", "r_minus": "R-",
+                             "p_holm": "p (Holm)", "significant": f"significant at {r.test.alpha:g}"
+                             if r.test is not None else "significant"})
 
 
 def ranks_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
@@ -165,7 +190,8 @@ def render_rules(c: Any, fmt: str = "text") -> str:
 
 def display_tables(r: Ranking, raw: bool = False) -> dict[str, pd.DataFrame]:
     """The named tables of a ranking: ``results``, ``ranks``, ``tests``."""
-    return {"results": results_frame(r, raw), "ranks": ranks_frame(r, raw), "tests": tests_frame(r, raw)}
+    return {"results": results_frame(r, raw), "ranks": ranks_frame(r, raw), "tests": tests_frame(r, raw),
+            "pairwise": pairwise_frame(r, raw)}
 
 
 def heading(r: Ranking) -> str:
@@ -241,6 +267,9 @@ def render(r: Ranking, fmt: str = "text") -> str:
             out += ["", "ranks (1 = best, ties averaged)", to_text(tabs["ranks"])]
         if not tabs["tests"].empty:
             out += ["", "rank tests (Friedman, Iman-Davenport, Nemenyi)", to_text(tabs["tests"])]
+        if not tabs["pairwise"].empty:
+            out += ["", "pairwise Wilcoxon signed-rank tests over datasets, Holm-corrected", to_text(tabs["pairwise"])]
+        out += ["* best = rank 1 on the dataset"] if any(tabs["results"]["best"] == "*") else []
         out += [f"note: {n}" for n in r.notes]
         return "\n".join(out) + "\n"
     out.append(f"_{heading(r)}_")
@@ -249,6 +278,8 @@ def render(r: Ranking, fmt: str = "text") -> str:
         out += ["", "### Ranks (1 = best, ties averaged)", "", to_markdown(tabs["ranks"])]
     if not tabs["tests"].empty:
         out += ["", "### Rank tests", "", to_markdown(tabs["tests"])]
+    if not tabs["pairwise"].empty:
+        out += ["", "### Pairwise Wilcoxon signed-rank tests (Holm-corrected)", "", to_markdown(tabs["pairwise"])]
     if r.notes:
         out += [""] + [f"- note: {n}" for n in r.notes]
     return "\n".join(out) + "\n"
