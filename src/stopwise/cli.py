@@ -521,13 +521,14 @@ def _compare_rules_arg(values: list[str] | None):
 
 def cmd_report(argv: list[str]) -> int:
     from stopwise.core.errors import SpecError
-    from stopwise.report.report import MARKED_RULES, report_campaign
+    from stopwise.report.report import report_campaign
     from stopwise.results.store import StoreError
 
     ap = _ranking_parser("stopwise report", "write a static HTML report of a campaign: tables and PNG figures")
     ap.add_argument("--out", default=None, metavar="DIR", help="output folder (default: ROOT/reports/CAMPAIGN)")
     ap.add_argument("--mark", action="append", default=None, metavar="NAME[:k=v,...]",
-                    help=f"rule whose stopping points the curves mark, repeatable (default: {', '.join(MARKED_RULES)})")
+                    help="rule whose stopping points the curves mark, repeatable (default: the rules the campaign "
+                         "named, and the oracle)")
     a = ap.parse_args(argv)
     try:
         index = report_campaign(a.root, a.campaign, a.out, rule=a.rule, marked_rules=a.mark,

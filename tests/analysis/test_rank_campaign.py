@@ -154,7 +154,16 @@ def test_report_command_writes_a_complete_offline_page(campaign, tmp_path):
     rules = pd.read_csv(out / "rules.csv")
     assert {"dataset", "method", "config", "rule", "relative_error", "not_stopped"} <= set(rules.columns)
     assert "oracle" not in set(rules["rule"]) and (rules["relative_error"].dropna() >= 1).all()
-    assert "## Stopping rules compared" in (out / "tables.md").read_text()
+    md = (out / "tables.md").read_text()
+    assert "## Stopping rules compared" in md
+    # the report states its campaign: definition, runs by status, versions, machine, threads
+    assert "Campaign definition" in html and "# command-line overrides" in md and "solver=gd,nesterov,cgls" in md
+    # 2 datasets x 2 seeds x (gd, nesterov at 2 step scales; cgls, which has none, once)
+    assert "24 jobs, 20 distinct runs" in md and "20 runs (20 completed)" in md
+    import numpy
+    assert f"numpy {numpy.__version__}" in md and "BLAS threads per run: blas:" in md
+    # only the rules the campaign named (its default stopping config: budget) and the oracle are marked
+    assert "Stopping points are marked for rules: holdout, budget, oracle." in md
     assert len(captions) == len(imgs) and all(len(c) > 60 for c in captions)
     for i in imgs:
         with Image.open(out / i["src"]) as im:

@@ -48,6 +48,7 @@ figure { margin: 1.4rem 0; }
 figure img { max-width: 100%; border: 1px solid #d9e2ec; }
 figcaption { font-size: .9rem; color: #334e68; margin-top: .3rem; }
 ul.notes { color: #8d2b0b; }
+pre { background: #f3f6f9; padding: .5rem .8rem; font-size: .8rem; overflow-x: auto; }
 """
 
 
@@ -61,6 +62,7 @@ class ReportPage:
     context: list[str] = field(default_factory=list)   # plain-text lines shown under the title
     notes: list[str] = field(default_factory=list)
     rules: Any = None  # a RuleComparison: the stopping rules compared against the oracle
+    definition: str = ""  # the campaign's definition, shown as it was given
 
 
 def _html_table(df: pd.DataFrame) -> str:
@@ -94,6 +96,8 @@ def render_html(page: ReportPage) -> str:
              f"<h1>{esc(page.title)}</h1>", f'<p class="setting">{esc(heading(r))}</p>']
     for line in page.context:
         parts.append(f"<p>{esc(line)}</p>")
+    if page.definition:
+        parts.append(f"<details open><summary>Campaign definition</summary><pre>{esc(page.definition)}</pre></details>")
     parts.append("<h2>Tables</h2>")
     for key, df in tabs.items():
         if df.empty:
@@ -135,6 +139,8 @@ def render_html(page: ReportPage) -> str:
 def render_markdown(page: ReportPage) -> str:
     r = page.ranking
     out = [f"# {page.title}", "", f"_{heading(r)}_", ""] + [f"{c}  " for c in page.context]
+    if page.definition:
+        out += ["", "Campaign definition:", "", "```", page.definition, "```"]
     for key, df in display_tables(r).items():
         if df.empty:
             continue
@@ -271,20 +277,91 @@ def implicit_panels(data, ranked_rule: str, max_panels: int = 4) -> list[dict]:
     return panels
 
 
+def definition_text(manifest: dict) -> str:
+    """The campaign as it was defined: its file (when it had one), the command-line
+    overrides and the sweep that the expansion took."""
+    d = manifest.get("definition") or {}
+    out = []
+    if d.get("campaign_file"):
+        out += [f"# campaign file of {d.get('campaign')}", str(d["campaign_file"]).rstrip()]
+    if d.get("overrides"):
+        out += ["# command-line overrides", " ".join(map(str, d["overrides"]))]
+    if d.get("sweep_params"):
+        out += ["# sweep"] + [f"{k}: {v}" for k, v in d["sweep_params"].items()]
+    for i, sub in enumerate(d.get("sub_sweeps") or [], 1):
+        out += [f"# sub-sweep {i}"] + [f"{k}: {v}" for k, v in (sub or {}).items()]
+    out += [f"# {manifest.get('jobs', '?')} jobs, {len(manifest.get('run_ids', []))} distinct runs"]
+    return "\n".join(out)
+
+
+def environment_lines(store, manifest: dict) -> list[str]:
+    """Where and with what the runs were computed, from each trace's metadata: package
+    versions, machine and BLAS thread counts (each distinct value with its run count), and
+    the machine and versions that wrote this report."""
+    import collections
+    import platform
+    from importlib import metadata
+
+    versions: collections.Counter = collections.Counter()
+    machines: collections.Counter = collections.Counter()
+    threads: collections.Counter = collections.Counter()
+    for rid in manifest.get("run_ids", []):
+        try:
+            meta = store.run_meta(str(rid)) or {}
+        except Exception:  # noqa: BLE001 - an unreadable trace is reported by verify, not here
+            continue
+        if not meta:
+            continue
+        versions[", ".join(f"{k} {v}" for k, v in sorted((meta.get("versions") or {}).items()))] += 1
+        machines[str(meta.get("machine", "?"))] += 1
+        threads[", ".join(f"{k} {v}" for k, v in sorted((meta.get("threads") or {}).items())) or "not recorded"] += 1
+
+    def counted(c: collections.Counter) -> str:
+        if len(c) == 1:
+            return next(iter(c))
+        return "; ".join(f"{k} ({n} runs)" for k, n in c.most_common())
+
+    lines = []
+    if versions:
+        lines.append(f"Runs computed with {counted(versions)}.")
+        lines.append(f"Machine architecture: {counted(machines)}; BLAS threads per run: {counted(threads)}.")
+    mine = []
+    for pkg in ("numpy", "scipy", "scikit-learn", "pandas", "pyarrow", "matplotlib", "hydra-core"):
+        try:
+            mine.append(f"{pkg} {metadata.version(pkg)}")
+        except metadata.PackageNotFoundError:
+            pass
+    cpu = platform.processor() or platform.machine()
+    try:
+        with open("/proc/cpuinfo") as f:
+            cpu = next((ln.split(":", 1)[1].strip() for ln in f if ln.startswith("model name")), cpu)
+    except OSError:
+        pass
+    lines.append(f"This report: stopwise {__version__}, python {platform.python_version()}, {', '.join(mine)}; "
+                 f"{cpu}, {os.cpu_count()} cores.")
+    return lines
+
+
 def report_campaign(root: str | Path = "results", campaign: str = "", out: str | Path | None = None,
                     rule: str = "holdout", marked_rules: Sequence[str] | None = None, baselines: str = "ensure",
                     **options) -> Path:
     """Rank a stored campaign and write its report folder; returns the path of index.html.
 
-    ``marked_rules`` are the rules whose stopping points the curves show (default: every
-    rule that needs no parameters, the oracle as a reference). ``options`` go to
+    ``marked_rules`` are the rules whose stopping points the curves show (default: the
+    rules the campaign named, and the oracle as a reference). ``options`` go to
     :func:`stopwise.analysis.rank.rank` (target, eps, tau, by, alpha, confidence, tuning, unit, ...).
     """
     from stopwise.analysis.rank import gather, rank_campaign, read_traces, rule_spec
     from stopwise.results.store import Store
 
     main = rule_spec(rule)
-    extra = [r for r in (MARKED_RULES if marked_rules is None else marked_rules) if rule_spec(r)["label"] != main["label"]]
+    store = Store(root)
+    manifest = store.find_campaign(campaign)
+    if marked_rules is None:  # the rules the campaign named, and the oracle as a reference
+        named = [{"rule": r.get("rule"), "params": r.get("params") or {}}
+                 for r in manifest.get("stopping") or [] if isinstance(r, dict) and r.get("rule")]
+        marked_rules = [*named, "oracle"]
+    extra = [r for r in marked_rules if rule_spec(r)["label"] != main["label"]]
     data = gather(root, campaign, rule, extra_rules=extra, baselines=baselines)
     ranking = rank_campaign(root, campaign, rule, data=data, **options)
     rep = ranking.replicates
@@ -293,7 +370,6 @@ def report_campaign(root: str | Path = "results", campaign: str = "", out: str |
     traces = read_traces(data.root, first["run_id"], ("run_id", "iteration", "passes", "test_error"))
     plots, notes = standard_plots(ranking, traces=traces, selections=data.selections,
                                   implicit_panels=implicit_panels(data, data.rule))
-    manifest = Store(root).find_campaign(campaign)
     n_runs = len(manifest.get("run_ids", []))
     status = data.selections.drop_duplicates("run_id")["status"].value_counts()
     context = [f"Campaign {manifest.get('name', campaign)} ({str(manifest.get('campaign_id', ''))[:16]}) under "
@@ -314,8 +390,9 @@ def report_campaign(root: str | Path = "results", campaign: str = "", out: str |
         cd = F.critical_difference_diagram(rules.test, "test error relative to the oracle")
         plots.append(F.Plot("critical_difference_rules", cd.caption.replace("each method", "each stopping rule")
                             .replace("methods whose", "rules whose"), cd.alt, cd.png))
+    context += environment_lines(store, manifest)
     page = ReportPage(f"stopwise report: campaign {manifest.get('name', campaign)}", ranking, plots, context, notes,
-                      rules)
+                      rules, definition_text(manifest))
     target = Path(out) if out is not None else Path(root) / "reports" / str(manifest.get("name", campaign))
     return write_report(page, target)
 
