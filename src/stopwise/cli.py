@@ -4,6 +4,7 @@ from __future__ import annotations
 import argparse
 import os
 import sys
+import time
 from pathlib import Path
 
 from stopwise.core.errors import StopwiseError
@@ -21,6 +22,7 @@ commands:
   run [overrides]                run one configuration
   rerun ID [--root DIR]          recompute a run or a whole campaign and compare with the stored traces
   ls [--campaign C] [--root DIR] list stored runs
+  campaigns [--root DIR]         list stored campaigns: name, id, creation time, runs by status
   datasets                       list every dataset a run can use (rows, columns, task, source)
   datasets fetch [ID|NAME@VERSION ...] [--task ID ...]
                                  download OpenML datasets / tasks into openml's cache (needs network)
@@ -28,8 +30,9 @@ commands:
                                  evaluate stopping rules on a campaign's stored traces
   baselines CAMPAIGN [--method NAME ...] [--root DIR] [--path]
                                  fit (or reuse) explicit-regularization baselines on the campaign's splits
-  rank CAMPAIGN [--rule R] [--target T] [--by B] [--format text|csv|markdown] ...
-                                 tune methods on validation error, rank them across datasets
+  rank CAMPAIGN [--rule R] [--target T] [--by B] [--format text|csv|markdown] [--compare R ...] ...
+                                 tune methods on validation error, rank them across datasets;
+                                 compare stopping rules against the oracle
   report CAMPAIGN [--rule R] [--out DIR] ...
                                  write an offline HTML report (tables, PNG figures) of a campaign
   verify [ROOT] [--quarantine]   check every trace and manifest; move bad files to ROOT/quarantine/
@@ -254,6 +257,52 @@ def cmd_ls(argv: list[str]) -> int:
         print(show.to_string(index=False))
     print(f"{len(df)} runs: " + ", ".join(f"{n} {s}" for s, n in df["status"].value_counts().items())
           + f"  (root {a.root})")
+    return 0
+
+
+def campaign_rows(root: str | Path) -> list[dict]:
+    """Every stored campaign, oldest first: name, id, creation time, jobs, runs and their
+    stored statuses (``missing`` for runs with no trace yet)."""
+    from stopwise.results.store import Store
+
+    store = Store(root)
+    rows = []
+    for m in sorted(store.campaigns(), key=lambda c: c.get("created") if isinstance(c.get("created"), (int, float))
+                    else 0):
+        ids = list(m.get("run_ids", []))
+        st = store.statuses(ids)
+        counts: dict[str, int] = {}
+        for rid in ids:
+            k = st.get(rid, "missing")
+            counts[k] = counts.get(k, 0) + 1
+        created = m.get("created")
+        rows.append({"name": m.get("name", "adhoc"), "campaign_id": m["campaign_id"],
+                     "created": time.strftime("%Y-%m-%d %H:%M:%S", time.localtime(created))
+                     if isinstance(created, (int, float)) else "?",
+                     "jobs": m.get("jobs", len(ids)), "runs": len(ids),
+                     "by_status": ", ".join(f"{n} {k}" for k, n in sorted(counts.items())) or "-"})
+    return rows
+
+
+def cmd_campaigns(argv: list[str]) -> int:
+    from stopwise.report.tables import to_text
+    from stopwise.results.store import StoreError
+    import pandas as pd
+
+    ap = ArgParser(prog="stopwise campaigns", description="every stored campaign with its id, creation time and "
+                                                          "runs by status")
+    ap.add_argument("--root", default="results", help="results root (default: results)")
+    a = ap.parse_args(argv)
+    try:
+        rows = campaign_rows(a.root)
+    except StoreError as e:
+        return _fail(str(e))
+    if not rows:
+        print(f"no campaign under {a.root}")
+        return 0
+    df = pd.DataFrame(rows).rename(columns={"campaign_id": "id", "by_status": "runs by status"})
+    print(to_text(df))
+    print(f"{len(rows)} campaigns (root {a.root}); name a campaign by its id where a name is ambiguous")
     return 0
 
 
@@ -541,7 +590,7 @@ def cmd_report(argv: list[str]) -> int:
 
 COMMANDS = {"sweep": cmd_sweep, "run": cmd_run, "rerun": cmd_rerun, "ls": cmd_ls, "select": cmd_select,
             "baselines": cmd_baselines, "datasets": cmd_datasets, "rank": cmd_rank, "report": cmd_report,
-            "verify": cmd_verify}
+            "verify": cmd_verify, "campaigns": cmd_campaigns}
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -62,4 +62,9 @@ def test_a_ranking_over_runs_on_two_files_of_one_name_is_refused(tmp_path, capsy
     with pytest.raises(DatasetNameClash) as e:
         stopwise.select(root)
     assert str(a) in str(e.value) and str(b) in str(e.value) and "\n" not in str(e.value)
-    assert len(stopwise.select(root, "adhoc", rules=["holdout"])) == 1  # the latest ad hoc sweep alone: one file
+    from stopwise.results.store import StoreError
+
+    with pytest.raises(StoreError, match="'adhoc' is given to 2 different sweeps"):  # named, not the latest taken
+        stopwise.select(root, "adhoc", rules=["holdout"])
+    (latest, *_) = sorted(stopwise.results.store.Store(root).campaigns(), key=lambda c: -c["created"])
+    assert len(stopwise.select(root, latest["campaign_id"], rules=["holdout"])) == 1  # one sweep alone: one file

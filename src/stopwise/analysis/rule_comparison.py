@@ -70,7 +70,11 @@ class RuleComparison:
 
 def default_rules(campaign_rules: Iterable[Any] = ()) -> list[dict[str, Any]]:
     """The rules a campaign named, then every registered rule that is not a reference, at
-    its defaults (a label appears once)."""
+    its defaults (a label appears once).
+
+    >>> [r["label"] for r in default_rules([{"rule": "holdout", "params": {"patience": 5}}])][:3]
+    ['holdout(patience=5)', 'budget', 'holdout']
+    """
     from stopwise.stopping.rules import RULES, rule_specs
 
     specs = rule_specs([*campaign_rules, *[n for n, d in RULES.items() if not d.reference]])

@@ -287,10 +287,26 @@ class Store:
         if len(by_id) > 1:
             raise StoreError(f"campaign id prefix {ref!r} is ambiguous")
         named = [c for c in all_ if c.get("name") == ref]
+        if ref == "adhoc" and len({c["campaign_id"] for c in named}) > 1:  # different sweeps, not one campaign rerun
+            raise StoreError(ambiguous_adhoc(named))
         if named:
             return max(named, key=lambda c: c["created"] if isinstance(c.get("created"), (int, float)) else 0)
         names = sorted({c.get("name", "?") for c in all_})
         raise StoreError(f"no campaign {ref!r} under {self.root}; known: {', '.join(names) or '(none)'}")
+
+
+def ambiguous_adhoc(named: list[dict[str, Any]]) -> str:
+    """One line naming each ad hoc sweep (id and overrides), newest first."""
+    def key(c):
+        return c["created"] if isinstance(c.get("created"), (int, float)) else 0
+
+    parts = []
+    for c in sorted(named, key=key, reverse=True):
+        over = " ".join(x for x in ((c.get("definition") or {}).get("overrides") or [])
+                        if not str(x).startswith("results_root="))
+        parts.append(f"{c['campaign_id']} ({over or 'no overrides'})")
+    return (f"campaign name 'adhoc' is given to {len(named)} different sweeps: {'; '.join(parts)}; "
+            "name one by its id (stopwise campaigns lists them)")
 
 
 def check_manifest_shape(m: Any) -> dict[str, Any]:
