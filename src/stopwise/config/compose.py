@@ -187,6 +187,29 @@ class Composer:
             known = self._groups[key] = bool(self.repo.group_exists(key))
         return known and not isinstance(o.value(), dict)
 
+    def _check_group_value(self, o, line: str) -> None:
+        """A config group takes the name of one of its options: a number, ``nan``, ``inf``,
+        a list or an empty value is one line naming the group and its options (Hydra
+        itself raises a bare ValueError with a traceback for a number)."""
+        if o.is_delete():
+            return
+        v = o.value()
+        if isinstance(v, str) and v.strip():
+            return
+        key = o.key_or_group
+        options: list[str] = []
+        try:
+            if self.repo is not None:
+                options = sorted(self.repo.get_group_options(key))
+        except Exception:  # noqa: BLE001 - the list is a courtesy; the refusal stands without it
+            options = []
+        if not options:  # no Hydra repository at hand: the packaged folder's options
+            options = sorted(p.stem for p in (conf_dir() / key).glob("*.yaml"))
+        shown = "an empty value" if isinstance(v, str) or v is None else (
+            "a list" if isinstance(v, (list, tuple)) else f"the {type(v).__name__} {v!r}")
+        raise SpecError(f"{line.strip()!r} is invalid: {key} is a config group and takes the name of one of its "
+                        f"options, not {shown}; valid: {', '.join(options) or '(none)'}")
+
     def split(self, job: list[str]) -> tuple[tuple[str, ...], list]:
         """(the lines that shape the composition, the value overrides applied after it).
         Group choices and every ``hydra...`` override shape the composition; the rest are
@@ -197,7 +220,10 @@ class Composer:
             o = self.parse(line)
             if o.is_sweep_override():
                 raise SpecError(f"{line!r} is a sweep; it belongs on the stopwise sweep command line")
-            if self.is_group(o) or o.is_hydra_override():
+            if self.is_group(o):
+                self._check_group_value(o, line)
+                shaping.append(line)
+            elif o.is_hydra_override():
                 shaping.append(line)
             else:
                 values.append(o)
