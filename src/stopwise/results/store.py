@@ -12,6 +12,7 @@ named inside them.
 """
 from __future__ import annotations
 
+import errno
 import hashlib
 import json
 import os
@@ -90,6 +91,7 @@ class Store:
         meta = json.loads(md[META_KEY])
         if not isinstance(meta, dict):
             raise StoreError(f"{path}: stopwise metadata is not a JSON object")
+        check_name(Path(path), meta)
         return meta
 
     def run_meta(self, run_id: str) -> dict[str, Any] | None:
@@ -171,7 +173,9 @@ class Store:
             files = [p for p in (self.run_path(r) for r in run_ids) if p.exists()]
         out = []
         for p in files:
-            if self.inside(p):
+            if is_link_loop(p):
+                warnings.warn(f"skipping {p}: a symbolic-link loop", stacklevel=2)
+            elif self.inside(p):
                 out.append(p)
             else:
                 warnings.warn(f"skipping {p}: it links outside the results root {self.root}", stacklevel=2)
@@ -179,14 +183,15 @@ class Store:
 
     def inside(self, path: Path) -> bool:
         """Whether ``path``, links followed, stays inside this results root (or inside its own
-        folder, so that a root or a ``runs/`` folder that is itself a link keeps working)."""
+        folder, so that a root or a ``runs/`` folder that is itself a link keeps working).
+        A link loop is not inside (Python 3.11's ``Path.resolve`` raises RuntimeError on one)."""
         try:
             real = Path(path).resolve()
             if real.parent == Path(path).parent.resolve():
                 return True
             real.relative_to(self.root.resolve())
             return True
-        except (ValueError, OSError):
+        except (ValueError, OSError, RuntimeError):
             return False
 
     def temporary_files(self) -> list[Path]:
@@ -271,6 +276,8 @@ class Store:
             return out
         for p in sorted(self.campaigns_dir.glob("*.json")):
             try:
+                if is_link_loop(p):
+                    raise StoreError("a symbolic-link loop")
                 if not self.inside(p):
                     raise StoreError("it links outside the results root")
                 out.append(check_manifest_shape(json.loads(p.read_text())))
@@ -346,6 +353,35 @@ def _json_default(o: Any) -> Any:
     if isinstance(o, np.ndarray):
         return o.tolist()
     return str(o)
+
+
+def is_link_loop(path: Path) -> bool:
+    """Whether following ``path``'s links goes round in a loop (``a -> a``, ``a -> b -> a``)."""
+    try:
+        os.stat(path)
+        return False
+    except OSError as e:
+        return e.errno == errno.ELOOP
+
+
+def check_name(path: Path, meta: dict[str, Any]) -> None:
+    """A trace under a run id's name must hold that run: the SHA-256 of its stored identity
+    is its stored digest, whose first 16 hex digits are the file name. A valid trace copied
+    under another run's name raises StoreError naming both, so a resumed sweep runs the
+    named run again and readers leave the file out (with their warning for unreadable
+    traces). Names that are no run id (temporary files) are not checked."""
+    stem = path.name[:-8] if path.name.endswith(".parquet") else path.name
+    if not _ID.match(stem) or len(stem) != 16:
+        return
+    digest, ident = meta.get("digest"), meta.get("identity")
+    if not isinstance(digest, str) or ident is None:
+        raise StoreError(f"{path}: no stored identity and digest to check the file name against")
+    actual = hashlib.sha256(canonical_json(ident).encode()).hexdigest()
+    if actual != digest:
+        raise StoreError(f"{path}: its stored identity hashes to {actual[:16]}, not to its stored digest {digest[:16]}")
+    if digest[:16] != stem:
+        raise StoreError(f"{path} holds the trace of run {digest[:16]}, not of run {stem}: a trace under another "
+                         "run's name")
 
 
 def campaign_digest(name: str, run_ids: list[str], stopping: list) -> str:
