@@ -10,6 +10,9 @@ from pathlib import Path
 from stopwise.core.errors import StopwiseError
 
 EXIT_BAD_INPUT = 2
+# exit statuses of `stopwise run` (docs/reliability.md): 0 completed, 1 failed (the run raised;
+# its trace records why), 2 bad input, 3 diverged (recorded as diverged), 4 trace not stored
+EXIT_FAILED, EXIT_DIVERGED, EXIT_NOT_STORED = 1, 3, 4
 
 USAGE = """stopwise COMMAND [args]
 
@@ -194,10 +197,20 @@ def cmd_run(argv: list[str]) -> int:
         check_data([spec])
     except SpecError as e:
         return _fail(str(e))
-    out = run_spec(spec, str(cfg["results_root"]))
+    from stopwise.results.store import StoreWriteError
+
+    try:
+        out = run_spec(spec, str(cfg["results_root"]))
+    except StoreWriteError as e:
+        print(f"stopwise: error: {e}", file=sys.stderr)
+        return EXIT_NOT_STORED
+    except OSError as e:  # the results root itself cannot be made (read-only parent, ...)
+        print(f"stopwise: error: could not store the trace under {cfg['results_root']}: "
+              f"{e.strerror or e}", file=sys.stderr)
+        return EXIT_NOT_STORED
     print(outcome_line(out))
     print(f"trace: {out.path}")
-    return 1 if out.status == "failed" else 0
+    return {"failed": EXIT_FAILED, "diverged": EXIT_DIVERGED}.get(out.status, 0)
 
 
 def cmd_rerun(argv: list[str]) -> int:

@@ -34,6 +34,7 @@ The hierarchy (module of each class in brackets)::
     +-- AveragingError(ValueError)            averaging without what it needs [solvers.averaging]
     +-- SchemaError(TypeError)                a trace's columns of the wrong types [results.schema]
     +-- StoreError(ValueError)                a results folder's names, ids and files [results.store]
+    +-- StoreWriteError(OSError)              a trace that could not be stored [results.store]
     +-- PathError(ValueError)                 unknown evaluation path      [running.fastpath]
     +-- ReferenceRowError(ValueError)         an unreadable reference row  [analysis.references]
     +-- BadArguments(ValueError)              a subcommand's options did not parse [cli]

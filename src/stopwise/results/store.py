@@ -81,7 +81,10 @@ class Store:
         table = pa.Table.from_arrays(arrays, names=names)
         table = table.replace_schema_metadata({META_KEY: json.dumps(meta, sort_keys=True, default=_json_default).encode()})
         path = self.run_path(run_id)
-        _atomic_write(path, lambda fh: pq.write_table(table, fh, compression="zstd"))
+        try:
+            _atomic_write(path, lambda fh: pq.write_table(table, fh, compression="zstd"))
+        except OSError as e:
+            raise StoreWriteError.of(e, path) from e
         return path
 
     def read_meta(self, path: Path) -> dict[str, Any]:
@@ -355,6 +358,25 @@ def _json_default(o: Any) -> Any:
     return str(o)
 
 
+class StoreWriteError(StopwiseError, OSError):
+    """A trace could not be stored (full disk, read-only or unwritable results root): one
+    line naming the folder and the cause; nothing is left under the final name."""
+
+    @classmethod
+    def of(cls, e: OSError, path: Path) -> "StoreWriteError":
+        name = errno.errorcode.get(e.errno or 0, "")
+        why = {errno.ENOSPC: "the disk is full", errno.EDQUOT: "the disk quota is exhausted",
+               errno.EROFS: "the file system is read-only", errno.EACCES: "permission denied",
+               errno.EPERM: "permission denied", errno.EFBIG: "the file is too large"}.get(e.errno or -1,
+                                                                                          e.strerror or str(e))
+        err = cls(e.errno, f"could not store the trace in {Path(path).parent}: {why}"
+                           + (f" ({name})" if name else ""))
+        return err
+
+    def __str__(self) -> str:
+        return str(self.strerror)
+
+
 def is_link_loop(path: Path) -> bool:
     """Whether following ``path``'s links goes round in a loop (``a -> a``, ``a -> b -> a``)."""
     try:
@@ -378,7 +400,8 @@ def check_name(path: Path, meta: dict[str, Any]) -> None:
         raise StoreError(f"{path}: no stored identity and digest to check the file name against")
     actual = hashlib.sha256(canonical_json(ident).encode()).hexdigest()
     if actual != digest:
-        raise StoreError(f"{path}: its stored identity hashes to {actual[:16]}, not to its stored digest {digest[:16]}")
+        raise StoreError(f"{path}: its stored identity hashes to {actual[:16]}, not to its stored digest {digest[:16]}: "
+                         "the stored config does not hash to its run id")
     if digest[:16] != stem:
         raise StoreError(f"{path} holds the trace of run {digest[:16]}, not of run {stem}: a trace under another "
                          "run's name")
