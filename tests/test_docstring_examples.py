@@ -22,7 +22,6 @@ WITHOUT_EXAMPLES = {
     "stopwise.cli",
     "stopwise.config",
     "stopwise.config.catalog",
-    "stopwise.config.spec",
     "stopwise.core",
     "stopwise.core.errors",
     "stopwise.core.version",

@@ -48,6 +48,84 @@ class TaskMismatch(SpecError):
         self.solver, self.dataset, self.task = solver, dataset, task
 
 
+
+class TraceTooLarge(SpecError):
+    """A budget whose trace cannot fit in this machine's memory."""
+
+
+ROW_BYTES = 8 * 32  # a recorded row holds at most about 32 columns of 8 bytes (docs/schema.md)
+
+
+@functools.lru_cache(maxsize=1)
+def memory_bytes() -> int:
+    """This machine's memory, or the process's control-group limit when that is lower."""
+    import os
+
+    total = os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+    for limit_file in ("/sys/fs/cgroup/memory.max", "/sys/fs/cgroup/memory/memory.limit_in_bytes"):
+        try:
+            text = Path(limit_file).read_text().strip()
+        except OSError:
+            continue
+        if text.isdigit() and 0 < int(text) < total:
+            total = int(text)
+    return int(total)
+
+
+def trace_rows_bound(budget: dict, record: dict, n_train: int | None = None) -> int:
+    """The most rows a run with this budget and record schedule can record: every step
+    costs at least one per-sample gradient (1 / n_train data passes), so ``budget.passes``
+    caps the steps once ``n_train`` is known; ``record.every`` or ``record.per_pass`` then
+    caps the rows (the initial and the last iterate are always recorded).
+
+    >>> trace_rows_bound({"iterations": 10**11, "passes": 1.0}, {"every": 1}, n_train=300)
+    303
+    >>> trace_rows_bound({"iterations": 1000, "passes": None}, {"every": 10})
+    102
+    >>> trace_rows_bound({"iterations": 10**9, "passes": 20.0}, {"every": 1, "per_pass": 8})
+    163
+    """
+    steps = int(budget["iterations"])
+    passes = budget.get("passes")
+    if passes is not None and n_train:
+        steps = min(steps, math.ceil(float(passes) * int(n_train)) + 1)
+    per_pass = record.get("per_pass")
+    if per_pass is None:
+        return steps // int(record.get("every", 1)) + 2
+    if passes is None:
+        return steps + 2
+    return min(steps, math.floor(float(per_pass) * float(passes)) + 1) + 2
+
+
+def check_trace_fits(budget: dict, record: dict, n_train: int | None = None) -> None:
+    """Refuse (one line) a budget whose trace cannot fit in half of this machine's memory.
+    Without ``n_train`` a pass budget cannot be turned into a step count, so a budget with
+    ``passes`` is then checked only through ``record.per_pass``."""
+    if n_train is None and budget.get("passes") is not None and record.get("per_pass") is None:
+        return
+    rows = trace_rows_bound(budget, record, n_train)
+    need, have = rows * ROW_BYTES, memory_bytes() // 2
+    if need <= have:
+        return
+    sched = (f"record.per_pass={record['per_pass']:g}" if record.get("per_pass") is not None
+             else f"record.every={record.get('every', 1)}")
+    passes = budget.get("passes")
+    raise TraceTooLarge(
+        f"budget.iterations={budget['iterations']} with "
+        + (f"budget.passes={passes:g}, " if passes is not None else "")
+        + f"{sched} can record {rows} rows (about {_size(need)}), more than half this machine's memory "
+          f"({_size(2 * have)}): record less often (record.every, record.per_pass), set budget.passes, "
+          "or lower budget.iterations")
+
+
+def _size(n: float) -> str:
+    for unit in ("bytes", "KiB", "MiB", "GiB", "TiB", "PiB"):
+        if n < 1024 or unit == "PiB":
+            return f"{n:.0f} {unit}" if unit == "bytes" else f"{n:.1f} {unit}"
+        n /= 1024
+    return f"{n:.1f} PiB"
+
+
 def solver_keys(name: str) -> set[str]:
     """The keys a ``solver.`` override may set for solver ``name`` (its params and the
     common keys); empty for an unknown solver."""
@@ -375,6 +453,7 @@ def spec_from_config(cfg: Any) -> RunSpec:
     name, params = _solver_section(c["solver"], dataset, c["dataset"].get("loss"))
     budget = _budget_section(c.get("budget"))
     record = _record_section(c.get("record"))
+    check_trace_fits(budget, record)  # the training rows' count is checked once the data are built
     seed = int(_check("seed", c.get("seed", 0)))
     _run_options_section(c)
     stopping = _stopping_section(c.get("stopping"), record, dataset)

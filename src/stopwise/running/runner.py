@@ -19,7 +19,7 @@ from stopwise.problem.losses import resolve_loss
 from stopwise.problem.problem import Problem
 from stopwise.running.record import Recorder, make_recorder
 from stopwise.solvers import get_solver
-from stopwise.config.spec import RunSpec, halt_missing_column
+from stopwise.config.spec import RunSpec, halt_missing_column, trace_rows_bound
 from stopwise.config.compose import spec_from_overrides
 from stopwise.results.store import Store
 
@@ -59,13 +59,13 @@ def _problem_info(p: Problem, train=None) -> dict[str, Any]:
 PASS_EPS = 1e-12  # tolerance on pass counts (budget and record schedule)
 
 
-def _record_rows(spec: RunSpec) -> int:
-    it = spec.budget["iterations"]
-    per_pass = spec.record.get("per_pass")
-    if per_pass is not None:
-        passes = spec.budget.get("passes")
-        return int(min(it, per_pass * passes)) + 2 if passes is not None else 256
-    return it // spec.record["every"] + 2
+INITIAL_ROWS = 4096  # rows allocated up front at most; the recorder grows beyond them when needed
+
+
+def _record_rows(spec: RunSpec, n_train: int) -> int:
+    """Rows to allocate: what the budget can reach (:func:`trace_rows_bound`), at most
+    :data:`INITIAL_ROWS`."""
+    return min(trace_rows_bound(spec.budget, spec.record, n_train), INITIAL_ROWS)
 
 
 def run_rng(spec: RunSpec) -> np.random.Generator:
@@ -132,7 +132,7 @@ def _prepare(spec: RunSpec, problem: Problem, path: str, record_path: str | None
         stats = fastpath.split_statistics(problem, record_path)
     t_prep = clock() - t_prep
     model = sdef.model(params, train) if sdef.model is not None else None
-    rec = make_recorder(problem, capacity=_record_rows(spec),
+    rec = make_recorder(problem, capacity=_record_rows(spec, problem.n_train),
                         state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None,
                         loss=train.loss, model=model, statistics=stats,
                         residual=spec.record.get("residual", True))

@@ -45,15 +45,24 @@ def check_data(specs: list[RunSpec]) -> None:
     errors (unknown feature, bad row indices, a missing file, an OpenML id that is not
     cached) are reported before anything is written. The other seeds' problems are built
     by the runs themselves (costly ones go through the on-disk problem cache)."""
-    from stopwise.data import prepare_problems
+    from stopwise.config.spec import check_trace_fits
+    from stopwise.data import cached_problem, prepare_problems
 
     firsts: dict[str, RunSpec] = {}
-    for s in specs:
-        firsts.setdefault(canonical_json([s.dataset, s.split]), s)
+    keys = [canonical_json([s.dataset, s.split]) for s in specs]
+    for key, s in zip(keys, specs):
+        firsts.setdefault(key, s)
     try:
         prepare_problems(list(firsts.values()))
     except MemoryError as e:  # e.g. dataset.params.n=1e15: bad input, not a crash
         raise SpecError(f"a dataset of this sweep does not fit in memory: {' '.join(str(e).split())}") from None
+    n_train = {key: cached_problem(s.dataset, s.split, s.seed).n_train for key, s in firsts.items()}
+    seen: set[tuple] = set()
+    for key, s in zip(keys, specs):  # what each budget can record, now that the training rows are known
+        what = (key, s.budget["iterations"], s.budget["passes"], s.record["every"], s.record.get("per_pass"))
+        if what not in seen:
+            seen.add(what)
+            check_trace_fits(s.budget, s.record, n_train[key])
 
 
 # ---------------------------------------------------------------- campaign files
