@@ -7,7 +7,7 @@ The same campaign is first swept once without interruption (the peer). Then the 
 started) or one of its joblib workers, chosen at random, is killed with SIGKILL, and the
 command is started again, until one start exits 0. A killed parent's workers are left
 alone: they may go on writing while the restarted command runs, as they would on a real
-machine. While this goes on, a watcher reads every trace that appears under its final name
+machine; at the end, any still alive (found by the session each start was given) are killed. While this goes on, a watcher reads every trace that appears under its final name
 in full (a partial file visible to a reader would fail to decode).
 
 At the end, against the campaign's manifest:
@@ -101,6 +101,22 @@ class Watcher(threading.Thread):
             time.sleep(0.1)
 
 
+def in_sessions(sessions: set[int]) -> set[int]:
+    """Pids of the processes now alive in one of ``sessions`` (from /proc). Every start of
+    the command gets a session of its own, so this finds the joblib workers and resource
+    trackers of killed parents, and no process this script did not start."""
+    out = set()
+    for d in Path("/proc").glob("[0-9]*"):
+        try:
+            stat = (d / "stat").read_text()
+        except OSError:
+            continue
+        fields = stat[stat.rindex(")") + 2:].split()
+        if len(fields) > 3 and int(fields[3]) in sessions:  # field 6 of proc(5): the session id
+            out.add(int(d.name))
+    return out
+
+
 def same_traces(a: Path, b: Path) -> tuple[int, list[str]]:
     import pyarrow.parquet as pq
 
@@ -138,6 +154,7 @@ def main() -> None:
     ref_wall = time.perf_counter() - t0
     print(f"\npeer: the uninterrupted sweep of {a.runs} runs with --jobs 2: {ref_wall:.1f} s")
 
+    sessions: set[int] = set()
     (soak / "runs").mkdir(parents=True)
     watcher = Watcher(soak / "runs")
     watcher.start()
@@ -146,7 +163,8 @@ def main() -> None:
     while True:
         starts += 1
         proc = subprocess.Popen(command(soak, a.runs), cwd=tmp, env=env, stdout=subprocess.DEVNULL,
-                                stderr=subprocess.PIPE, text=True)
+                                stderr=subprocess.PIPE, text=True, start_new_session=True)
+        sessions.add(proc.pid)
         if sum(kills.values()) >= a.max_kills:
             _, err = proc.communicate()
             if proc.returncode != 0:
@@ -185,6 +203,12 @@ def main() -> None:
     time.sleep(1.0)  # let workers orphaned by the last parent kill finish or exit
     watcher.stop.set()
     watcher.join()
+    orphans = in_sessions(sessions)  # workers of killed parents that never exited
+    for pid in orphans:
+        try:
+            os.kill(pid, signal.SIGKILL)
+        except OSError:
+            pass
 
     (manifest,) = (soak / "campaigns").glob("*.json")
     ids = set(json.loads(manifest.read_text())["run_ids"])
@@ -204,6 +228,7 @@ def main() -> None:
     print(f"   stopwise verify: exit {ver.returncode} ({((ver.stdout + ver.stderr).strip().splitlines() or [''])[-1]}); "
           f"hidden temporary files left by killed writers: {leftovers}")
     print(f"   traces equal to the uninterrupted sweep's: {equal} of {len(ids)}")
+    print(f"   joblib processes of killed parents still alive at the end (then killed): {len(orphans)}")
     for line in watcher.partial[:5]:
         print(f"   partial: {line}")
     bad = lost or duplicated or watcher.partial or ver.returncode != 0 or equal != len(ids) or differ
