@@ -86,3 +86,64 @@ def test_exit_statuses_completed_diverged_bad_input(tmp_path):
     assert div.returncode == 3 and "diverged" in div.stdout, div.stdout + div.stderr
     bad = subprocess.run([*RUN, "solver.step_scale=-1", f"results_root={root}"], capture_output=True, text=True)
     assert bad.returncode == 2
+
+
+def test_a_run_that_raises_exits_1_with_its_trace_recording_why(tmp_path):
+    # a network of 10^8 hidden units needs 24 GB for its first weights; the address space is
+    # capped at 1 GiB above the interpreter's, so the run gets a real MemoryError
+    script = (
+        "import re, resource, sys\n"
+        "import numpy, scipy.linalg, pyarrow.parquet, hydra, sklearn.datasets\n"
+        "from stopwise.cli import main\n"
+        "vm = int(re.search(r'VmSize:\\s+(\\d+) kB', open('/proc/self/status').read()).group(1)) * 1024\n"
+        "resource.setrlimit(resource.RLIMIT_AS, (vm + 2**30, vm + 2**30))\n"
+        "sys.exit(main(sys.argv[1:]))\n"
+    )
+    root = tmp_path / "results"
+    res = subprocess.run([sys.executable, "-c", script, "run", "dataset=breast_cancer", "solver=relu_net",
+                          "solver.width=100000000", "budget.iterations=5", f"results_root={root}"],
+                         capture_output=True, text=True, timeout=300)
+    assert res.returncode == 1, res.stdout + res.stderr
+    runs = stopwise.load_runs(root)
+    assert list(runs["status"]) == ["failed"] and runs["message"].str.contains("allocate|MemoryError").all()
+
+
+@pytest.mark.parametrize("errno_name", ["ENOSPC", "EROFS", "EACCES"])
+def test_a_write_refused_by_the_system_is_one_line_exit_4_without_root(tmp_path, monkeypatch, capsys, errno_name):
+    """Where no tmpfs or bind mount can be made (no root), the same refusal injected at the
+    writer: the file system call that writes the trace raises the OSError a full disk, a
+    read-only root or a missing permission raises."""
+    import errno
+
+    from stopwise.cli import main
+    from stopwise.core import files
+
+    code = getattr(errno, errno_name)
+    real = files.os.fdopen
+
+    def refusing_fdopen(fd, *a, **k):
+        fh = real(fd, *a, **k)
+
+        class Refusing:
+            def __enter__(self):
+                return self
+
+            def __exit__(self, *exc):
+                fh.close()
+                return False
+
+            def write(self, data):
+                raise OSError(code, os.strerror(code))
+
+            def __getattr__(self, name):
+                return getattr(fh, name)
+
+        return Refusing()
+
+    monkeypatch.setattr(files.os, "fdopen", refusing_fdopen)
+    monkeypatch.chdir(tmp_path)
+    rc = main(["run", "solver=gd", "dataset=illposed", "budget.iterations=30", f"results_root={tmp_path / 'r'}"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert rc == 4 and len(err) == 1 and err[0].startswith("stopwise: error: could not store the trace"), err
+    assert f"({errno_name})" in err[0]
+    assert not [p for p in (tmp_path / "r" / "runs").iterdir() if not p.name.startswith(".")]

@@ -347,8 +347,11 @@ def cmd_verify(argv: list[str]) -> int:
         print(f"note  {f.path}: {f.problem}")
     for src, dest in rep.moved:
         print(f"moved {rel(src)} -> {rel(dest)}")
-    summary = (f"checked {rep.traces} {'trace' if rep.traces == 1 else 'traces'} and {rep.manifests} "
-               f"{'manifest' if rep.manifests == 1 else 'manifests'} under {a.root}: ")
+    def n(k: int, what: str) -> str:
+        return f"{k} {what}" + ("" if k == 1 else "s")
+
+    summary = (f"checked {n(rep.traces, 'trace')}, {n(rep.manifests, 'manifest')}, {n(rep.baselines, 'baseline')}, "
+               f"{n(rep.report_files, 'report file')} under {a.root} and {n(rep.cached, 'cached problem')}: ")
     if rep.ok:
         print(summary + "all good")
         return 0

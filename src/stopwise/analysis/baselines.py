@@ -44,12 +44,12 @@ from typing import Any, Callable, Iterable, Mapping
 import numpy as np
 import pandas as pd
 import pyarrow as pa
-import pyarrow.parquet as pq
 
 from stopwise.core.errors import SpecError
 from stopwise.problem.problem import Problem
 from stopwise.core.registry import Registry
 from stopwise.core.params import Flag, Interval, ParamError, make_params, normalize_number, param
+from stopwise.results.schema import read_table
 from stopwise.results.store import Store, StoreError
 
 BASELINE_FORMAT = 1
@@ -503,7 +503,7 @@ def load_baselines(root: str | Path = "results", campaign: str | None = None) ->
             md = store.read_meta(f)
             if keep is not None and canonical_json(md["identity"]["data"]) not in keep:
                 continue
-            frames.append(pq.read_table(f).to_pandas())
+            frames.append(read_table(f).to_pandas())
         except Exception as e:
             warnings.warn(f"skipping unreadable baseline {f}: {type(e).__name__}: {e}", stacklevel=2)
     if not frames:

@@ -11,7 +11,10 @@ format and the versions of numpy, scikit-learn and pandas; so a changed spec, ch
 data or a changed library reads a different entry, and an entry is never stale.
 Both files are written atomically (temporary name, fsync, rename), the arrays first, so a
 reader that finds the JSON finds complete arrays; concurrent writers of one key write
-the same bytes. Nothing is pickled.
+the same bytes. Nothing is pickled. The JSON carries the SHA-256 of the arrays' file
+(``arrays_sha256``) and of its own other fields (``meta_sha256``); an entry whose bytes
+changed after it was written (bit rot, a hand edit) is not used but rebuilt, with a warning
+naming it, and ``stopwise verify`` names it (:func:`check_entry`).
 
 The cache lives in ``$STOPWISE_CACHE`` when set (``off`` disables it), else in the
 user's cache directory (``$XDG_CACHE_HOME/stopwise`` or ``~/.cache/stopwise`` on Linux,
@@ -33,7 +36,7 @@ import numpy as np
 from stopwise.core.files import atomic_write_bytes
 from stopwise.problem.problem import Problem
 
-CACHE_FORMAT = 2  # 2: Problem.info carries row_order
+CACHE_FORMAT = 3  # 2: Problem.info carries row_order; 3: checksums of both files
 ENV = "STOPWISE_CACHE"
 ARRAYS = ("X_train", "y_train", "X_val", "y_val", "X_test", "y_test")
 _VERSIONS: dict[str, str] | None = None
@@ -97,8 +100,42 @@ def jsonable(obj: Any) -> Any:
     return json.loads(json.dumps(obj, default=default, allow_nan=True))
 
 
+def _meta_sha(meta: dict) -> str:
+    rest = {k: v for k, v in meta.items() if k != "meta_sha256"}
+    return hashlib.sha256(json.dumps(rest, sort_keys=True).encode()).hexdigest()
+
+
+def check_entry(json_path: Path) -> str:
+    """Why a cache entry (its ``.json`` and ``.npz``) is not what was written, or ''."""
+    try:
+        meta = json.loads(Path(json_path).read_text())
+    except (OSError, ValueError) as e:
+        return f"unreadable: {type(e).__name__}: {' '.join(str(e).split())[:200]}"
+    if not isinstance(meta, dict):
+        return "not a JSON object"
+    if meta.get("format") != CACHE_FORMAT:
+        return ""  # another cache format: never read, so never wrong (left for its own version)
+    if meta.get("meta_sha256") != _meta_sha(meta):
+        return "its fields differ from what was written (checksum mismatch: a changed byte)"
+    try:
+        data = Path(json_path).with_suffix(".npz").read_bytes()
+    except OSError as e:
+        return f"its arrays file is unreadable: {type(e).__name__}: {e.strerror or e}"
+    if hashlib.sha256(data).hexdigest() != meta.get("arrays_sha256"):
+        return "its arrays differ from what was written (checksum mismatch: a changed byte)"
+    return ""
+
+
+def entries(root: Path | None = None) -> list[Path]:
+    """The JSON files of the cache's entries (each beside its ``.npz``)."""
+    root = root if root is not None else cache_dir()
+    d = root / "problems" if root is not None else None
+    return sorted(d.glob("*.json")) if d is not None and d.is_dir() else []
+
+
 def read(key: str, root: Path | None = None) -> Problem | None:
-    """The cached Problem for ``key``, or None (missing, unreadable or for another key)."""
+    """The cached Problem for ``key``, or None (missing, unreadable, changed since it was
+    written, or for another key)."""
     root = root if root is not None else cache_dir()
     if root is None:
         return None
@@ -107,7 +144,14 @@ def read(key: str, root: Path | None = None) -> Problem | None:
         meta = json.loads(json_path.read_text())
         if meta.get("key") != key or meta.get("format") != CACHE_FORMAT:
             return None
-        with np.load(npz_path, allow_pickle=False) as z:
+        data = npz_path.read_bytes()
+        if meta.get("meta_sha256") != _meta_sha(meta) or hashlib.sha256(data).hexdigest() != meta.get("arrays_sha256"):
+            import warnings
+
+            warnings.warn(f"cached problem {json_path} changed since it was written (checksum mismatch); "
+                          "building it again", stacklevel=3)
+            return None
+        with np.load(io.BytesIO(data), allow_pickle=False) as z:
             arrays = {k: np.array(z[k]) for k in z.files}
     except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile):  # damaged: rebuild
         return None
@@ -131,11 +175,15 @@ def write(key: str, problem: Problem, root: Path | None = None) -> Path | None:
         arrays["w_true"] = problem.w_true
     buf = io.BytesIO()
     np.savez(buf, **arrays)
-    atomic_write_bytes(npz_path, buf.getvalue(), durable=False)  # a cache: a lost file is rebuilt
+    data = buf.getvalue()
+    atomic_write_bytes(npz_path, data, durable=False)  # a cache: a lost file is rebuilt
     meta = {"key": key, "format": CACHE_FORMAT, "name": problem.name, "task": problem.task,
             "noise_level": problem.noise_level, "noise_kind": problem.noise_kind,
             "feature_names": list(problem.feature_names), "has_truth": problem.w_true is not None,
             "preprocessing": problem.preprocessing, "info": problem.info, "loss": problem.loss,
-            "shapes": {k: list(v.shape) for k, v in arrays.items()}}
-    atomic_write_bytes(json_path, json.dumps(jsonable(meta), sort_keys=True).encode(), durable=False)
+            "shapes": {k: list(v.shape) for k, v in arrays.items()},
+            "arrays_sha256": hashlib.sha256(data).hexdigest()}
+    meta = jsonable(meta)
+    meta["meta_sha256"] = _meta_sha(meta)
+    atomic_write_bytes(json_path, json.dumps(meta, sort_keys=True).encode(), durable=False)
     return json_path

@@ -28,7 +28,7 @@ import pandas as pd
 from stopwise.core.version import __version__
 from stopwise.report.figures import Plot
 from stopwise.analysis.rank import Ranking
-from stopwise.results.store import atomic_write_bytes
+from stopwise.results.store import write_folder
 from stopwise.report.tables import (display_tables, heading, render_rules, rules_frame, rules_scores_frame, to_csv,
                                     to_markdown)
 
@@ -176,10 +176,8 @@ def write_report(page: ReportPage, out_dir: str | Path) -> Path:
         files.append((out / "rules_per_run.csv", to_csv(page.rules.per_run).encode()))
     files.append((out / "tables.md", render_markdown(page).encode()))
     files.append((out / "index.html", render_html(page).encode()))  # last: the page appears when all is there
-    mode = 0o666 & ~_umask()
-    for path, data in files:
-        atomic_write_bytes(path, data)
-        os.chmod(path, mode)  # a page is for reading: not the 0600 of a temporary file
+    # a page is for reading: not the 0600 of a temporary file; checksums.json lets verify name a changed byte
+    write_folder(out, files, mode=0o666 & ~_umask())
     return out / "index.html"
 
 

@@ -88,6 +88,147 @@ def one_line(e: BaseException) -> str:
     return " ".join(str(e).split())[:300]
 
 
+# ---------------------------------------------------------------- bytes on disk and their checks
+#
+# Every Parquet file of a results root (traces, baselines) is written with a CRC-32 on each
+# page (``write_page_checksum``) and read with the pages' CRCs verified, so a changed byte
+# in a page fails the read (readers then skip the file by name) instead of decoding to
+# another number. Beside the ``stopwise`` metadata (JSON, under :data:`META_KEY`) a file
+# carries ``stopwise.checksums`` (:data:`CHECKSUMS_KEY`): the SHA-256 of the decoded data
+# (:func:`data_digest`) and of the metadata's bytes. Readers of metadata check the second;
+# ``stopwise verify`` checks both, and that the file's bytes are exactly what the writer
+# makes of its content (:func:`encode`), which names a changed byte anywhere in the file.
+
+META_KEY = b"stopwise"
+CHECKSUMS_KEY = b"stopwise.checksums"
+WRITE_OPTIONS = {"compression": "zstd", "write_page_checksum": True}
+
+
+def encode(table: pa.Table, fh) -> None:
+    """Write ``table`` (with its schema metadata) as Parquet the one way stopwise does."""
+    pq.write_table(table, fh, **WRITE_OPTIONS)
+
+
+def read_table(path, columns=None) -> pa.Table:
+    """``pyarrow.parquet.read_table`` with every page's CRC verified (files written before
+    checksums were stored have none to verify and read as before)."""
+    return pq.read_table(path, columns=columns, page_checksum_verification=True)
+
+
+def data_digest(table: pa.Table) -> str:
+    """SHA-256 of a table's decoded content, independent of how it is encoded: each column's
+    name, type, length, null mask and values in order (schema metadata aside).
+
+    >>> t = pa.table({"a": [1.0, None], "b": ["x", "y"]})
+    >>> data_digest(t) == data_digest(pa.table({"a": [1.0, None], "b": ["x", "y"]}))
+    True
+    >>> data_digest(t) == data_digest(pa.table({"a": [1.0, 0.0], "b": ["x", "y"]}))  # null is not 0
+    False
+    """
+    import hashlib
+    import json
+
+    import numpy as np
+
+    h = hashlib.sha256()
+    for name, col in zip(table.column_names, table.columns):
+        arr = col.chunk(0) if col.num_chunks == 1 else (col.combine_chunks() if col.num_chunks else pa.array([], col.type))
+        h.update(f"{name}\0{arr.type}\0{len(arr)}\0{arr.null_count}\0".encode())
+        if arr.null_count:
+            h.update(np.asarray(arr.is_null().to_numpy(zero_copy_only=False), dtype=np.uint8).tobytes())
+        t = arr.type
+        if pa.types.is_null(t) or arr.null_count == len(arr):
+            continue
+        if pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_boolean(t):
+            vals = arr.fill_null(False if pa.types.is_boolean(t) else 0) if arr.null_count else arr
+            h.update(vals.to_numpy(zero_copy_only=False).tobytes())
+        else:
+            h.update(json.dumps(arr.to_pylist(), default=str).encode())
+    return h.hexdigest()
+
+
+def seal(table: pa.Table, meta: bytes) -> pa.Table:
+    """``table`` with ``meta`` (the ``stopwise`` metadata's JSON bytes) and the checksums of
+    both as its schema metadata, ready for :func:`encode`."""
+    import json
+
+    version = pa.__version__
+    sums = {"data": data_digest(table), "metadata": _meta_digest(meta, version), "pyarrow": version}
+    return table.replace_schema_metadata({META_KEY: meta, CHECKSUMS_KEY: json.dumps(sums, sort_keys=True).encode()})
+
+
+def _meta_digest(meta: bytes, version: str) -> str:
+    """SHA-256 of the metadata's bytes and the writing pyarrow version (which decides
+    whether ``verify`` can compare the file's bytes with a fresh encoding)."""
+    import hashlib
+
+    return hashlib.sha256(meta + b"\0" + str(version).encode()).hexdigest()
+
+
+def _sums(md: dict) -> dict | None:
+    import json
+
+    raw = md.get(CHECKSUMS_KEY)
+    if raw is None:
+        return None
+    try:
+        sums = json.loads(raw)
+    except ValueError:
+        return {}
+    return sums if isinstance(sums, dict) else {}
+
+
+def metadata_problem(md: dict) -> str:
+    """Why a file's schema metadata ``md`` (``{bytes: bytes}``) is not what was written, or
+    '' (also for files written before checksums were stored: see :func:`has_checksums`)."""
+
+    sums = _sums(md)
+    if sums is None:
+        return ""
+    if not all(isinstance(sums.get(k), str) for k in ("metadata", "data", "pyarrow")):
+        return "its checksums are malformed (a changed byte)"
+    if _meta_digest(md.get(META_KEY, b""), sums["pyarrow"]) != sums["metadata"]:
+        return "its metadata differ from what was written (checksum mismatch: a changed byte)"
+    return ""
+
+
+def has_checksums(md: dict) -> bool:
+    return CHECKSUMS_KEY in md
+
+
+def written_by(md: dict) -> str | None:
+    """The pyarrow version that wrote a file with checksums (None without them)."""
+    sums = _sums(md)
+    return sums.get("pyarrow") if sums else None
+
+
+def encoding_problem(path, table: pa.Table) -> str:
+    """For a file written by this pyarrow version: why its bytes are not exactly what
+    :func:`encode` makes of its decoded ``table`` (schema metadata included), or ''. A
+    changed byte that decodes to the same content (in a page header, the footer's
+    statistics or its writer string) is named here."""
+    import io
+
+    buf = io.BytesIO()
+    encode(table, buf)
+    with open(path, "rb") as fh:
+        stored = fh.read()
+    if buf.getvalue() != stored:
+        return "its bytes differ from the encoding of its content (a changed byte in the file's structure)"
+    return ""
+
+
+def data_problem(table: pa.Table) -> str:
+    """Why a decoded ``table`` (schema metadata included) is not the data that was written, or ''."""
+    md = table.schema.metadata or {}
+    sums = _sums(md)
+    if not sums:
+        return "" if sums is None else "its checksums are malformed (a changed byte)"
+    if data_digest(table) != sums.get("data"):
+        return "its data differ from what was written (checksum mismatch: a changed byte)"
+    return ""
+
+
 # Param columns renamed since traces were first written: {former name: today's name}.
 # The same map as stopwise.config.spec.RENAMED_SOLVER_KEYS (checked by a test); kept
 # here because the results schema sits below the config package.
@@ -103,6 +244,9 @@ def read_trace(path: str | Path, columns: Iterable[str] | None = None, *,
     """
     try:
         schema = pq.read_schema(path)
+        changed = metadata_problem(schema.metadata or {})
+        if changed:
+            raise SchemaError(changed)
         wrong = type_mismatches(schema)
         if wrong:
             raise SchemaError("column types differ from the trace schema: " + ", ".join(wrong))
@@ -112,7 +256,11 @@ def read_trace(path: str | Path, columns: Iterable[str] | None = None, *,
         else:
             back = {new: old for old, new in former.items()}
             cols = [back.get(c, c) for c in columns if c in schema.names or c in back]
-        table = pq.read_table(path, columns=cols)
+        table = read_table(path, columns=cols)
+        if cols is None:
+            changed = data_problem(table)
+            if changed:
+                raise SchemaError(changed)
         if former:  # a trace written before a param was renamed reads under today's name
             table = table.rename_columns([former.get(n, n) for n in table.column_names])
         return table
@@ -122,4 +270,5 @@ def read_trace(path: str | Path, columns: Iterable[str] | None = None, *,
 
 
 __all__ = ["BASE_COLUMNS", "BASE_SCHEMA", "RUN_LEVEL", "RUN_LEVEL_SCHEMA", "STATUSES", "SchemaError",
-           "FORMER_COLUMNS", "TRACE_SCHEMA", "read_trace", "type_mismatches"]
+           "FORMER_COLUMNS", "TRACE_SCHEMA", "WRITE_OPTIONS", "data_digest", "data_problem", "encode",
+           "encoding_problem", "has_checksums", "metadata_problem", "written_by", "seal", "META_KEY", "CHECKSUMS_KEY", "read_table", "read_trace", "type_mismatches"]

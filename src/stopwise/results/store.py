@@ -30,9 +30,8 @@ from stopwise.core.files import atomic_write as _atomic_write  # noqa: F401  (th
 from stopwise.core.files import atomic_write_bytes
 from stopwise.core.errors import StopwiseError
 from stopwise.config.spec import canonical_json
-from stopwise.results.schema import RUN_LEVEL, STATUSES  # noqa: F401  (re-exported)
+from stopwise.results.schema import META_KEY, RUN_LEVEL, STATUSES, encode, metadata_problem, read_table, seal  # noqa: F401
 
-META_KEY = b"stopwise"
 _ID = re.compile(r"^[0-9a-f]{4,64}$")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")  # the campaign file names' rule (campaign.NAME)
 
@@ -78,11 +77,11 @@ class Store:
                 arrays.append(pa.nulls(n, pa.float64()))
             else:
                 arrays.append(pa.array(v))
-        table = pa.Table.from_arrays(arrays, names=names)
-        table = table.replace_schema_metadata({META_KEY: json.dumps(meta, sort_keys=True, default=_json_default).encode()})
+        table = seal(pa.Table.from_arrays(arrays, names=names),
+                     json.dumps(meta, sort_keys=True, default=_json_default).encode())
         path = self.run_path(run_id)
         try:
-            _atomic_write(path, lambda fh: pq.write_table(table, fh, compression="zstd"))
+            _atomic_write(path, lambda fh: encode(table, fh))
         except OSError as e:
             raise StoreWriteError.of(e, path) from e
         return path
@@ -91,6 +90,9 @@ class Store:
         md = pq.read_schema(path).metadata or {}
         if META_KEY not in md:
             raise StoreError(f"{path}: no stopwise metadata")
+        changed = metadata_problem(md)
+        if changed:
+            raise StoreError(f"{path}: {changed}")
         meta = json.loads(md[META_KEY])
         if not isinstance(meta, dict):
             raise StoreError(f"{path}: stopwise metadata is not a JSON object")
@@ -222,9 +224,9 @@ class Store:
 
     def write_baseline(self, baseline_id: str, table: pa.Table, meta: dict[str, Any]) -> Path:
         """Write one baseline's table atomically with ``meta`` as its ``stopwise`` metadata."""
-        table = table.replace_schema_metadata({META_KEY: json.dumps(meta, sort_keys=True, default=_json_default).encode()})
+        table = seal(table.replace_schema_metadata(None), json.dumps(meta, sort_keys=True, default=_json_default).encode())
         path = self.baseline_path(baseline_id)
-        _atomic_write(path, lambda fh: pq.write_table(table, fh, compression="zstd"))
+        _atomic_write(path, lambda fh: encode(table, fh))
         return path
 
     def has_baseline(self, baseline_id: str) -> bool:
@@ -234,7 +236,7 @@ class Store:
             return False
         try:
             self.read_meta(path)
-            pq.read_metadata(path)
+            read_table(path)  # every page's checksum verified
             return True
         except Exception:
             return False
@@ -303,6 +305,57 @@ class Store:
             return max(named, key=lambda c: c["created"] if isinstance(c.get("created"), (int, float)) else 0)
         names = sorted({c.get("name", "?") for c in all_})
         raise StoreError(f"no campaign {ref!r} under {self.root}; known: {', '.join(names) or '(none)'}")
+
+
+FOLDER_CHECKSUMS = "checksums.json"
+
+
+def write_folder(folder: Path, files: list[tuple[Path, bytes]], mode: int | None = None) -> None:
+    """Write ``files`` (paths inside ``folder``) atomically, in order, with
+    :data:`FOLDER_CHECKSUMS` (the SHA-256 of each file, by its path relative to ``folder``)
+    written just before the last file, so that ``stopwise verify`` can name any file of the
+    folder changed after it was written. ``mode``: permissions of the written files."""
+    folder = Path(folder)
+    sums = {str(Path(p).relative_to(folder)): hashlib.sha256(data).hexdigest() for p, data in files}
+    body = json.dumps({"format": 1, "files": sums}, indent=1, sort_keys=True).encode()
+    order = list(files[:-1]) + [(folder / FOLDER_CHECKSUMS, body)] + list(files[-1:])
+    for path, data in order:
+        atomic_write_bytes(path, data)
+        if mode is not None:
+            os.chmod(path, mode)
+
+
+def check_folder(folder: Path) -> tuple[list[tuple[Path, str]], int]:
+    """(problems by file, files checked) of a folder written by :func:`write_folder`; a
+    folder without :data:`FOLDER_CHECKSUMS` gives one problem naming that."""
+    folder = Path(folder)
+    try:
+        doc = json.loads((folder / FOLDER_CHECKSUMS).read_text())
+        sums = doc["files"]
+        if not isinstance(sums, dict):
+            raise ValueError("files is not a mapping")
+    except FileNotFoundError:
+        return [(folder, f"no {FOLDER_CHECKSUMS}: written before checksums were stored, or not by stopwise")], 0
+    except (OSError, ValueError, KeyError, TypeError) as e:
+        return [(folder / FOLDER_CHECKSUMS, f"unreadable: {type(e).__name__}: {e}")], 0
+    out: list[tuple[Path, str]] = []
+    for rel, want in sorted(sums.items()):
+        path = folder / str(rel)
+        if ".." in Path(str(rel)).parts or Path(str(rel)).is_absolute():
+            out.append((folder / FOLDER_CHECKSUMS, f"names a file outside its folder: {rel!r}"))
+            continue
+        try:
+            got = hashlib.sha256(path.read_bytes()).hexdigest()
+        except OSError as e:
+            out.append((path, f"listed in {FOLDER_CHECKSUMS} but unreadable: {e.strerror or e}"))
+            continue
+        if got != want:
+            out.append((path, "differs from what was written (checksum mismatch: a changed byte)"))
+    listed = {str(r) for r in sums} | {FOLDER_CHECKSUMS}
+    for path in sorted(folder.rglob("*")):
+        if path.is_file() and not path.name.startswith(".") and str(path.relative_to(folder)) not in listed:
+            out.append((path, f"not listed in {FOLDER_CHECKSUMS}: added after the folder was written"))
+    return out, len(sums)
 
 
 def ambiguous_adhoc(named: list[dict[str, Any]]) -> str:

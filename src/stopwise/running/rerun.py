@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-import pyarrow.parquet as pq
+from stopwise.results.schema import read_table
 
 from stopwise.running.runner import execute, save
 from stopwise.config.spec import SpecError, spec_from_identity
@@ -70,7 +70,7 @@ def rerun_one(store: Store, run_id: str) -> Comparison:
     path = store.run_path(run_id)
     try:
         meta = store.read_meta(path)
-        stored = pq.read_table(path)
+        stored = read_table(path)
     except Exception as e:
         return Comparison(run_id, False, float("inf"), [f"unreadable: {type(e).__name__}: {e}"])
     try:
@@ -83,7 +83,7 @@ def rerun_one(store: Store, run_id: str) -> Comparison:
     trace = execute(spec)
     with tempfile.TemporaryDirectory(prefix="stopwise-rerun-") as tmp:
         fresh_path = save(spec, trace, Store(tmp)).path
-        fresh = pq.read_table(fresh_path)
+        fresh = read_table(fresh_path)
         fresh_status = Store(tmp).read_meta(Path(fresh_path))["status"]
     worst, problems = compare_tables(stored, fresh)
     if fresh_status != meta.get("status"):
