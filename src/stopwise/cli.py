@@ -233,7 +233,8 @@ def cmd_rerun(argv: list[str]) -> int:
         c = rerun_one(store, rid)
         worst = max(worst, c.max_diff)
         if c.ok:
-            print(f"[{i}/{len(ids)}] reproduced {rid}  largest difference {c.max_diff:.3g}", flush=True)
+            print(f"[{i}/{len(ids)}] reproduced {rid}  largest difference {c.max_diff:.3g}"
+                  + "".join(f" ({n})" for n in c.notes), flush=True)
         else:
             bad += 1
             print(f"[{i}/{len(ids)}] DIFFERS    {rid}  " + "; ".join(c.problems), flush=True)

@@ -15,7 +15,12 @@ from stopwise.data.errors import DataError
 from stopwise.data.sources import SOURCES
 
 GENERATOR_TASKS = {"synthetic": "regression", "sparse": "regression", "integral": "regression",
-                   "spectral": "regression", "separable": "binary"}
+                   "spectral": "regression", "separable": "binary", "phillips": "regression",
+                   "shaw": "regression", "baart": "regression", "heat": "regression", "gravity": "regression"}
+# The note of a classical test problem: its published source and discretization
+GENERATOR_NOTES = {"phillips": "Phillips 1962, Galerkin", "shaw": "Shaw 1972, midpoint rule",
+                   "baart": "Baart 1982, Galerkin", "heat": "Carasso 1982 / Hansen 2007, collocation",
+                   "gravity": "Hansen 2007, midpoint rule"}
 
 
 @dataclass
@@ -86,7 +91,7 @@ def describe_config(name: str, cfg: dict[str, Any]) -> Entry:
         return Entry(name, src_name, "?", "?", "?", use, str(e))
     if src_name in GENERATOR_TASKS:
         return Entry(name, src_name, GENERATOR_TASKS[src_name], p.get("n", "?"), p.get("d", "?"), use,
-                     p.get("generator") or p.get("kernel") or "")
+                     p.get("generator") or p.get("kernel") or GENERATOR_NOTES.get(src_name, ""))
     if src_name == "file":
         if not p.get("path"):
             return Entry(name, "file", p.get("task", "auto"), "-", "-", use + " dataset.params.path=FILE dataset.params.target=COL",

@@ -62,6 +62,8 @@ class ClassificationMetrics:
                 self.info.update(svm_margin=self.ref.margin, svm_norm=float(np.linalg.norm(self.ref.w)),
                                  svm_min_functional_margin=self.ref.min_functional_margin,
                                  svm_w=self.ref.w.tolist())
+                if "kkt" in self.ref.info:
+                    self.info["svm_kkt"] = self.ref.info["kkt"]
                 self._v = np.empty(problem.d)
 
     def _split(self, split: str, w: np.ndarray) -> tuple[float, float, np.ndarray, np.ndarray]:
