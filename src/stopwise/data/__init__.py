@@ -361,14 +361,32 @@ def _load_raw(src: SourceDef, params: Any) -> RawData:
     return raw
 
 
+_KEYS: "OrderedDict[str, str]" = OrderedDict()  # problem keys of data specs without a fingerprint
+
+
 def problem_key(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> str:
-    """Content address of the Problem a data spec produces (see :mod:`stopwise.data.cache`)."""
+    """Content address of the Problem a data spec produces (see :mod:`stopwise.data.cache`).
+
+    Keys of sources without a fingerprint (data scikit-learn ships, generators: a function of
+    their params) are remembered in this process, since every run of a chunk asks again; a
+    file's or an OpenML dataset's key is computed afresh, as its bytes may have changed."""
+    try:
+        memo = json.dumps([dataset, split, int(seed)], sort_keys=True)
+    except (TypeError, ValueError):
+        memo = None
+    if memo is not None and memo in _KEYS:
+        return _KEYS[memo]
     dataset = normalize_dataset(dataset)
     src = get_source(dataset["source"])
     fp = None
     if src.fingerprint is not None:
         fp = src.fingerprint(make_params(src.params, dataset["params"], "dataset.params"))
-    return _cache.spec_key(dataset, dict(split), int(seed), fp)
+    key = _cache.spec_key(dataset, dict(split), int(seed), fp)
+    if memo is not None and src.fingerprint is None:
+        _KEYS[memo] = key
+        if len(_KEYS) > 4096:
+            _KEYS.popitem(last=False)
+    return key
 
 
 # A problem that builds faster than this is not written to the on-disk cache: reading

@@ -105,8 +105,16 @@ WRITE_OPTIONS = {"compression": "zstd", "write_page_checksum": True}
 
 
 def encode(table: pa.Table, fh) -> None:
-    """Write ``table`` (with its schema metadata) as Parquet the one way stopwise does."""
-    pq.write_table(table, fh, **WRITE_OPTIONS)
+    """Write ``table`` (with its schema metadata) as Parquet the one way stopwise does. In a
+    trace, dictionary encoding and min/max statistics are kept for the run-level columns
+    (one value on every row: the ones a reader filters files by) and left out for the
+    per-iterate columns, where they cost a third of the encoding and save nothing."""
+    names = table.column_names
+    if "iteration" in names:
+        run_level = names[: names.index("iteration")]
+        pq.write_table(table, fh, use_dictionary=run_level, write_statistics=run_level, **WRITE_OPTIONS)
+    else:
+        pq.write_table(table, fh, **WRITE_OPTIONS)
 
 
 def read_table(path, columns=None) -> pa.Table:

@@ -13,6 +13,12 @@ base columns (unless ``residual=False``). Two extension points add columns after
     functions ``problem -> {column: f(w) -> float}``: extras that depend on the problem
     and the iterate only (sparsity and support against the truth, margins). Every run of
     a problem gets them; a function may return ``{}`` for problems it does not apply to.
+    A function marked ``f.batch = True`` takes a block of iterates instead (one flattened
+    iterate per row) and returns one value per row; the recorder keeps the recorded
+    iterates of such sets in a bounded block and evaluates them together (when the block
+    is full, and before any view or result). Only functions whose value for a row does not
+    depend on the other rows of the block (elementwise operations and reductions along the
+    row) may be marked: then the values are the per-iterate ones, bit for bit.
 ``state_metrics`` (argument of :class:`Recorder`)
     ``{column: f(state) -> float}`` supplied by the runner from the solver's own
     ``SolverDef.metrics(train, params)``: extras that depend on the solver's params or on
@@ -48,6 +54,7 @@ from stopwise.stopping.residual import COLUMNS as RESIDUAL_COLUMNS, NCPDistance
 
 
 MetricSet = Callable[[Problem], dict[str, Callable[[np.ndarray], float]]]
+BLOCK_BYTES = 1 << 20  # iterates kept for the batch extras at most (256 rows at most)
 
 
 class UnknownMetricSet(SpecError):
@@ -95,19 +102,23 @@ class Recorder:
                  task_columns: tuple[str, ...]):
         self.problem = problem
         self.info = {}
-        self._extras: dict[str, Callable[[np.ndarray], float]] = {}
+        extras: dict[str, Callable[[np.ndarray], float]] = {}
         for make in METRIC_SETS.values():
-            self._extras.update(make(problem) or {})
+            extras.update(make(problem) or {})
+        self._extras = {c: f for c, f in extras.items() if not getattr(f, "batch", False)}
+        self._batch = {c: f for c, f in extras.items() if getattr(f, "batch", False)}
         self._state_extras = dict(state_metrics or {})
-        clash = sorted(set(self._state_extras) & (set(BASE_COLUMNS) | set(task_columns) | set(self._extras)))
+        clash = sorted(set(self._state_extras) & (set(BASE_COLUMNS) | set(task_columns) | set(extras)))
         if clash:
             raise ValueError(f"solver metric column {clash[0]!r} clashes with a recorder column")
-        self.columns = BASE_COLUMNS + task_columns + tuple(self._extras) + tuple(self._state_extras)
+        self.columns = BASE_COLUMNS + task_columns + tuple(extras) + tuple(self._state_extras)
         self._cap = max(int(capacity), 1)
         self._data = {c: np.empty(self._cap, dtype=np.int64 if c == "iteration" else np.float64)
                       for c in self.columns}
         self.size = 0
         self._dbuf = np.empty(problem.d)
+        self._block: np.ndarray | None = None  # recorded iterates awaiting the batch extras
+        self._pending = 0                      # first row whose batch extras are not computed
 
     def record(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
                state: Any = None) -> float:
@@ -141,7 +152,26 @@ class Recorder:
             col[name][i] = fn(w)
         for name, fn in self._state_extras.items():
             col[name][i] = fn(state) if state is not None else math.nan
+        if self._batch:
+            block = self._block
+            if block is None:
+                rows = max(1, min(256, BLOCK_BYTES // (8 * max(w.size, 1))))
+                block = self._block = np.empty((rows, w.size))
+            block[i - self._pending] = w.ravel()
+            self.size += 1
+            if self.size - self._pending == block.shape[0]:
+                self._flush()
+            return
         self.size += 1
+
+    def _flush(self) -> None:
+        """Evaluate the batch extras of the rows recorded since the last flush."""
+        lo, hi = self._pending, self.size
+        if hi > lo and self._block is not None:
+            W = self._block[: hi - lo]
+            for name, fn in self._batch.items():
+                self._data[name][lo:hi] = fn(W)
+        self._pending = self.size
 
     def _grow(self) -> None:
         self._cap *= 2
@@ -152,6 +182,7 @@ class Recorder:
 
     def view(self) -> dict[str, np.ndarray]:
         """The rows recorded so far as read-only views (no copy; valid until the next record)."""
+        self._flush()
         out = {}
         for c, a in self._data.items():
             v = a[: self.size]
@@ -160,6 +191,7 @@ class Recorder:
         return out
 
     def result(self) -> dict[str, np.ndarray]:
+        self._flush()
         return {c: a[: self.size].copy() for c, a in self._data.items()}
 
 

@@ -36,44 +36,53 @@ def support(w: np.ndarray, tol: float = SUPPORT_TOL) -> np.ndarray:
     return a > tol * a.max(initial=0.0)
 
 
-def sparsity_metrics(problem: Problem) -> dict[str, Callable[[np.ndarray], float]]:
-    # the three columns of one recorded row share one support computation: the recorder
-    # calls them in this dict's order on the same iterate, so nnz computes it
-    last: dict = {}
+def supports(W: np.ndarray, tol: float = SUPPORT_TOL) -> np.ndarray:
+    """:func:`support` of every row of ``W`` (one flattened iterate per row), as a boolean
+    matrix; row by row the same operations, so the same masks.
 
-    def nnz(w: np.ndarray) -> float:
-        s = support(w)
-        m = int(np.count_nonzero(s))
-        last["w"], last["s"], last["m"] = w, s, m
-        return float(m)
+    >>> supports(np.array([[0.0, 1e-9, -0.5, 2.0], [3.0, 0.0, 0.0, 0.0]])).tolist()
+    [[False, False, True, True], [True, False, False, False]]
+    """
+    A = np.abs(W)
+    return A > tol * np.maximum.reduce(A, axis=1, initial=0.0)[:, None]
 
-    def row_support(w: np.ndarray) -> tuple[np.ndarray, int]:
-        if last.get("w") is w and not w.flags.writeable:  # the same read-only iterate
-            return last["s"], last["m"]
-        s = support(w)
-        return s, int(np.count_nonzero(s))
 
-    out: dict[str, Callable[[np.ndarray], float]] = {"nnz": nnz}
-    if problem.w_true is None:
-        return out
-    truth = support(problem.w_true)
-    k = int(truth.sum())
-    if k == 0:
-        return out
+def sparsity_metrics(problem: Problem) -> dict[str, Callable[[np.ndarray], np.ndarray]]:
+    """The columns as batch functions (``f.batch``: a block of recorded iterates, one per
+    row; see :mod:`stopwise.running.record`): only elementwise operations and reductions
+    along a row, so each value is the one of that iterate alone."""
+    last: dict = {}  # the masks of the block being evaluated (the recorder calls nnz first)
 
-    def precision(w: np.ndarray) -> float:
-        s, m = row_support(w)
-        return float(np.count_nonzero(s & truth)) / m if m else math.nan
+    def masks(W: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        if last.get("W") is not W:
+            S = supports(W)
+            last["W"], last["S"], last["m"] = W, S, np.count_nonzero(S, axis=1)
+        return last["S"], last["m"]
 
-    def recall(w: np.ndarray) -> float:
-        s, _ = row_support(w)
-        return float(np.count_nonzero(s & truth)) / k
+    def nnz(W: np.ndarray) -> np.ndarray:
+        return masks(W)[1].astype(np.float64)
 
-    out["support_precision"] = precision
-    out["support_recall"] = recall
+    out: dict[str, Callable[[np.ndarray], np.ndarray]] = {"nnz": nnz}
+    truth = support(problem.w_true) if problem.w_true is not None else None
+    k = int(truth.sum()) if truth is not None else 0
+    if k:
+        def precision(W: np.ndarray) -> np.ndarray:
+            S, m = masks(W)
+            hits = np.count_nonzero(S & truth, axis=1).astype(np.float64)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                return np.where(m > 0, hits / m, np.nan)
+
+        def recall(W: np.ndarray) -> np.ndarray:
+            S, _ = masks(W)
+            return np.count_nonzero(S & truth, axis=1) / k
+
+        out["support_precision"] = precision
+        out["support_recall"] = recall
+    for f in out.values():
+        f.batch = True
     return out
 
 
 register_metric_set("sparsity", sparsity_metrics)
 
-__all__ = ["SUPPORT_TOL", "sparsity_metrics", "support"]
+__all__ = ["SUPPORT_TOL", "sparsity_metrics", "support", "supports"]
