@@ -44,8 +44,14 @@ def check_data(specs: list[RunSpec]) -> None:
     """Build one problem per distinct data source and split rule (the seed aside), so data
     errors (unknown feature, bad row indices, a missing file, an OpenML id that is not
     cached) are reported before anything is written. The other seeds' problems are built
-    by the runs themselves (costly ones go through the on-disk problem cache)."""
-    from stopwise.data import prepare_problems
+    by the runs themselves (costly ones go through the on-disk problem cache).
+
+    A solver that declares ``SolverDef.check`` (what it needs of the training rows, such
+    as a positive definite Hessian) is checked on that problem too, once per solver, params
+    and dataset: a pair that cannot run is one line naming the solver and the dataset."""
+    from stopwise.data import cached_problem, prepare_problems
+    from stopwise.problem.losses import resolve_loss
+    from stopwise.solvers import get_solver
 
     firsts: dict[str, RunSpec] = {}
     for s in specs:
@@ -54,6 +60,22 @@ def check_data(specs: list[RunSpec]) -> None:
         prepare_problems(list(firsts.values()))
     except MemoryError as e:  # e.g. dataset.params.n=1e15: bad input, not a crash
         raise SpecError(f"a dataset of this sweep does not fit in memory: {' '.join(str(e).split())}") from None
+    checked: set[str] = set()
+    for s in specs:
+        sdef = get_solver(s.solver)
+        if sdef.check is None:
+            continue
+        data = canonical_json([s.dataset, s.split])
+        key = canonical_json([data, s.solver, s.identity()["solver"]["params"]])
+        if key in checked:
+            continue
+        checked.add(key)
+        first = firsts[data]
+        problem = cached_problem(first.dataset, first.split, first.seed)
+        try:
+            sdef.check(problem.training_set(resolve_loss(problem.task, problem.loss, sdef.loss)), s.params)
+        except SpecError as e:
+            raise SpecError(f"{e} (dataset {s.dataset.get('name')!r}, seed {first.seed})") from None
 
 
 # ---------------------------------------------------------------- campaign files
