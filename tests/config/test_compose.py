@@ -74,8 +74,9 @@ def test_every_campaign_composes_as_hydra_composes_each_job(campaign):
         for sub in subs or [{}]:
             lines = [f"{k}={v}" for k, v in {**common, **sub}.items()]
             jobs = sweep_jobs(composer, lines + [f"+campaign={reg}"])
-            # the registered copy of the file composes as the file itself does (Hydra's file source)
-            for job in random.Random(1).sample(jobs, min(3, len(jobs))):
+            # the registered copy of the file composes as the file itself does (Hydra's file source;
+            # a file with sub-sweeps is not a plain Hydra config: only its registered copy composes)
+            for job in random.Random(1).sample(jobs, 0 if subs else min(3, len(jobs))):
                 as_file = [f"+campaign={campaign}" if x == f"+campaign={reg}" else x for x in job]
                 assert per_job(job) == per_job(as_file)
             assert compare(jobs, limit=12) == min(12, len(jobs))

@@ -19,6 +19,11 @@ Methods (penalty conventions are those of the named scikit-learn estimators):
                  (:class:`sklearn.linear_model.LogisticRegression`, multinomial for K > 2).
 ``linear_svm``   linear SVM (squared hinge) over a grid of ``C``
                  (:class:`sklearn.svm.LinearSVC`, one-vs-rest for K > 2).
+``kernel_ridge`` ``min_c ||y - K c||^2 + alpha c^T K c`` with ``K = k(X_train, X_train)``
+                 (:class:`sklearn.kernel_ridge.KernelRidge`'s convention, kernels of
+                 :mod:`sklearn.metrics.pairwise`), every alpha from one eigendecomposition
+                 ``K = Q diag(s) Q^T``: ``c(alpha) = Q diag(1 / (s + alpha)) Q^T y``. Computed
+                 only when asked for by name (the explicit peer of ``kernel_gd``), not by default.
 
 Regression baselines fit the same model as the solvers, ``y ~ X w`` on the Problem's
 arrays without an intercept: the data pipeline centers the target and standardizes (or
@@ -48,7 +53,8 @@ import pyarrow as pa
 from stopwise.core.errors import SpecError
 from stopwise.problem.problem import Problem
 from stopwise.core.registry import Registry
-from stopwise.core.params import Flag, Interval, ParamError, make_params, normalize_number, param
+from stopwise.core.params import Choice, Flag, Interval, ParamError, make_params, normalize_number, param
+from stopwise.problem.models import KERNELS, kernel_matrix, training_kernel
 from stopwise.results.schema import read_table
 from stopwise.results.store import Store, StoreError
 
@@ -125,6 +131,18 @@ class ClassifierParams:
     high: float = param(1e4, POS, "largest C")
     fit_intercept: bool = param(True, Flag(), "fit an unpenalized intercept")
     max_iter: int = param(2000, COUNT, "solver iterations per fit")
+
+
+@dataclass(frozen=True)
+class KernelRidgeParams:
+    kernel: str = param("rbf", Choice(KERNELS), "kernel of sklearn.metrics.pairwise: linear, rbf, polynomial, laplacian")
+    gamma: float | None = param(None, POS, "rbf / polynomial / laplacian: gamma; null = 1 / n_features")
+    degree: int = param(3, COUNT, "polynomial: degree")
+    coef0: float = param(1.0, Interval(None, None), "polynomial: coef0")
+    penalties: list | None = param(None, PenaltyList(0.0), "explicit alphas (none: geometric grid below)")
+    n_penalties: int = param(100, COUNT, "grid size")
+    low: float = param(1e-8, POS, "smallest alpha as a fraction of lambda_max(K)")
+    high: float = param(1e2, POS, "largest alpha as a fraction of lambda_max(K)")
 
 
 @dataclass
@@ -204,6 +222,55 @@ def fit_ridge(problem: Problem, p: RidgeParams) -> PathResult:
     sec = time.perf_counter() - t0
     return PathResult(alphas, _mse_rows(problem.X_val, problem.y_val, W),
                       _mse_rows(problem.X_test, problem.y_test, W), 1, sec, coefs=W)
+
+
+def kernel_ridge_path(K: np.ndarray, y: np.ndarray, alphas: np.ndarray,
+                      eig: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
+    """Kernel ridge coefficients for every alpha from one eigendecomposition ``K = Q diag(s) Q^T``
+    (``eig``, else ``numpy.linalg.eigh(K)``; rows of the returned (A, n) array):
+    ``c(alpha) = Q diag(1 / (s + alpha)) Q^T y``. Eigenvalues below ``s_max n eps`` count as 0
+    (their rounding sign dropped); at ``alpha = 0`` those directions are left out, so
+    ``c(0) = K^+ y``.
+
+    >>> kernel_ridge_path(np.array([[2.0, 0.0], [0.0, 0.0]]), np.array([1.0, 1.0]), [0.0, 1.0]).tolist()
+    [[0.5, 0.0], [0.3333333333333333, 1.0]]
+    """
+    s, Q = eig if eig is not None else np.linalg.eigh(K)
+    tol = (s[-1] if s.size else 0.0) * max(K.shape[0], 1) * np.finfo(float).eps
+    s = np.where(s > tol, s, 0.0)
+    a = np.asarray(alphas, dtype=np.float64)[:, None]
+    with np.errstate(divide="ignore"):
+        F = np.where((a == 0.0) & (s[None, :] == 0.0), 0.0, 1.0 / (s[None, :] + a))
+    return (F * (Q.T @ y)[None, :]) @ Q.T
+
+
+def fit_kernel_ridge(problem: Problem, p: KernelRidgeParams) -> PathResult:
+    def kern(A: np.ndarray) -> np.ndarray:
+        return kernel_matrix(A, problem.X_train, p.kernel, p.gamma, p.degree, p.coef0)
+
+    t0 = time.perf_counter()
+    K = training_kernel(problem.X_train, p.kernel, p.gamma, p.degree, p.coef0)
+    eig = np.linalg.eigh(K)
+    if p.penalties is not None:
+        alphas = np.asarray(p.penalties, dtype=np.float64)
+    else:
+        if p.low >= p.high:
+            raise BaselineError(f"kernel_ridge low={p.low:g} must be below high={p.high:g}")
+        top = float(eig[0][-1]) if K.size else 1.0
+        top = top if top > 0 else 1.0
+        alphas = _geometric(p.low * top, p.high * top, p.n_penalties)
+    C = kernel_ridge_path(K, problem.y_train, alphas, eig)
+    sec = time.perf_counter() - t0
+
+    def mse(split: str) -> np.ndarray:
+        X, y = getattr(problem, "X_" + split), getattr(problem, "y_" + split)
+        if X.shape[0] == 0:
+            return np.full(alphas.size, math.nan)
+        R = kern(X) @ C.T - y[:, None]
+        return np.einsum("ij,ij->j", R, R) / X.shape[0]
+
+    return PathResult(alphas, mse("val"), mse("test"), 1, sec, coefs=C,
+                      notes={"kernel": p.kernel, "gamma": p.gamma if p.gamma is not None else 1.0 / max(problem.d, 1)})
 
 
 def lasso_alpha_max(X: np.ndarray, y: np.ndarray, l1_ratio: float = 1.0) -> float:
@@ -303,6 +370,7 @@ class BaselineDef:
     fit: Callable[[Problem, Any], PathResult]
     tasks: tuple[str, ...]
     summary: str
+    default: bool = True  # computed when no method is named (else only when asked for by name)
 
 
 BASELINES: Registry[BaselineDef] = Registry("baseline", BaselineError)
@@ -322,6 +390,9 @@ register_baseline(BaselineDef("logistic", ClassifierParams, fit_logistic, ("bina
                               "L2 logistic regression over a C grid"))
 register_baseline(BaselineDef("linear_svm", ClassifierParams, fit_linear_svm, ("binary", "multiclass"),
                               "linear SVM (squared hinge) over a C grid"))
+register_baseline(BaselineDef("kernel_ridge", KernelRidgeParams, fit_kernel_ridge, ("regression",),
+                              "kernel ridge regression over a dense alpha grid through one eigendecomposition",
+                              default=False))
 
 
 def get_baseline(name: str) -> BaselineDef:
@@ -342,7 +413,8 @@ def baseline_params(name: str, values: Mapping[str, Any] | None = None):
 
 
 def default_methods(task: str) -> list[str]:
-    return [n for n, d in BASELINES.items() if task in d.tasks]
+    """The baselines computed for a task when none is named (``kernel_ridge`` only by name)."""
+    return [n for n, d in BASELINES.items() if task in d.tasks and d.default]
 
 
 def fit_path(problem: Problem, method: str, params: Mapping[str, Any] | Any = None) -> PathResult:
@@ -433,6 +505,7 @@ _CONVENTIONS = {
     "elastic_net": "alpha in ||y - Xw||^2 / (2n) + alpha rho ||w||_1 + alpha (1 - rho) ||w||^2 / 2 (sklearn ElasticNet)",
     "logistic": "C, inverse L2 penalty strength (sklearn LogisticRegression)",
     "linear_svm": "C, inverse L2 penalty strength (sklearn LinearSVC)",
+    "kernel_ridge": "alpha in ||y - Kc||^2 + alpha c^T K c (sklearn KernelRidge)",
 }
 
 

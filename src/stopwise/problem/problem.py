@@ -59,6 +59,22 @@ class TrainingSet:
         """``R^2 = max_i ||x_i||^2`` (computed once per training set)."""
         return float(np.einsum("ij,ij->i", self.X, self.X).max()) if self.X.size else 0.0
 
+    @cached_property
+    def hessian_range(self) -> tuple[float, float]:
+        """``(mu, lam_max)``: the smallest and largest eigenvalues of the least-squares
+        Hessian ``X^T X / n`` (``numpy.linalg.eigvalsh`` of the d x d Gram matrix, LAPACK
+        ``syevd``; its absolute error is a small multiple of ``eps lam_max``). With fewer
+        rows than features the smallest is 0 and the largest comes from ``X X^T / n``.
+        Computed once per training set (``TrainingSet(np.diag([2.0, 1.0]), y, L)`` gives
+        ``(0.5, 2.0)``)."""
+        n, d = self.X.shape
+        if n == 0 or d == 0:
+            return 0.0, 0.0
+        if n < d:
+            return 0.0, float(np.linalg.eigvalsh(self.X @ self.X.T)[-1]) / n
+        lam = np.linalg.eigvalsh(self.X.T @ self.X)
+        return max(float(lam[0]), 0.0) / n, float(lam[-1]) / n
+
     @property
     def n(self) -> int:
         return self.X.shape[0]

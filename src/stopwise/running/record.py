@@ -40,6 +40,7 @@ are as accurate as the rows. See :mod:`stopwise.running.fastpath`.
 """
 from __future__ import annotations
 
+import dataclasses
 import math
 from typing import Any, Callable, Mapping
 
@@ -79,10 +80,19 @@ def make_recorder(problem: Problem, capacity: int = 256,
     """The recorder for ``problem``'s task: a :class:`RegressionRecorder` (which reads
     ``statistics`` and ``residual``) or a :class:`ClassificationRecorder` (``problem.task``
     binary or multiclass; reads ``loss`` and ``model``). The arguments a task does not read
-    are ignored, so the runner calls this one way for every task."""
+    are ignored, so the runner calls this one way for every task. A regression run whose
+    iterates parameterize a model other than ``X w`` (``model.feature_weights`` false, such
+    as kernel regression's coefficients) has its errors computed from the model's scores."""
     if problem.task == "regression":
-        return RegressionRecorder(problem, capacity, state_metrics, statistics=statistics, residual=residual)
+        return RegressionRecorder(problem, capacity, state_metrics, statistics=statistics, residual=residual,
+                                  model=model)
     return ClassificationRecorder(problem, capacity, state_metrics, loss=loss, model=model)
+
+
+def feature_weights(model: Any) -> bool:
+    """Whether a run's iterates are weight vectors over the problem's features (no model, or
+    a model that says so): only those are compared with the truth ``w_true``."""
+    return model is None or bool(getattr(model, "feature_weights", True))
 
 
 class Recorder:
@@ -92,19 +102,25 @@ class Recorder:
     a subclass writes its task's columns in :meth:`_fill`.
 
     Columns, in order: the base columns (``results.schema.BASE_COLUMNS``), the task's
-    ``task_columns``, the metric sets' extras, then the solver's ``state_metrics``."""
+    ``task_columns``, the metric sets' extras, then the solver's ``state_metrics``.
+
+    ``weights``: whether iterates are weight vectors over the features. When they are not
+    (a network's parameters, kernel coefficients) ``dist_truth`` is NaN and the metric
+    sets see the problem without its truth."""
 
     info: dict          # run metadata the recorder contributes (the runner stores it)
     fallbacks: int = 0  # Gram-form errors recomputed from compressed rows (regression only)
 
     def __init__(self, problem: Problem, capacity: int,
                  state_metrics: Mapping[str, Callable[[Any], float]] | None,
-                 task_columns: tuple[str, ...]):
+                 task_columns: tuple[str, ...], weights: bool = True):
         self.problem = problem
         self.info = {}
+        self._truth = problem.w_true if weights else None
+        seen = problem if weights or problem.w_true is None else dataclasses.replace(problem, w_true=None)
         extras: dict[str, Callable[[np.ndarray], float]] = {}
         for make in METRIC_SETS.values():
-            extras.update(make(problem) or {})
+            extras.update(make(seen) or {})
         self._extras = {c: f for c, f in extras.items() if not getattr(f, "batch", False)}
         self._batch = {c: f for c, f in extras.items() if getattr(f, "batch", False)}
         self._state_extras = dict(state_metrics or {})
@@ -140,11 +156,11 @@ class Recorder:
 
     def _finish_row(self, i: int, w: np.ndarray, state: Any) -> None:
         """Columns every task shares: ||w||, distance to the truth, metric sets; then count the row."""
-        p, col = self.problem, self._data
+        col, truth = self._data, self._truth
         col["w_norm"][i] = math.sqrt(float(w @ w))
-        if p.w_true is not None and p.w_true.shape == w.shape:
+        if truth is not None and truth.shape == w.shape:
             buf = self._dbuf if self._dbuf.shape == w.shape else np.empty_like(w)
-            np.subtract(w, p.w_true, out=buf)
+            np.subtract(w, truth, out=buf)
             col["dist_truth"][i] = math.sqrt(float(buf @ buf))
         else:
             col["dist_truth"][i] = math.nan
@@ -206,7 +222,7 @@ class ClassificationRecorder(Recorder):
         from stopwise.running.classify import ClassificationMetrics
 
         metrics = ClassificationMetrics(problem, loss or problem.objective, model)
-        super().__init__(problem, capacity, state_metrics, metrics.columns)
+        super().__init__(problem, capacity, state_metrics, metrics.columns, weights=feature_weights(model))
         self._metrics = metrics
         self.info = metrics.info
 
@@ -221,18 +237,29 @@ class RegressionRecorder(Recorder):
 
     ``statistics``: the split statistics to use, None for direct evaluation only, or an
     evaluation path name (``auto``, ``gram``, ``direct``, ``fused``); see
-    :mod:`stopwise.running.fastpath`."""
+    :mod:`stopwise.running.fastpath`.
+
+    ``model``: a model whose iterates are not weights over the features
+    (``feature_weights`` false; kernel regression's coefficients) scores every split through
+    its ``scorer`` (predictions ``f(X_s)``, errors ``||f(X_s) - y_s||^2``); the statistics
+    are then not used."""
 
     def __init__(self, problem: Problem, capacity: int = 256,
                  state_metrics: Mapping[str, Callable[[Any], float]] | None = None,
                  statistics: "fastpath.SplitStatistics | None | str" = "auto",
-                 residual: bool = True):
+                 residual: bool = True, model: Any = None):
         self._dot = bool(residual)
         self._ncp = NCPDistance(problem.n_train) if self._dot and problem.signal_rows else None
         res_cols = RESIDUAL_COLUMNS[: 2 if self._ncp is not None else 1] if self._dot else ()
-        super().__init__(problem, capacity, state_metrics, res_cols)
+        weights = feature_weights(model)
+        super().__init__(problem, capacity, state_metrics, res_cols, weights=weights)
         self._res_rows = False  # the training residual vector is evaluated at every row
         self._buf = {k: np.empty(getattr(problem, "X_" + k).shape[0]) for k in ("train", "val", "test")}
+        self._score = None
+        if not weights:
+            statistics = None
+            self._score = {k: model.scorer(getattr(problem, "X_" + k)) for k in ("train", "val", "test")
+                           if getattr(problem, "X_" + k).shape[0] > 0}
         self._init_statistics(statistics)
         if self._dot:
             self._init_residual()
@@ -282,8 +309,11 @@ class RegressionRecorder(Recorder):
         if X.shape[0] == 0:
             return math.nan
         buf = self._buf[split]
-        np.dot(X, w, out=buf)
-        buf -= getattr(self.problem, "y_" + split)
+        if self._score is not None:
+            np.subtract(self._score[split](w), getattr(self.problem, "y_" + split), out=buf)
+        else:
+            np.dot(X, w, out=buf)
+            buf -= getattr(self.problem, "y_" + split)
         return float(buf @ buf)
 
     def _compressed_error(self, split: str, w: np.ndarray) -> float:
@@ -345,7 +375,7 @@ class RegressionRecorder(Recorder):
         else:
             col["residual_dot_prev"][i] = math.nan if first else self._gram_dot(w)
             self._lprev, self._sprev = self._ltr, self._str
-        self._wprev[:] = w
+            self._wprev[:] = w  # read by the next row's _gram_dot only
 
     def _gram_dot(self, w: np.ndarray) -> float:
         """``<r_prev, r_t>`` from the training statistics: ``w_prev^T (G w - 2 c) + c^T w_prev

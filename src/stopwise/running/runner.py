@@ -132,6 +132,8 @@ def _prepare(spec: RunSpec, problem: Problem, path: str, record_path: str | None
         stats = fastpath.split_statistics(problem, record_path)
     t_prep = clock() - t_prep
     model = sdef.model(params, train) if sdef.model is not None else None
+    if not getattr(model, "feature_weights", True):
+        stats = None  # the recorder scores such a model's predictions; the X w statistics go unused
     rec = make_recorder(problem, capacity=_record_rows(spec, problem.n_train),
                         state_metrics=sdef.metrics(train, params) if sdef.metrics is not None else None,
                         loss=train.loss, model=model, statistics=stats,

@@ -54,6 +54,13 @@ class SolverDef:
     ``loss`` is the training loss the solver is built for (None: it follows the dataset's
     loss option or the task's default). ``model(params, train)`` returns the prediction
     model its iterates parameterize (None: linear scores ``X w``, see stopwise.problem.models).
+
+    ``check(train, params)``, when given, raises :class:`SpecError` (one line) for a
+    training set the solver cannot run on (a Hessian that is not positive definite for the
+    strongly convex methods, too many rows for a kernel matrix). ``stopwise run`` and
+    ``stopwise sweep`` call it on the problem of each dataset and split before anything is
+    written (``sweep.campaign.check_data``); the solver's ``init`` calls it too, so a run on
+    another seed's problem that fails it is recorded as failed with that line.
     """
 
     name: str
@@ -70,6 +77,7 @@ class SolverDef:
     # ``passes``), for solvers whose iterate depends on the horizon (tail averaging);
     # the runner calls it instead of ``init`` when present
     init_budget: Callable[[TrainingSet, Any, np.random.Generator, dict], State] | None = None
+    check: Callable[[TrainingSet, Any], None] | None = None
 
     def start(self, train: TrainingSet, params: Any, rng: np.random.Generator,
               budget: dict | None = None) -> State:

@@ -44,9 +44,17 @@ def check_data(specs: list[RunSpec]) -> None:
     """Build one problem per distinct data source and split rule (the seed aside), so data
     errors (unknown feature, bad row indices, a missing file, an OpenML id that is not
     cached) are reported before anything is written. The other seeds' problems are built
-    by the runs themselves (costly ones go through the on-disk problem cache)."""
+    by the runs themselves (costly ones go through the on-disk problem cache).
+
+    Every run's budget is checked against what its trace can record once n_train is known
+    (:func:`stopwise.config.spec.check_trace_fits`). A solver that declares
+    ``SolverDef.check`` (what it needs of the training rows, such as a positive definite
+    Hessian) is checked on that problem too, once per solver, params and dataset: a pair
+    that cannot run is one line naming the solver and the dataset."""
     from stopwise.config.spec import check_trace_fits
     from stopwise.data import cached_problem, prepare_problems
+    from stopwise.problem.losses import resolve_loss
+    from stopwise.solvers import get_solver
 
     firsts: dict[str, RunSpec] = {}
     keys = [canonical_json([s.dataset, s.split]) for s in specs]
@@ -63,6 +71,21 @@ def check_data(specs: list[RunSpec]) -> None:
         if what not in seen:
             seen.add(what)
             check_trace_fits(s.budget, s.record, n_train[key])
+    checked: set[str] = set()
+    for data, s in zip(keys, specs):
+        sdef = get_solver(s.solver)
+        if sdef.check is None:
+            continue
+        key = canonical_json([data, s.solver, s.identity()["solver"]["params"]])
+        if key in checked:
+            continue
+        checked.add(key)
+        first = firsts[data]
+        problem = cached_problem(first.dataset, first.split, first.seed)
+        try:
+            sdef.check(problem.training_set(resolve_loss(problem.task, problem.loss, sdef.loss)), s.params)
+        except SpecError as e:
+            raise SpecError(f"{e} (dataset {s.dataset.get('name')!r}, seed {first.seed})") from None
 
 
 # ---------------------------------------------------------------- campaign files
