@@ -15,7 +15,6 @@ residual ``||X w - y||`` of the training rows is the base column ``residual_norm
 """
 from __future__ import annotations
 
-import math
 from typing import Callable
 
 import numpy as np

@@ -1,12 +1,7 @@
 """The task that Hydra's launcher runs for each job of a sweep (in this or another process)."""
 from __future__ import annotations
 
-import math
-import os
 import sys
-from contextlib import contextmanager
-from pathlib import Path
-from typing import Iterator
 
 from stopwise.running.runner import run_spec
 from stopwise.config.spec import SpecError, spec_from_config
