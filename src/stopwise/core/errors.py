@@ -20,6 +20,7 @@ The hierarchy (module of each class in brackets)::
     |   |   +-- TabularError                                               [data.tabular]
     |   |   +-- OpenMLCacheError                                           [data.openml_source]
     |   +-- TaskMismatch                      a solver that does not handle the task [config.spec]
+    |   +-- TraceTooLarge                     a budget whose trace cannot fit in memory [config.spec]
     |   +-- UnknownSolver                                                  [solvers.base]
     |   +-- UnknownProx                                                    [solvers.prox]
     |   +-- RuleError                         stopping rule name or params [stopping.rules]
