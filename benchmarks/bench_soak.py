@@ -3,8 +3,10 @@ it completes; nothing may be lost, duplicated or seen half written.
 
 The same campaign is first swept once without interruption (the peer). Then the same
 `stopwise sweep ... --jobs 2` command is started in a fresh process; every few seconds
-(uniform between --every-min and --every-max) either the parent (the process the user
-started) or one of its joblib workers, chosen at random, is killed with SIGKILL, and the
+(uniform between --every-min and --every-max, counted from the moment the start has its
+workers, or from its start for one kill in five, which then hits the campaign's expansion)
+either the parent (the process the user started) or one of its joblib workers, chosen at
+random, is killed with SIGKILL, and the
 command is started again, until one start exits 0. A killed parent's workers are left
 alone: they may go on writing while the restarted command runs, as they would on a real
 machine; at the end, any still alive (found by the session each start was given) are killed. While this goes on, a watcher reads every trace that appears under its final name
@@ -170,6 +172,11 @@ def main() -> None:
             if proc.returncode != 0:
                 raise SystemExit(f"the last start failed (exit {proc.returncode}):\n{err[-3000:]}")
             break
+        # the clock of a kill starts once the start has workers (its expansion of the campaign
+        # can outlast the kill interval on a busy machine); one kill in five hits the expansion
+        if rng.random() >= 0.2:
+            while proc.poll() is None and not workers(proc.pid):
+                time.sleep(0.05)
         try:
             proc.wait(timeout=rng.uniform(a.every_min, a.every_max))
         except subprocess.TimeoutExpired:
