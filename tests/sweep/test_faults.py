@@ -164,3 +164,45 @@ def test_a_writer_killed_mid_write_leaves_only_a_hidden_temporary_file(tmp_path,
     assert f"moved runs/{tmp.name} -> quarantine/runs/{tmp.name.lstrip('.')}" in out
     assert main(["verify", str(root)]) == 0
     assert "all good" in capsys.readouterr().out
+
+
+@pytest.mark.slow
+def test_workers_of_a_killed_sweep_stop_at_their_next_run_and_exit(tmp_path):
+    """SIGKILL to the sweep alone (not its workers): each joblib worker finishes the run it
+    holds, sees that the sweep which launched it is gone, leaves the rest of its chunk to the
+    next sweep and exits; the same command then completes the campaign, every run once."""
+    root = tmp_path / "res"
+    # 24 runs in 4 chunks of 6 (two per worker), each run long enough to be caught mid-chunk
+    sweep = ["sweep", "dataset=illposed", "solver=gd,nesterov", "seed=range(0,12)", "budget.iterations=1500",
+             "--jobs", "2", f"results_root={root}"]
+    log = (tmp_path / "stderr.txt").open("w")
+    proc = subprocess.Popen([sys.executable, "-m", "stopwise.cli", *sweep], cwd=tmp_path,
+                            stdout=subprocess.DEVNULL, stderr=log, start_new_session=True)
+    try:
+        deadline = time.monotonic() + 240
+        while len(visible_traces(root)) < 2 and proc.poll() is None and time.monotonic() < deadline:
+            time.sleep(0.01)
+        assert proc.poll() is None, "the sweep ended before the test could kill it"
+        workers = [int(c) for t in Path(f"/proc/{proc.pid}/task").glob("*")
+                   for c in (t / "children").read_text().split()]
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait()
+        at_kill = len(visible_traces(root))
+        deadline = time.monotonic() + 60
+        alive = lambda pid: Path(f"/proc/{pid}").exists() and "zombie" not in Path(f"/proc/{pid}/status").read_text()  # noqa: E731
+        workers = [w for w in workers if "resource_tracker" not in Path(f"/proc/{w}/cmdline").read_text()
+                   ] if workers else []
+        while any(alive(w) for w in workers) and time.monotonic() < deadline:
+            time.sleep(0.05)
+        assert not any(alive(w) for w in workers), "a worker of the killed sweep is still running"
+    finally:
+        os.killpg(proc.pid, signal.SIGKILL) if proc.poll() is None else None
+        log.close()
+    after = len(visible_traces(root))
+    assert after - at_kill <= 2, (at_kill, after)  # at most the run each worker held
+    assert after < 24
+    assert "runs left for the next sweep" in (tmp_path / "stderr.txt").read_text()
+    res = cli(*sweep, cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    assert len(visible_traces(root)) == 24 and len(stopwise.load_runs(root)) == 24
+    assert verify_root(root, cache=False).ok

@@ -387,7 +387,10 @@ class RunSpec:
         return self.digest[:16]
 
     def to_dict(self) -> dict:
-        return dataclasses.asdict(self)
+        """The spec as plain data (what a trace's metadata stores as ``config``): the params
+        as a dict, the other sections shared with the spec, not copied (read, do not modify)."""
+        return {f.name: (dataclasses.asdict(self.params) if f.name == "params" else getattr(self, f.name))
+                for f in dataclasses.fields(self)}
 
     def label(self) -> str:
         """Short human label: the solver, its step scale and every param that differs from

@@ -44,9 +44,15 @@ class TrainingSet:
 
     def gradient(self, w: np.ndarray) -> np.ndarray:
         """Gradient of the training objective at ``w`` as a new array (one data pass)."""
-        from stopwise.problem.losses import gradient
+        return self._gradient(w)
 
-        return gradient(self, w)
+    @cached_property
+    def _gradient(self) -> Callable[[np.ndarray], np.ndarray]:
+        """The function :func:`stopwise.problem.losses.gradient` calls for this set, chosen
+        once (a step then pays no dispatch)."""
+        from stopwise.problem.losses import gradient_function
+
+        return gradient_function(self)
 
     def value(self, w: np.ndarray) -> float:
         """Training objective at ``w``."""

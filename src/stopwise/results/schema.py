@@ -149,7 +149,14 @@ def data_digest(table: pa.Table) -> str:
             continue
         if pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_boolean(t):
             vals = arr.fill_null(False if pa.types.is_boolean(t) else 0) if arr.null_count else arr
-            h.update(vals.to_numpy(zero_copy_only=False).tobytes())
+            h.update(np.ascontiguousarray(vals.to_numpy(zero_copy_only=False)).data)
+        elif pa.types.is_string(t) and not arr.null_count:
+            # the strings' bytes and their boundaries (offsets from 0), little-endian
+            _, offsets, data = arr.buffers()
+            offs = np.frombuffer(offsets, dtype=np.int32, count=len(arr) + 1, offset=arr.offset * 4)
+            lo, hi = int(offs[0]), int(offs[-1])
+            h.update((offs - lo).astype("<i4").tobytes())
+            h.update(memoryview(data)[lo:hi] if data is not None else b"")
         else:
             h.update(json.dumps(arr.to_pylist(), default=str).encode())
     return h.hexdigest()

@@ -391,16 +391,16 @@ def check_manifest_shape(m: Any) -> dict[str, Any]:
 
 def _constant_column(v: Any, n: int) -> pa.Array:
     if isinstance(v, bool):
-        return pa.array([v] * n, type=pa.bool_())
+        return pa.repeat(pa.scalar(v, pa.bool_()), n)
     if isinstance(v, int):
-        return pa.array([v] * n, type=pa.int64())
+        return pa.repeat(pa.scalar(v, pa.int64()), n)
     if isinstance(v, float):
-        return pa.array([v] * n, type=pa.float64())
+        return pa.repeat(pa.scalar(v, pa.float64()), n)
     if v is None:
         return pa.nulls(n, pa.string())
     if not isinstance(v, str):
         v = json.dumps(v, sort_keys=True)
-    return pa.array([v] * n, type=pa.string())
+    return pa.repeat(pa.scalar(v, pa.string()), n)
 
 
 def _json_default(o: Any) -> Any:

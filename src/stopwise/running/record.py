@@ -49,6 +49,7 @@ import numpy as np
 from stopwise.core.errors import SpecError
 from stopwise.core.registry import Registry
 from stopwise.running import fastpath
+from stopwise.running.fastpath import GUARD
 from stopwise.problem.problem import Problem
 from stopwise.results.schema import BASE_COLUMNS  # columns every trace has, in order (docs/schema.md)
 from stopwise.stopping.residual import COLUMNS as RESIDUAL_COLUMNS, NCPDistance
@@ -137,8 +138,10 @@ class Recorder:
         self._pending = 0                      # first row whose batch extras are not computed
 
     def record(self, iteration: int, passes: float, seconds: float, w: np.ndarray,
-               state: Any = None) -> float:
-        """Write one row for iterate ``w`` (of solver ``state``); returns the training objective."""
+               state: Any = None, w_sq: float | None = None) -> float:
+        """Write one row for iterate ``w`` (of solver ``state``); returns the training objective.
+        ``w_sq``: ``float(w @ w)`` when the caller has it already (the runner's divergence
+        check computes it for every step)."""
         if self.size == self._cap:
             self._grow()
         i, col = self.size, self._data
@@ -146,7 +149,7 @@ class Recorder:
         col["passes"][i] = passes
         col["seconds"][i] = seconds
         loss = self._fill(i, w)
-        self._finish_row(i, w, state)
+        self._finish_row(i, w, state, w_sq)
         return loss
 
     def _fill(self, i: int, w: np.ndarray) -> float:
@@ -154,10 +157,10 @@ class Recorder:
         the training objective."""
         raise NotImplementedError
 
-    def _finish_row(self, i: int, w: np.ndarray, state: Any) -> None:
+    def _finish_row(self, i: int, w: np.ndarray, state: Any, w_sq: float | None = None) -> None:
         """Columns every task shares: ||w||, distance to the truth, metric sets; then count the row."""
         col, truth = self._data, self._truth
-        col["w_norm"][i] = math.sqrt(float(w @ w))
+        col["w_norm"][i] = math.sqrt(float(w @ w) if w_sq is None else w_sq)
         if truth is not None and truth.shape == w.shape:
             buf = self._dbuf if self._dbuf.shape == w.shape else np.empty_like(w)
             np.subtract(w, truth, out=buf)
@@ -288,6 +291,11 @@ class RegressionRecorder(Recorder):
             self._wa[p.d] = -1.0
         self._train_stat = used.index("train") if "train" in used else None
         self.fallbacks = 0
+        # what every row reads, looked up once: (position j, split index, y_j^T y_j) of the
+        # splits evaluated from statistics, the training split's row of G w - 2 c, the sizes
+        self._plan = tuple(zip(range(len(used)), self._stat_idx, statistics.yy)) if used else ()
+        self._uk_train = self._uk[self._train_stat] if self._train_stat is not None else None
+        self._sizes = (p.n_train, p.X_val.shape[0], p.X_test.shape[0])
 
     def _init_residual(self) -> None:
         """Buffers of the residual statistics. The training residual vector is evaluated at
@@ -327,18 +335,20 @@ class RegressionRecorder(Recorder):
         """``||X_s w - y_s||^2`` for train, val, test (NaN for an empty split), in a
         scratch array that the next call overwrites."""
         sq = self._sq
-        if self._stat_idx:
+        if self._plan:
             st = self.statistics
             np.dot(st.A, w, out=self._ua)      # G_j w and c_j^T w for every split j
             self._u -= st.C2                   # G_j w - 2 c_j
             np.dot(self._uk, w, out=self._v)   # w^T G_j w - 2 c_j^T w
-            guard = fastpath.GUARD
-            for j, (i, v, l, yy) in enumerate(zip(self._stat_idx, self._v.tolist(), self._l.tolist(), st.yy)):
-                v += yy
+            vs, ls = self._v.tolist(), self._l.tolist()
+            train = self._train_stat
+            for j, i, yy in self._plan:
+                v = vs[j] + yy
+                l = ls[j]
                 scale = v + 2.0 * l            # w^T G_j w + y_j^T y_j, the scale
-                if j == self._train_stat:
+                if j == train:
                     self._ltr, self._str = l, scale
-                if v >= guard * scale:
+                if v >= GUARD * scale:
                     sq[i] = v
                 else:
                     sq[i] = self._compressed_error(fastpath.SPLITS[i], w)
@@ -351,15 +361,16 @@ class RegressionRecorder(Recorder):
         if self._res_rows:
             self._buf["train"] = self._rb[self._rk]   # the direct training error writes this row's residual
         sq_tr, sq_va, sq_te = self.squared_errors(w).tolist()
-        n = p.n_train
-        col["train_loss"][i] = sq_tr / (2 * n)
+        n, n_val, n_test = self._sizes
+        loss = sq_tr / (2 * n)
+        col["train_loss"][i] = loss
         col["train_error"][i] = sq_tr / n
         col["residual_norm"][i] = math.sqrt(sq_tr) if sq_tr >= 0 else math.nan
-        col["val_error"][i] = sq_va / p.X_val.shape[0] if p.X_val.shape[0] else math.nan
-        col["test_error"][i] = sq_te / p.X_test.shape[0]
+        col["val_error"][i] = sq_va / n_val if n_val else math.nan
+        col["test_error"][i] = sq_te / n_test
         if self._dot:
             self._residual_row(i, w)
-        return sq_tr / (2 * n)
+        return loss
 
     def _residual_row(self, i: int, w: np.ndarray) -> None:
         col, first = self._data, i == 0
@@ -382,9 +393,8 @@ class RegressionRecorder(Recorder):
         - c^T w + y^T y``, exact up to rounding of size eps times ``2 sqrt(s_prev s_t)`` (s the
         errors' scales); below ``GUARD`` times that, from the compressed rows instead
         (``(R [w_prev; -1]) . (R [w; -1])``, as accurate as the residual vectors)."""
-        j = self._train_stat
-        dot = float(self._wprev @ self._uk[j]) + self._lprev - self._ltr + self.statistics.yy[j]
-        if abs(dot) >= fastpath.GUARD * math.sqrt(max(self._sprev * self._str, 0.0)):
+        dot = float(self._wprev @ self._uk_train) + self._lprev - self._ltr + self.statistics.yy[self._train_stat]
+        if abs(dot) >= GUARD * math.sqrt(max(self._sprev * self._str, 0.0)):
             return dot
         self.fallbacks += 1
         R = fastpath.row_factor(self.problem, "train")

@@ -187,7 +187,7 @@ def _loop(spec: RunSpec, run: _Run) -> tuple[str, str]:
             if due:
                 mark = k
         if due or done:
-            loss = rec.record(state.iteration, state.passes, elapsed, state.w, state)
+            loss = rec.record(state.iteration, state.passes, elapsed, state.w, state, sq)
             if not math.isfinite(loss) or loss > limit:
                 status = "diverged"
                 message = (f"training objective grew from {loss0:.3g} to {loss:.3g} (over {factor:g} times) "

@@ -72,7 +72,8 @@ def write_plan(store: Store, campaign_id: str, pending: list[RunSpec], k: int, t
     for i, part in enumerate(chunks):
         runs = [[s.run_id, s.identity()] for s in part]
         atomic_write_bytes(chunk_path(store, campaign_id, i),
-                           json.dumps({"chunk": i, "runs": runs}, separators=(",", ":")).encode(), durable=False)
+                           json.dumps({"chunk": i, "runs": runs, "launcher": os.getpid()},
+                                      separators=(",", ":")).encode(), durable=False)
     atomic_write_bytes(jobs_dir(store, campaign_id) / "progress.json",
                        json.dumps({"start": time.time(), "total": total, "before": done_before,
                                    "pending": len(pending), "done": 0}).encode(), durable=False)
@@ -80,6 +81,11 @@ def write_plan(store: Store, campaign_id: str, pending: list[RunSpec], k: int, t
 
 
 def read_chunk(store: Store, campaign_id: str, k: int) -> list[tuple[str, Any]]:
+    return _read_chunk(store, campaign_id, k)[0]
+
+
+def _read_chunk(store: Store, campaign_id: str, k: int) -> tuple[list[tuple[str, Any]], int | None]:
+    """(the chunk's runs, the pid of the sweep that wrote it)."""
     path = chunk_path(store, campaign_id, k)
     try:
         doc = json.loads(path.read_text())
@@ -88,7 +94,19 @@ def read_chunk(store: Store, campaign_id: str, k: int) -> list[tuple[str, Any]]:
             raise ValueError("runs is not a list of [run_id, identity] pairs")
     except (OSError, ValueError, KeyError, TypeError) as e:
         raise StoreError(f"chunk file {path} is unreadable: {type(e).__name__}: {e}") from None
-    return [(str(r[0]), r[1]) for r in runs]
+    launcher = doc.get("launcher")
+    return [(str(r[0]), r[1]) for r in runs], (launcher if isinstance(launcher, int) else None)
+
+
+def orphaned(launcher: int | None) -> bool:
+    """Whether this process is a worker whose launching sweep is gone: it was started by the
+    sweep (its parent was the launcher) and its parent has changed since (the sweep was
+    killed, the worker re-parented). A chunk run in the sweep's own process, or on another
+    machine (a SLURM task), is never orphaned by this test."""
+    return launcher is not None and _PARENT.get("start") == launcher and os.getppid() != launcher
+
+
+_PARENT: dict[str, int] = {}  # this process's parent when its first chunk began
 
 
 @contextmanager
@@ -211,9 +229,15 @@ def run_chunk(root: str, campaign_id: str, k: int, threads: int | None = None) -
 
     store = Store(root)
     counts: dict[str, int] = {}
-    runs = read_chunk(store, campaign_id, k)
+    runs, launcher = _read_chunk(store, campaign_id, k)
+    _PARENT.setdefault("start", os.getppid())
     with limited_threads(threads), batched_sync():
-        for run_id, ident in runs:
+        for j, (run_id, ident) in enumerate(runs):
+            if orphaned(launcher):  # the sweep was killed: leave the rest to the next sweep, never run it twice
+                print(f"stopped        chunk {k}: the sweep that launched it (pid {launcher}) is gone; "
+                      f"{len(runs) - j} runs left for the next sweep", file=sys.stderr, flush=True)
+                counts["left"] = len(runs) - j
+                break
             try:
                 spec = spec_from_identity(ident)
                 if spec.run_id != run_id:
@@ -238,8 +262,10 @@ def run_chunk(root: str, campaign_id: str, k: int, threads: int | None = None) -
                 print(head + outcome_line(out) + tail, flush=True)
             except Exception:  # a progress line must never fail a run
                 pass
+    if counts.get("left"):  # traces flushed above; nobody will ever collect this worker's result
+        os._exit(0)
     return counts
 
 
 __all__ = ["chunk_path", "count_one", "cut", "problem_groups", "progress_prefix", "read_chunk", "run_chunk",
-           "write_plan"]
+           "orphaned", "write_plan"]
