@@ -17,7 +17,6 @@ MODULES = sorted(m.name for m in pkgutil.walk_packages(stopwise.__path__, "stopw
 
 WITHOUT_EXAMPLES = {
     "stopwise.analysis",
-    "stopwise.analysis.rank",
     "stopwise.analysis.selection",
     "stopwise.cli",
     "stopwise.config",
