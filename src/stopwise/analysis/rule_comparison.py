@@ -23,7 +23,9 @@ Per (dataset, method, configuration, rule) the table holds the median relative e
 seeds, mean excess, median passes, and the shares that did not stop and stopped at
 iteration 0. Rules are then ranked across datasets with the statistics methods are ranked
 with (average ranks, Friedman, Iman-Davenport, Nemenyi; Demsar 2006): a dataset's score
-for a rule is the median relative error over its paths. A rule that is not applicable
+for a rule is the median relative error over its paths. Every pair of ranked rules is also
+compared with the Wilcoxon signed-rank test over those datasets, Holm-corrected, as methods
+are. A rule that is not applicable
 on some dataset (or has no finite score there) is left out of the rank test with a note
 that names the dataset and the reason: it is not counted as a tie. The rank test takes the rules that
 apply on every dataset; when fewer than two do, it takes every rule on the datasets where
@@ -38,7 +40,7 @@ from typing import Any, Iterable, Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from stopwise.analysis.rankstats import RankTest, StatsError, friedman_test, rank_table
+from stopwise.analysis.rankstats import RankTest, StatsError, friedman_test, pairwise_wilcoxon, rank_table
 
 COMPARISON_COLUMNS = ("dataset", "method", "config", "rule", "runs", "applicable", "relative_error",
                       "excess_error", "passes_spent", "not_stopped", "stopped_at_0")
@@ -56,6 +58,10 @@ class RuleComparison:
     ``test``     Friedman / Nemenyi statistics (None with fewer than 2 rules or datasets).
     ``summary``  one row per rule: median relative error, median passes, shares not
                  stopped / at 0 / not applicable over every run, average rank.
+    ``pairwise`` Wilcoxon signed-rank test of every pair of ranked rules over the ranked
+                 datasets, Holm-corrected (the function methods are compared with:
+                 :func:`stopwise.analysis.rankstats.pairwise_wilcoxon`; columns ``method_a``,
+                 ``method_b`` name the rules); empty with fewer than 2 rules or datasets.
     """
 
     rules: tuple[str, ...]
@@ -66,6 +72,7 @@ class RuleComparison:
     test: RankTest | None
     summary: pd.DataFrame
     notes: list[str] = field(default_factory=list)
+    pairwise: pd.DataFrame = field(default_factory=pd.DataFrame)
 
 
 def default_rules(campaign_rules: Iterable[Any] = ()) -> list[dict[str, Any]]:
@@ -194,8 +201,10 @@ def compare_rules(selections: pd.DataFrame, method_by: Sequence[str] = ("solver"
     ranked = scores.loc[kept, ranked_rules]
     ranks = rank_table(ranked) if len(kept) and len(ranked_rules) else pd.DataFrame()
     test = None
+    pairwise = pd.DataFrame()
     if len(ranked_rules) >= 2 and len(kept) >= 2:
         test = friedman_test(ranked, alpha)
+        pairwise = pairwise_wilcoxon(ranked, alpha)
     elif len(rules) >= 2:
         notes.append(f"no rank test: {len(ranked_rules)} rule(s) on {len(kept)} dataset(s) where they all apply "
                      "(needs 2 and 2)")
@@ -209,7 +218,8 @@ def compare_rules(selections: pd.DataFrame, method_by: Sequence[str] = ("solver"
         "average_rank": [float(ranks[r].mean()) if r in getattr(ranks, "columns", []) and len(ranks) else math.nan
                          for r in rules],
     })
-    return RuleComparison(rules, runs, table[list(COMPARISON_COLUMNS)], scores, ranks, test, summary, notes)
+    return RuleComparison(rules, runs, table[list(COMPARISON_COLUMNS)], scores, ranks, test, summary, notes,
+                          pairwise)
 
 
 def _share(g: pd.DataFrame, rule: str, col: str) -> float:

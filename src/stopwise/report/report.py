@@ -9,6 +9,7 @@ Layout of the output folder::
     ranks.csv, tests.csv, pairwise.csv
     rules.csv           stopping rules compared, per (dataset, method, configuration, rule)
     rules_per_run.csv   the same per (run, rule)
+    rules_pairwise.csv  pairwise Wilcoxon signed-rank tests of the rules, Holm-corrected
     figures/<name>.png  every figure the page shows
 
 Everything is computed before the first file is written; each file is written
@@ -29,8 +30,8 @@ from stopwise.core.version import __version__
 from stopwise.report.figures import Plot
 from stopwise.analysis.rank import Ranking
 from stopwise.results.store import atomic_write_bytes
-from stopwise.report.tables import (display_tables, heading, render_rules, rules_frame, rules_scores_frame, to_csv,
-                                    to_markdown)
+from stopwise.report.tables import (display_tables, heading, render_rules, rules_frame, rules_pairwise_frame,
+                                    rules_scores_frame, to_csv, to_markdown)
 
 FIGURE_DIR = "figures"
 
@@ -123,6 +124,10 @@ def render_html(page: ReportPage) -> str:
             parts.append("<h3>Rank tests of the rules (Friedman, Iman-Davenport, Nemenyi)</h3>")
             from stopwise.report.tables import num
             parts.append(_html_table(c.test.as_frame().assign(value=lambda f: f["value"].map(num))))
+        pw = rules_pairwise_frame(c)
+        if not pw.empty:
+            parts.append("<h3>Pairwise Wilcoxon signed-rank tests of the rules over datasets, Holm-corrected</h3>")
+            parts.append(_html_table(pw))
         if c.notes:
             parts.append('<ul class="notes">' + "".join(f"<li>{esc(n)}</li>" for n in c.notes) + "</ul>")
     parts.append("<h2>Figures</h2>")
@@ -174,6 +179,9 @@ def write_report(page: ReportPage, out_dir: str | Path) -> Path:
     if page.rules is not None:
         files.append((out / "rules.csv", to_csv(page.rules.table).encode()))
         files.append((out / "rules_per_run.csv", to_csv(page.rules.per_run).encode()))
+        pw = rules_pairwise_frame(page.rules, raw=True)
+        if not pw.empty:
+            files.append((out / "rules_pairwise.csv", to_csv(pw).encode()))
     files.append((out / "tables.md", render_markdown(page).encode()))
     files.append((out / "index.html", render_html(page).encode()))  # last: the page appears when all is there
     mode = 0o666 & ~_umask()
