@@ -24,7 +24,9 @@ commands:
                                  solver x dataset pairs that cannot run instead of leaving them out
   run [overrides]                run one configuration
   rerun ID [--root DIR]          recompute a run or a whole campaign and compare with the stored traces
-  ls [--campaign C] [--root DIR] list stored runs
+  ls [--campaign C] [--root DIR] [--summary]
+                                 list stored runs; --summary: per dataset and solver, the configuration
+                                 tuned on validation error with medians and ranges over its seeds
   campaigns [--root DIR]         list stored campaigns: name, id, creation time, runs by status
   datasets                       list every dataset a run can use (rows, columns, task, source)
   datasets fetch [ID|NAME@VERSION ...] [--task ID ...]
@@ -255,7 +257,8 @@ def cmd_ls(argv: list[str]) -> int:
     ap.add_argument("--campaign", default=None, help="campaign name or id")
     ap.add_argument("--root", default="results")
     ap.add_argument("--summary", action="store_true",
-                    help="one row per dataset and solver: the run with the best validation error")
+                    help="one row per dataset and solver: the configuration tuned on mean validation error over "
+                         "seeds, with medians and ranges over its seeds")
     a = ap.parse_args(argv)
     try:
         df = load_runs(a.root, a.campaign)
@@ -265,7 +268,9 @@ def cmd_ls(argv: list[str]) -> int:
         print(f"no runs under {a.root}")
         return 0
     show = summary_table(df) if a.summary else df.drop(columns=["message"])
-    with pd.option_context("display.max_rows", 500, "display.width", 200, "display.max_columns", 30,
+    if a.summary:
+        print(SUMMARY_NOTE)
+    with pd.option_context("display.max_rows", 500, "display.width", 250, "display.max_columns", 30,
                            "display.float_format", "{:.4g}".format):
         print(show.to_string(index=False))
     print(f"{len(df)} runs: " + ", ".join(f"{n} {s}" for s, n in df["status"].value_counts().items())
@@ -362,20 +367,51 @@ def cmd_verify(argv: list[str]) -> int:
     return 1
 
 
+SUMMARY_NOTE = ("per dataset and solver: the configuration whose best validation error, averaged over seeds, is "
+                "lowest (among those with a validation error on the most seeds); then over that configuration's "
+                "seeds the median and the range (smallest, largest) of its best validation error, of the test "
+                "error at that iterate and of the final test error. Every seed counts, not the luckiest one.")
+
+
 def summary_table(df):
-    """Per dataset and solver: runs, diverged runs, and the run whose best validation error is lowest."""
+    """Per dataset and solver: runs by status, the configuration tuned on validation error
+    (lowest mean best validation error over seeds, among the configurations with a validation
+    error on the most seeds), and over that configuration's seeds the median and range of its
+    best validation error, test error there and final test error."""
+    import numpy as np
     import pandas as pd
+
+    from stopwise.analysis.rank import config_labels
+    from stopwise.results.query import RUN_COLUMNS
+
+    params = [c for c in df.columns if c not in RUN_COLUMNS]
+    df = df.assign(config=config_labels(df, params).to_numpy() if len(df) else [])
+
+    def med(a):
+        a = a[np.isfinite(a)]
+        return float(np.median(a)) if a.size else np.nan
+
+    def rng(a):
+        a = a[np.isfinite(a)]
+        return f"{a.min():.4g}..{a.max():.4g}" if a.size >= 2 else "-"
 
     rows = []
     for (ds, sv), g in df.groupby(["dataset", "solver"], sort=True):
-        ok = g[g["best_val_error"].notna()]
-        row = {"dataset": ds, "solver": sv, "runs": len(g), "diverged": int((g["status"] == "diverged").sum())}
+        row = {"dataset": ds, "solver": sv, "runs": len(g), "diverged": int((g["status"] == "diverged").sum()),
+               "failed": int((g["status"] == "failed").sum())}
+        ok = g[np.isfinite(g["best_val_error"].to_numpy(dtype=float))]
         if len(ok):
-            b = ok.loc[ok["best_val_error"].idxmin()]
-            params = {k: b[k] for k in ("step_scale", "momentum") if k in b and pd.notna(b[k])}
-            row.update(best_params=" ".join(f"{k}={v:g}" for k, v in params.items()) or "-",
-                       seed=int(b["seed"]), best_val_error=b["best_val_error"], at_iteration=int(b["best_val_iteration"]),
-                       test_error_there=b["test_at_best_val"], final_test_error=b["final_test_error"])
+            per = (ok.groupby("config", sort=True)
+                   .agg(n=("seed", "nunique"), mean_val=("best_val_error", "mean")).reset_index()
+                   .sort_values(["n", "mean_val", "config"], ascending=[False, True, True], kind="stable"))
+            best = per["config"].iloc[0]
+            t = ok[ok["config"] == best]
+            val = t["best_val_error"].to_numpy(dtype=float)
+            test = t["test_at_best_val"].to_numpy(dtype=float)
+            final = t["final_test_error"].to_numpy(dtype=float)
+            row.update({"tuned config": best, "seeds": f"{t['seed'].nunique()}/{g['seed'].nunique()}",
+                        "val error (median)": med(val), "test at best val (median)": med(test),
+                        "test at best val (range)": rng(test), "final test error (median)": med(final)})
         rows.append(row)
     return pd.DataFrame(rows)
 
