@@ -35,10 +35,11 @@ commands:
                                  evaluate stopping rules on a campaign's stored traces
   baselines CAMPAIGN [--method NAME ...] [--root DIR] [--path]
                                  fit (or reuse) explicit-regularization baselines on the campaign's splits
-  rank CAMPAIGN [--rule R] [--target T] [--by B] [--format text|csv|markdown] [--compare R ...] ...
+  rank CAMPAIGN [CAMPAIGN ...] [--rule R] [--target T] [--by B] [--format text|csv|markdown] [--compare R ...] ...
                                  tune methods on validation error, rank them across datasets;
-                                 compare stopping rules against the oracle
-  report CAMPAIGN [--rule R] [--out DIR] ...
+                                 compare stopping rules against the oracle; several campaigns are
+                                 ranked as one holding the union of their runs
+  report CAMPAIGN [CAMPAIGN ...] [--rule R] [--out DIR] ...
                                  write an offline HTML report (tables, PNG figures) of a campaign
   verify [ROOT] [--quarantine]   check every trace and manifest; move bad files to ROOT/quarantine/
 """
@@ -536,7 +537,8 @@ def _ranking_parser(prog: str, description: str) -> ArgParser:
     from stopwise.analysis.rank import RANK_BY, TUNINGS, UNITS
 
     ap = ArgParser(prog=prog, description=description)
-    ap.add_argument("campaign", help="campaign name or id")
+    ap.add_argument("campaign", nargs="+", metavar="CAMPAIGN",
+                    help="campaign name or id; several are ranked as one campaign holding the union of their runs")
     ap.add_argument("--root", default="results", help="results root (default: results)")
     ap.add_argument("--rule", default="holdout", metavar="NAME[:k=v,...]",
                     help="stopping rule the methods are ranked under (default: holdout; never oracle)")
@@ -557,6 +559,11 @@ def _ranking_parser(prog: str, description: str) -> ArgParser:
     ap.add_argument("--baselines", default="ensure", choices=("ensure", "stored", "none"),
                     help="explicit baselines: compute missing ones (default), use stored ones only, or none")
     return ap
+
+
+def _campaigns(a):
+    """The CAMPAIGN arguments: one name or id, or the list of several."""
+    return a.campaign[0] if len(a.campaign) == 1 else list(a.campaign)
 
 
 def _ranking_options(a) -> dict:
@@ -581,14 +588,14 @@ def cmd_rank(argv: list[str]) -> int:
     a = ap.parse_args(argv)
     try:
         compare = _compare_rules_arg(a.compare)
-        r = rank_campaign(a.root, a.campaign, a.rule, baselines=a.baselines, **_ranking_options(a))
+        r = rank_campaign(a.root, _campaigns(a), a.rule, baselines=a.baselines, **_ranking_options(a))
         text = render(r, a.format)
         if compare is not False and a.format != "csv":
             from stopwise.analysis.rule_comparison import compare_campaign
             from stopwise.report.tables import render_rules
 
             opts = _ranking_options(a)
-            c = compare_campaign(a.root, a.campaign, compare, method_by=opts["method_by"], params=opts["params"],
+            c = compare_campaign(a.root, _campaigns(a), compare, method_by=opts["method_by"], params=opts["params"],
                                  alpha=a.alpha)
             text += ("\n" if a.format == "text" else "\n### Stopping rules compared\n\n") + render_rules(c, a.format)
     except (SpecError, StoreError) as e:
@@ -622,14 +629,16 @@ def cmd_report(argv: list[str]) -> int:
     from stopwise.report.report import report_campaign
     from stopwise.results.store import StoreError
 
-    ap = _ranking_parser("stopwise report", "write a static HTML report of a campaign: tables and PNG figures")
-    ap.add_argument("--out", default=None, metavar="DIR", help="output folder (default: ROOT/reports/CAMPAIGN)")
+    ap = _ranking_parser("stopwise report", "write a static HTML report of a campaign (or of several, as one): "
+                                            "tables and PNG figures")
+    ap.add_argument("--out", default=None, metavar="DIR",
+                    help="output folder (default: ROOT/reports/CAMPAIGN, or ROOT/reports/A+B for several)")
     ap.add_argument("--mark", action="append", default=None, metavar="NAME[:k=v,...]",
                     help="rule whose stopping points the curves mark, repeatable (default: the rules the campaign "
                          "named, and the oracle)")
     a = ap.parse_args(argv)
     try:
-        index = report_campaign(a.root, a.campaign, a.out, rule=a.rule, marked_rules=a.mark,
+        index = report_campaign(a.root, _campaigns(a), a.out, rule=a.rule, marked_rules=a.mark,
                                 baselines=a.baselines, **_ranking_options(a))
     except (SpecError, StoreError) as e:
         return _fail(str(e))

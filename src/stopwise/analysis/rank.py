@@ -746,34 +746,40 @@ class CampaignData:
     """What ranking and the report read from a results root for one campaign."""
 
     root: Path
-    campaign: str
+    campaign: str | tuple[str, ...]  # one campaign reference, or several (the union of their runs)
     rule: str                      # label of the ranked rule
     selections: pd.DataFrame       # every requested rule
     baselines: pd.DataFrame | None
     references: pd.DataFrame | None
 
 
-def gather(root: str | Path, campaign: str, rule: str | Mapping[str, Any] = "holdout",
+def gather(root: str | Path, campaign: str | Sequence[str], rule: str | Mapping[str, Any] = "holdout",
            extra_rules: Iterable[Any] = (), baselines: str = "ensure", references: bool = True,
            method_by: Sequence[str] = ("solver",), params: Iterable[str] | None = None,
            **options: Any) -> CampaignData:
     """Selections (the ranked rule plus ``extra_rules``), explicit baselines and references.
+
+    ``campaign`` is a campaign name or id, or several: then the union of their runs (a run
+    that two campaigns hold counts once) is one campaign, and a method is defined once
+    across them.
 
     ``baselines``: ``ensure`` (compute the missing ones for every dataset, split and seed of
     the campaign, reuse stored ones), ``stored`` (only what is stored) or ``none``. Every
     option is checked (``options`` as :func:`rank` takes them) before anything is computed
     or written.
     """
-    from stopwise.analysis.selection import select
+    from stopwise.analysis.selection import campaign_list, find_campaigns, select
     from stopwise.results.store import Store, StoreError
 
     if baselines not in ("ensure", "stored", "none"):
         raise RankError(f"baselines mode {baselines!r} is invalid; valid: ensure, stored, none")
     check_options(**options)
     try:
-        Store(root).find_campaign(campaign)
+        refs = campaign_list(campaign)
+        find_campaigns(Store(root), refs)
     except StoreError as e:
         raise RankError(str(e)) from None
+    campaign = refs[0] if len(refs) == 1 else tuple(refs)
     main = rule_spec(rule)
     if main["rule"] == "oracle":
         raise RankError("stopping rule 'oracle' is a reference (it reads test error) and never ranks as a method; "
@@ -781,7 +787,7 @@ def gather(root: str | Path, campaign: str, rule: str | Mapping[str, Any] = "hol
     specs = [main] + [rule_spec(r) for r in extra_rules]
     sel = select(root, campaign, rules=[{"rule": s["rule"], "params": s["params"]} for s in specs])
     if sel.empty:
-        raise RankError(f"campaign {campaign!r} has no stored runs under {root}; run it first with stopwise sweep")
+        raise RankError(f"campaign {' + '.join(refs)} has no stored runs under {root}; run it first with stopwise sweep")
     _require(sel, tuple(method_by), "the selection table")
     param_columns(sel, tuple(method_by), params)
     bl = None
@@ -831,11 +837,13 @@ def mark_protocols(references: pd.DataFrame, root: str | Path, selections: pd.Da
     return references.assign(protocol_matches=match)
 
 
-def rank_campaign(root: str | Path = "results", campaign: str = "", rule: str | Mapping[str, Any] = "holdout", *,
+def rank_campaign(root: str | Path = "results", campaign: str | Sequence[str] = "",
+                  rule: str | Mapping[str, Any] = "holdout", *,
                   baselines: str = "ensure", data: CampaignData | None = None, **options: Any) -> Ranking:
     """Rank a stored campaign: select with ``rule`` on every trace, tune on validation
     error, read only the tuned runs' ``run_id, iteration, passes, test_error`` columns, and
-    aggregate (``options`` go to :func:`rank`).
+    aggregate (``options`` go to :func:`rank`). ``campaign`` may name several campaigns:
+    their runs are ranked as one campaign holding the union of them.
 
     >>> r = rank_campaign("results", "demo", "holdout", target="baseline")   # doctest: +SKIP
     >>> print(stopwise.report.tables.render(r, "markdown"))                          # doctest: +SKIP

@@ -235,20 +235,21 @@ def _why(runs: pd.DataFrame, dataset: Any, rule: str) -> str:
     return "no finite relative error"
 
 
-def compare_campaign(root: Any = "results", campaign: str = "", rules: Iterable[Any] | None = None,
+def compare_campaign(root: Any = "results", campaign: str | Sequence[str] = "", rules: Iterable[Any] | None = None,
                      method_by: Sequence[str] = ("solver",), params: Sequence[str] | None = None,
                      alpha: float = 0.05) -> RuleComparison:
-    """:func:`compare_rules` on a stored campaign: ``rules`` default to the campaign's own
-    rules and every registered rule at its defaults (:func:`default_rules`).
+    """:func:`compare_rules` on a stored campaign, or on the union of several campaigns' runs:
+    ``rules`` default to the campaigns' own rules and every registered rule at its defaults
+    (:func:`default_rules`).
 
     >>> c = compare_campaign("results", "demo")          # doctest: +SKIP
     >>> c.summary                                        # doctest: +SKIP
     """
-    from stopwise.analysis.selection import select
+    from stopwise.analysis.selection import find_campaigns, select
     from stopwise.results.store import Store
 
     if rules is None:
-        listed = Store(root).find_campaign(campaign).get("stopping") or []
+        listed = [r for m in find_campaigns(Store(root), campaign) for r in (m.get("stopping") or [])]
         rules = default_rules([{"rule": r.get("rule"), "params": r.get("params") or {}}
                                for r in listed if isinstance(r, Mapping)])
     specs = [{"rule": r["rule"], "params": r.get("params") or {}} if isinstance(r, Mapping) else r for r in rules]
