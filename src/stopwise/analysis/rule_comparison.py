@@ -173,12 +173,18 @@ def compare_rules(selections: pd.DataFrame, method_by: Sequence[str] = ("solver"
                   passes_spent=("passes_spent", _median), not_stopped=("not_stopped", "sum"),
                   stopped_at_0=("at0", "sum"))
              .reset_index())
+    # one order whatever order the runs were listed in (a campaign, or several): datasets,
+    # methods and configurations sorted, rules in the order they were given
+    position = {r: i for i, r in enumerate(rules)}
+    table = (table.assign(_rule=table["rule"].map(position))
+             .sort_values(["dataset", "method", "config", "_rule"], kind="stable")
+             .drop(columns="_rule").reset_index(drop=True))
     for c in ("not_stopped", "stopped_at_0"):  # shares of the runs where the rule applies
         with np.errstate(divide="ignore", invalid="ignore"):
             table[c] = np.where(table["applicable"] > 0, table[c] / table["applicable"].where(table["applicable"] > 0),
                                 np.nan)
     scores = (table.groupby(["dataset", "rule"], sort=False)["relative_error"].agg(_median)
-              .unstack("rule").reindex(columns=list(rules)))
+              .unstack("rule").reindex(columns=list(rules)).sort_index())
     finite = scores.apply(lambda col: np.isfinite(col.to_numpy(float)))
     everywhere = [r for r in rules if bool(finite[r].all())]
     if len(everywhere) >= 2 or len(rules) < 2:

@@ -300,8 +300,9 @@ def margin_curves(traces: pd.DataFrame, tuned: pd.DataFrame, hard_margins: Mappi
                "next, over ||W||_F; a network divides by ||theta||^2) and the distance between w/||w|| and the "
                "hard-margin SVM direction w*/||w*|| (binary linear models on separable training rows; not defined "
                "otherwise), against data passes (log axis). Line: median over seeds; band: smallest to largest "
-               "over seeds. Dotted line: the hard-margin value 1/||w*|| (median over the seeds' splits), which the "
-               "normalized margin of a linear model cannot exceed. Thick line: the method of rank 1 on the dataset.")
+               "over seeds. Dotted line: the hard-margin value 1/||w*|| (median over the seeds' splits); on each split "
+               "a linear model's normalized margin stays below that split's value. Thick line: the method of rank 1 "
+               "on the dataset.")
     alt = ("Line plots with bands, two panels per classification dataset (" + ", ".join(info["datasets"])
            + "): normalized margin and distance to the hard-margin direction versus data passes.")
     return Plot("margins", caption, alt, _png(fig))
