@@ -47,13 +47,14 @@ def test_curves_draw_the_median_and_range_over_every_seed():
     verts = band.get_paths()[0].vertices
     assert set(np.round(verts[:, 1], 12)) >= set(np.round(np.r_[y.min(0), y.max(0)], 12))
     # different recorded passes: each seed interpolated linearly (numpy's interp) on the union
+    # of recorded passes; at 1 pass only seed 0 has a value (seed 1 starts at 2 and is not
+    # extrapolated back), one seed of two is no majority: the curve starts at 2 passes
     (ne,) = by_gid(ax, "median:nesterov")
-    grid = np.array([1, 2, 3, 4, 8], float)
+    grid = np.array([2, 3, 4, 8], float)
     a = np.interp(grid, [1, 3, 8], [.7, .4, .2])
     b = np.interp(grid, [2, 4, 8], [.5, .3, .25])
-    b[0] = np.nan  # seed 1 starts at 2 passes: not extrapolated back to 1
     assert ne.get_xdata().tolist() == grid.tolist()
-    assert ne.get_ydata() == pytest.approx(np.nanmedian([a, b], axis=0), rel=1e-15)
+    assert ne.get_ydata() == pytest.approx(np.median([a, b], axis=0), rel=1e-15)
     # the rule's marker sits at the medians over seeds of its stopping passes and test errors
     (mark,) = by_gid(ax, "stop:gd:holdout")
     assert mark.get_xdata()[0] == 4.0 and mark.get_ydata()[0] == .35
@@ -64,6 +65,18 @@ def test_curves_draw_the_median_and_range_over_every_seed():
     assert ax.get_title() == "A"  # 3 and 2 seeds: no single count in the title
     plot = F.curves(traces, tuned, stops, "holdout")
     assert "median over seeds" in plot.caption and "smallest to largest" in plot.caption
+
+
+def test_a_seed_that_blew_up_is_left_above_the_axis_and_named():
+    traces, tuned, stops = three_seed_traces()
+    traces.loc[traces.run_id == "ne1", "test_error"] = [1., 50., 1e6, 1e9]
+    tuned = tuned.assign(status=["completed"] * 4 + ["diverged"])
+    fig, info = F.curves_figure(traces, tuned, stops, "holdout")
+    ax = info["axes"][0]
+    # the largest test error at the first drawn pass (1 pass) is gd seed 2's .9
+    assert ax.get_ylim()[1] == pytest.approx(F.CURVE_CAP * .9)
+    (note,) = by_gid(ax, "offscale")
+    assert note.get_text() == "above the axis:\nnesterov (diverged on 1/2 seeds)"
 
 
 def test_classification_curves_name_the_misclassification_rate_and_keep_zero_errors():

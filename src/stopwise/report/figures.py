@@ -87,16 +87,16 @@ def _dataset_metric(tasks: Mapping[str, str] | None, dataset) -> str:
     return metric_name((tasks or {}).get(str(dataset)))
 
 
-def seed_band(runs: Sequence[tuple[np.ndarray, np.ndarray]], min_share: float = 0.5
+def seed_band(runs: Sequence[tuple[np.ndarray, np.ndarray]]
               ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Median and range over seeds of curves ``y(x)`` recorded at different ``x``.
 
     Each run ``(x, y)`` is interpolated linearly onto the union of every run's recorded
     ``x`` inside its own recorded range (never extrapolated; non-finite ``y`` are dropped).
     At each grid point, over the runs that reach it: the median, the smallest and the
-    largest value, and their count. Points fewer than ``min_share`` of the runs reach are
-    left out, so a curve does not end on one seed's run. Returns ``(x, median, low, high,
-    count)``.
+    largest value, and their count. Only points that more than half of the runs reach are
+    kept, so a curve never goes on with a minority of the seeds (with two seeds: where both
+    ran). Returns ``(x, median, low, high, count)``.
 
     >>> x, med, lo, hi, n = seed_band([(np.array([0., 1, 2]), np.array([3., 2, 1])),
     ...                                (np.array([0., 2]), np.array([5., 1])),
@@ -122,7 +122,7 @@ def seed_band(runs: Sequence[tuple[np.ndarray, np.ndarray]], min_share: float = 
         inside = (grid >= x[0]) & (grid <= x[-1])
         Y[i, inside] = np.interp(grid[inside], x, y)
     count = np.isfinite(Y).sum(axis=0)
-    keep = count >= max(1, math.ceil(min_share * len(runs)))
+    keep = count > len(runs) / 2
     Y, grid, count = Y[:, keep], grid[keep], count[keep]
     if not grid.size:
         e = np.array([])
@@ -172,6 +172,8 @@ def _draw_band(ax, runs, color, label, lw=1.6):
 
 # ---------------------------------------------------------------- error versus passes
 
+CURVE_CAP = 3.0  # error axes end at this multiple of the largest first drawn test error of a run that did not diverge
+
 def curves(traces: pd.DataFrame, tuned: pd.DataFrame, stops: pd.DataFrame, rule: str,
            winners: Mapping[str, Sequence[str]] | None = None, tasks: Mapping[str, str] | None = None) -> Plot:
     """Test error over data passes of each method's tuned runs, one panel per dataset: the
@@ -183,12 +185,14 @@ def curves(traces: pd.DataFrame, tuned: pd.DataFrame, stops: pd.DataFrame, rule:
     caption = (f"Test error against data passes for each method's configuration tuned on validation error "
                f"under the '{rule}' rule, on every seed ({seeds_text} per dataset and method; on each seed its own "
                "tuned run). Line: median over seeds; shaded band: smallest to largest value over seeds (not a "
-               "confidence interval); drawn where at least half of the seeds' runs have recorded that many passes "
+               "confidence interval); drawn where more than half of the seeds' runs have recorded that many passes "
                "(each run interpolated linearly between its recorded iterates). Markers: median over seeds of "
                "where each stopping rule stops (passes) and of the test error there; hollow markers are the oracle "
                "(minimum test error), a reference that is never ranked. The thick line and the 'rank 1' label "
                "mark the best method on the dataset (rank 1 in the ranking). The y axis names the dataset's "
-               "error metric; log-log axes, or a linear error axis on a dataset where some test errors are 0.")
+               "error metric; log-log axes, or a linear error axis on a dataset where some test errors are 0. "
+               f"Errors above {CURVE_CAP:g} times the largest error at the first drawn pass of a run that did "
+               "not diverge are left above the axis, and the panel names the method.")
     alt = (f"Line plots with shaded bands, one panel per dataset ({', '.join(map(str, datasets))}), of the median "
            f"test error over seeds versus data passes for methods {', '.join(methods)}, with markers at the "
            f"median stopping points of rules {', '.join(rules) or '(none)'}.")
@@ -218,15 +222,20 @@ def curves_figure(traces: pd.DataFrame, tuned: pd.DataFrame, stops: pd.DataFrame
     seeds_per: list[int] = []
     for ax, d in zip(axes, datasets):
         td = tuned[tuned["dataset"] == d]
-        drawn, lowest, highest = 0, math.inf, -math.inf
+        drawn, lowest, highest, start = 0, math.inf, -math.inf, -math.inf
         best = set(map(str, winners.get(d, ())))
         for m, g in td.groupby("method", sort=True):
             ids = [str(r) for r in g["run_id"]]
             seeds_per.append(len(ids))
             runs = _seed_runs(by_run, ids, "test_error")
+            calm = [str(r) for r, st in zip(g["run_id"], g["status"] if "status" in g.columns else [""] * len(g))
+                    if st != "diverged"]
             for _, y in runs:
                 if y.size:
                     lowest, highest = min(lowest, float(np.nanmin(y))), max(highest, float(np.nanmax(y)))
+            for _, y in _seed_runs(by_run, calm, "test_error"):
+                if y.size:
+                    start = max(start, float(y[0]))
             drawn += _draw_band(ax, runs, colors[m], str(m), lw=2.8 if str(m) in best else 1.4)
             st = stops[stops["run_id"].astype(str).isin(ids)]
             for rule_, sr in st.groupby("rule", sort=False):
@@ -263,10 +272,25 @@ def curves_figure(traces: pd.DataFrame, tuned: pd.DataFrame, stops: pd.DataFrame
         ax.set_xscale("log")
         if lowest > 0:
             ax.set_yscale("log")
-            _plain_log_ticks(ax, "y")
-            ax.tick_params(axis="y", which="minor", labelsize=8)
         else:  # some test errors are 0: a linear axis keeps them (a log axis would drop them from the median)
             ax.set_ylim(bottom=0)
+        # a run that blew up (a diverged seed) would flatten every other curve: errors above
+        # CURVE_CAP times the largest starting error are left above the axis, with a note
+        top = CURVE_CAP * start
+        if np.isfinite(top) and top > 0 and highest > top:
+            ax.set_ylim(top=top)
+            over = []
+            for m, g in td.groupby("method", sort=True):
+                runs = _seed_runs(by_run, [str(r) for r in g["run_id"]], "test_error")
+                if any(y.size and np.nanmax(y) > top for _, y in runs):
+                    st = g["status"].astype(str) if "status" in g.columns else pd.Series(dtype=str)
+                    k = int((st == "diverged").sum())
+                    over.append(f"{m}" + (f" (diverged on {k}/{len(g)} seeds)" if k else ""))
+            ax.text(0.02, 0.97, "above the axis:\n" + "\n".join(over), transform=ax.transAxes, ha="left", va="top",
+                    fontsize=8, color="#8d2b0b", gid="offscale")
+        if lowest > 0:
+            _plain_log_ticks(ax, "y")
+            ax.tick_params(axis="y", which="minor", labelsize=8)
     _hide_unused(axes, len(datasets))
     handles = [axes[0].plot([], [], color=colors[m], lw=2)[0] for m in colors]
     labels = list(colors)
