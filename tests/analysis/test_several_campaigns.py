@@ -105,6 +105,6 @@ def test_report_of_several_campaigns_states_each(root):
         m = store.find_campaign(name)
         assert f"Campaign {name} ({m['campaign_id'][:16]}) under {root}: {runs} runs ({runs} completed)." in text
         assert f"# campaign {name} ({m['campaign_id'][:16]})" in text  # each definition as given
-    assert "2 campaigns ranked as one: the union of their runs, 12 distinct runs (12 completed); 1 listed by more " \
-           "than one campaign count once" in text
+    assert "2 campaigns ranked as one: the union of their runs, 12 distinct runs (12 completed); 1 run listed by " \
+           "more than one campaign counts once" in text
     assert "stopwise report: campaigns camp_a + camp_b" in text

@@ -449,9 +449,10 @@ def report_campaign(root: str | Path = "results", campaign: str | Sequence[str] 
     context = [f"Campaign {m.get('name', '?')} ({str(m.get('campaign_id', ''))[:16]}) under {Path(root)}: "
                f"{len(m.get('run_ids', []))} runs ({by_status(m.get('run_ids', []))})." for m in manifests]
     if len(manifests) > 1:
+        shared = sum(len(set(m.get("run_ids", []))) for m in manifests) - len(union)
         context.append(f"{len(manifests)} campaigns ranked as one: the union of their runs, {len(union)} distinct runs "
-                       f"({by_status(union)}); {sum(len(m.get('run_ids', [])) for m in manifests) - len(union)} "
-                       "listed by more than one campaign count once, and a method is defined once across them.")
+                       f"({by_status(union)}); {shared} run{'s' if shared != 1 else ''} listed by more than one "
+                       f"campaign count{'s' if shared == 1 else ''} once, and a method is defined once across them.")
     context.append(
         f"Seeds are repeated random splits and initializations; intervals are percentile bootstrap intervals "
         f"of the mean over seeds at {ranking.confidence:g} (Efron and Tibshirani 1993; 9999 resamples), "
