@@ -17,8 +17,6 @@ MODULES = sorted(m.name for m in pkgutil.walk_packages(stopwise.__path__, "stopw
 
 WITHOUT_EXAMPLES = {
     "stopwise.analysis",
-    "stopwise.analysis.rank",
-    "stopwise.analysis.selection",
     "stopwise.cli",
     "stopwise.config",
     "stopwise.config.catalog",
@@ -35,7 +33,6 @@ WITHOUT_EXAMPLES = {
     "stopwise.problem",
     "stopwise.problem.problem",
     "stopwise.report",
-    "stopwise.report.figures",
     "stopwise.report.report",
     "stopwise.report.tables",
     "stopwise.results",

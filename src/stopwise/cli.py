@@ -24,7 +24,9 @@ commands:
                                  solver x dataset pairs that cannot run instead of leaving them out
   run [overrides]                run one configuration
   rerun ID [--root DIR]          recompute a run or a whole campaign and compare with the stored traces
-  ls [--campaign C] [--root DIR] list stored runs
+  ls [--campaign C] [--root DIR] [--summary]
+                                 list stored runs; --summary: per dataset and solver, the configuration
+                                 tuned on validation error with medians and ranges over its seeds
   campaigns [--root DIR]         list stored campaigns: name, id, creation time, runs by status
   datasets                       list every dataset a run can use (rows, columns, task, source)
   datasets fetch [ID|NAME@VERSION ...] [--task ID ...]
@@ -33,10 +35,11 @@ commands:
                                  evaluate stopping rules on a campaign's stored traces
   baselines CAMPAIGN [--method NAME ...] [--root DIR] [--path]
                                  fit (or reuse) explicit-regularization baselines on the campaign's splits
-  rank CAMPAIGN [--rule R] [--target T] [--by B] [--format text|csv|markdown] [--compare R ...] ...
+  rank CAMPAIGN [CAMPAIGN ...] [--rule R] [--target T] [--by B] [--format text|csv|markdown] [--compare R ...] ...
                                  tune methods on validation error, rank them across datasets;
-                                 compare stopping rules against the oracle
-  report CAMPAIGN [--rule R] [--out DIR] ...
+                                 compare stopping rules against the oracle; several campaigns are
+                                 ranked as one holding the union of their runs
+  report CAMPAIGN [CAMPAIGN ...] [--rule R] [--out DIR] ...
                                  write an offline HTML report (tables, PNG figures) of a campaign
   verify [ROOT] [--quarantine]   check every trace and manifest; move bad files to ROOT/quarantine/
 """
@@ -256,7 +259,8 @@ def cmd_ls(argv: list[str]) -> int:
     ap.add_argument("--campaign", default=None, help="campaign name or id")
     ap.add_argument("--root", default="results")
     ap.add_argument("--summary", action="store_true",
-                    help="one row per dataset and solver: the run with the best validation error")
+                    help="one row per dataset and solver: the configuration tuned on mean validation error over "
+                         "seeds, with medians and ranges over its seeds")
     a = ap.parse_args(argv)
     try:
         df = load_runs(a.root, a.campaign)
@@ -266,7 +270,9 @@ def cmd_ls(argv: list[str]) -> int:
         print(f"no runs under {a.root}")
         return 0
     show = summary_table(df) if a.summary else df.drop(columns=["message"])
-    with pd.option_context("display.max_rows", 500, "display.width", 200, "display.max_columns", 30,
+    if a.summary:
+        print(SUMMARY_NOTE)
+    with pd.option_context("display.max_rows", 500, "display.width", 250, "display.max_columns", 30,
                            "display.float_format", "{:.4g}".format):
         print(show.to_string(index=False))
     print(f"{len(df)} runs: " + ", ".join(f"{n} {s}" for s, n in df["status"].value_counts().items())
@@ -366,20 +372,51 @@ def cmd_verify(argv: list[str]) -> int:
     return 1
 
 
+SUMMARY_NOTE = ("per dataset and solver: the configuration whose best validation error, averaged over seeds, is "
+                "lowest (among those with a validation error on the most seeds); then over that configuration's "
+                "seeds the median and the range (smallest, largest) of its best validation error, of the test "
+                "error at that iterate and of the final test error. Every seed counts, not the luckiest one.")
+
+
 def summary_table(df):
-    """Per dataset and solver: runs, diverged runs, and the run whose best validation error is lowest."""
+    """Per dataset and solver: runs by status, the configuration tuned on validation error
+    (lowest mean best validation error over seeds, among the configurations with a validation
+    error on the most seeds), and over that configuration's seeds the median and range of its
+    best validation error, test error there and final test error."""
+    import numpy as np
     import pandas as pd
+
+    from stopwise.analysis.rank import config_labels
+    from stopwise.results.query import RUN_COLUMNS
+
+    params = [c for c in df.columns if c not in RUN_COLUMNS]
+    df = df.assign(config=config_labels(df, params).to_numpy() if len(df) else [])
+
+    def med(a):
+        a = a[np.isfinite(a)]
+        return float(np.median(a)) if a.size else np.nan
+
+    def rng(a):
+        a = a[np.isfinite(a)]
+        return f"{a.min():.4g}..{a.max():.4g}" if a.size >= 2 else "-"
 
     rows = []
     for (ds, sv), g in df.groupby(["dataset", "solver"], sort=True):
-        ok = g[g["best_val_error"].notna()]
-        row = {"dataset": ds, "solver": sv, "runs": len(g), "diverged": int((g["status"] == "diverged").sum())}
+        row = {"dataset": ds, "solver": sv, "runs": len(g), "diverged": int((g["status"] == "diverged").sum()),
+               "failed": int((g["status"] == "failed").sum())}
+        ok = g[np.isfinite(g["best_val_error"].to_numpy(dtype=float))]
         if len(ok):
-            b = ok.loc[ok["best_val_error"].idxmin()]
-            params = {k: b[k] for k in ("step_scale", "momentum") if k in b and pd.notna(b[k])}
-            row.update(best_params=" ".join(f"{k}={v:g}" for k, v in params.items()) or "-",
-                       seed=int(b["seed"]), best_val_error=b["best_val_error"], at_iteration=int(b["best_val_iteration"]),
-                       test_error_there=b["test_at_best_val"], final_test_error=b["final_test_error"])
+            per = (ok.groupby("config", sort=True)
+                   .agg(n=("seed", "nunique"), mean_val=("best_val_error", "mean")).reset_index()
+                   .sort_values(["n", "mean_val", "config"], ascending=[False, True, True], kind="stable"))
+            best = per["config"].iloc[0]
+            t = ok[ok["config"] == best]
+            val = t["best_val_error"].to_numpy(dtype=float)
+            test = t["test_at_best_val"].to_numpy(dtype=float)
+            final = t["final_test_error"].to_numpy(dtype=float)
+            row.update({"tuned config": best, "seeds": f"{t['seed'].nunique()}/{g['seed'].nunique()}",
+                        "val error (median)": med(val), "test at best val (median)": med(test),
+                        "test at best val (range)": rng(test), "final test error (median)": med(final)})
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -504,7 +541,8 @@ def _ranking_parser(prog: str, description: str) -> ArgParser:
     from stopwise.analysis.rank import RANK_BY, TUNINGS, UNITS
 
     ap = ArgParser(prog=prog, description=description)
-    ap.add_argument("campaign", help="campaign name or id")
+    ap.add_argument("campaign", nargs="+", metavar="CAMPAIGN",
+                    help="campaign name or id; several are ranked as one campaign holding the union of their runs")
     ap.add_argument("--root", default="results", help="results root (default: results)")
     ap.add_argument("--rule", default="holdout", metavar="NAME[:k=v,...]",
                     help="stopping rule the methods are ranked under (default: holdout; never oracle)")
@@ -525,6 +563,11 @@ def _ranking_parser(prog: str, description: str) -> ArgParser:
     ap.add_argument("--baselines", default="ensure", choices=("ensure", "stored", "none"),
                     help="explicit baselines: compute missing ones (default), use stored ones only, or none")
     return ap
+
+
+def _campaigns(a):
+    """The CAMPAIGN arguments: one name or id, or the list of several."""
+    return a.campaign[0] if len(a.campaign) == 1 else list(a.campaign)
 
 
 def _ranking_options(a) -> dict:
@@ -549,14 +592,14 @@ def cmd_rank(argv: list[str]) -> int:
     a = ap.parse_args(argv)
     try:
         compare = _compare_rules_arg(a.compare)
-        r = rank_campaign(a.root, a.campaign, a.rule, baselines=a.baselines, **_ranking_options(a))
+        r = rank_campaign(a.root, _campaigns(a), a.rule, baselines=a.baselines, **_ranking_options(a))
         text = render(r, a.format)
         if compare is not False and a.format != "csv":
             from stopwise.analysis.rule_comparison import compare_campaign
             from stopwise.report.tables import render_rules
 
             opts = _ranking_options(a)
-            c = compare_campaign(a.root, a.campaign, compare, method_by=opts["method_by"], params=opts["params"],
+            c = compare_campaign(a.root, _campaigns(a), compare, method_by=opts["method_by"], params=opts["params"],
                                  alpha=a.alpha)
             text += ("\n" if a.format == "text" else "\n### Stopping rules compared\n\n") + render_rules(c, a.format)
     except (SpecError, StoreError) as e:
@@ -590,14 +633,16 @@ def cmd_report(argv: list[str]) -> int:
     from stopwise.report.report import report_campaign
     from stopwise.results.store import StoreError
 
-    ap = _ranking_parser("stopwise report", "write a static HTML report of a campaign: tables and PNG figures")
-    ap.add_argument("--out", default=None, metavar="DIR", help="output folder (default: ROOT/reports/CAMPAIGN)")
+    ap = _ranking_parser("stopwise report", "write a static HTML report of a campaign (or of several, as one): "
+                                            "tables and PNG figures")
+    ap.add_argument("--out", default=None, metavar="DIR",
+                    help="output folder (default: ROOT/reports/CAMPAIGN, or ROOT/reports/A+B for several)")
     ap.add_argument("--mark", action="append", default=None, metavar="NAME[:k=v,...]",
                     help="rule whose stopping points the curves mark, repeatable (default: the rules the campaign "
                          "named, and the oracle)")
     a = ap.parse_args(argv)
     try:
-        index = report_campaign(a.root, a.campaign, a.out, rule=a.rule, marked_rules=a.mark,
+        index = report_campaign(a.root, _campaigns(a), a.out, rule=a.rule, marked_rules=a.mark,
                                 baselines=a.baselines, **_ranking_options(a))
     except (SpecError, StoreError) as e:
         return _fail(str(e))

@@ -274,3 +274,39 @@ def test_the_best_method_per_dataset_is_marked_and_pairwise_tests_are_attached()
     assert set(r.pairwise.columns) >= {"method_a", "method_b", "T", "p", "p_holm"}
     assert len(r.pairwise) == len(r.ranks.columns) * (len(r.ranks.columns) - 1) // 2
     assert "pairwise Wilcoxon" in render(r, "text")
+
+
+# ---------------------------------------------------------------- configuration labels
+
+def test_tuned_config_lists_only_params_that_vary_or_differ_from_the_solvers_defaults():
+    """The label of a tuned configuration names what distinguishes it: parameters that vary
+    among the solver's runs, or that differ from the default declared in the solver's
+    registered params dataclass (read here from the dataclass itself, not from stopwise's helper)."""
+    import dataclasses
+
+    from stopwise.analysis.rank import config_labels
+    from stopwise.solvers import SOLVERS
+
+    hb_default = {f.name: f.default for f in dataclasses.fields(SOLVERS["heavy_ball"].params)}["momentum"]
+    sgd = {f.name: f.default for f in dataclasses.fields(SOLVERS["sgd"].params)}  # the wrapped, averaged params
+    assert "average" in sgd and "batch" in sgd
+    rows = [selection_row("h1", "A", "heavy_ball", 0, .2, .3, step_scale=0.5, momentum=hb_default),
+            selection_row("h2", "A", "heavy_ball", 0, .2, .3, step_scale=1.0, momentum=hb_default),
+            selection_row("g1", "A", "gd", 0, .2, .3, step_scale=1.0),
+            selection_row("s1", "A", "sgd", 0, .2, .3, step_scale=0.5, batch=sgd["batch"], average=sgd["average"]),
+            selection_row("s2", "A", "sgd", 1, .2, .3, step_scale=0.5, batch=sgd["batch"], average="tail")]
+    df = selections(rows)
+    labels = dict(zip(df.run_id, config_labels(df, ["step_scale", "momentum", "batch", "average"])))
+    # heavy ball: step scale varies, momentum stays at its default -> left out
+    assert labels["h1"] == "step_scale=0.5" and labels["h2"] == "step_scale=1"
+    # gd alone at its default step scale: nothing to say
+    assert labels["g1"] == "(default)"
+    # sgd: step scale 0.5 is not the default (1.0) -> listed on both; batch at its default
+    # and constant -> left out; averaging varies between the two runs -> listed on both
+    assert labels["s1"] == "step_scale=0.5 average=none" and labels["s2"] == "step_scale=0.5 average=tail"
+    # momentum away from its default, even when constant, is listed
+    other = df.assign(momentum=np.where(df.solver == "heavy_ball", 0.9, np.nan))
+    assert config_labels(other, ["step_scale", "momentum"])[0] == "step_scale=0.5 momentum=0.9"
+    # the ranking's table shows the short label
+    r = rank(df[df.solver != "sgd"], "holdout")
+    assert set(r.table.loc[r.table.method == "gd", "config"]) == {"(default)"}

@@ -197,3 +197,46 @@ def test_report_bad_input_writes_nothing_and_help_works(campaign, tmp_path):
     assert code == 2 and err.count("\n") == 1 and "nosuch" in err and not out.exists()
     code, stdout, _ = cli("rank", "--help")
     assert code == 0 and "--target" in stdout
+
+
+def test_report_of_the_margin_campaign_draws_margins_and_names_the_classification_metric(tmp_path):
+    """The packaged classification campaign (campaigns/margins.yaml, cut down to one dataset,
+    two solvers and a short budget): its report draws the normalized margin and the distance
+    to the max-margin direction from the traces' own columns (docs/schema.md), and its curves
+    name the misclassification rate."""
+    root = tmp_path / "results"
+    code, out, err = cli("sweep", "margins", "dataset=iris_setosa_versicolor", "solver=gd,hinge_diagonal",
+                         "seed=0,1,2", "budget.iterations=100", f"results_root={root}")
+    assert code == 0, err
+    code, out, err = cli("report", "margins", "--root", str(root), "--out", str(tmp_path / "page"))
+    assert code == 0, err
+    html = (tmp_path / "page" / "index.html").read_text()
+    assert (tmp_path / "page" / "figures" / "margins.png").is_file()
+    assert "normalized margin on the training rows" in html and "hard-margin SVM direction" in html
+    assert "margin curves left out" not in html
+    # what the figure draws, from the same inputs the report reads
+    from stopwise.report import figures as F
+    from stopwise.report.report import dataset_tasks, hard_margin_values
+
+    r = rank_campaign(root, "margins", "holdout", baselines="none")
+    tuned = r.replicates[r.replicates.valid.astype(bool) & (r.replicates.kind == "iterative")]
+    assert dataset_tasks(Store(root), stopwise.select(root, "margins")) == {"iris_setosa_versicolor": "binary"}
+    tr = read_traces(root, tuned.run_id, ("run_id", "passes", "margin", "svm_dist"))
+    fig, info = F.margin_figure(tr, tuned, hard_margin_values(Store(root), tuned))
+    left, right = info["axes"][0]
+    assert left.get_ylabel() == "normalized margin on the training rows"
+    (line,) = [a for a in left.get_lines() if a.get_gid() == "median:gd"]
+    # at the last recorded pass every seed is there: the median of the three seeds' margins
+    last = tr[tr.run_id.isin(tuned[tuned.method == "gd"].run_id)].sort_values("passes").groupby("run_id").tail(1)
+    assert line.get_ydata()[-1] == pytest.approx(float(np.median(last["margin"])), rel=1e-12)
+    # on each split the normalized margin of a linear model stays below that split's
+    # hard-margin value 1/||w*|| (stored with the run; the dotted line is their median)
+    store = Store(root)
+    for rid, g in tr.groupby("run_id"):
+        own = store.run_meta(rid)["problem"]["svm_margin"]
+        assert (g["margin"].dropna() <= own * (1 + 1e-6)).all()
+    assert hard_margin_values(store, tuned)["iris_setosa_versicolor"] == pytest.approx(
+        float(np.median([store.run_meta(r)["problem"]["svm_margin"] for r in tuned.run_id.unique()])))
+    cfig, cinfo = F.curves_figure(read_traces(root, tuned.run_id), tuned, pd.DataFrame(columns=["run_id", "rule"]),
+                                  "holdout", tasks={"iris_setosa_versicolor": "binary"})
+    assert cinfo["axes"][0].get_ylabel() == "test misclassification rate"

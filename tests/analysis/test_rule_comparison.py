@@ -190,3 +190,30 @@ def test_rank_under_a_rule_that_does_not_apply_on_a_dataset_leaves_it_out_with_t
     (note,) = [n for n in r.notes if "does not apply on dataset diabetes" in n]
     assert "noise" in note
     assert r.test is not None and r.test.n_datasets == 2
+
+
+def test_rules_get_pairwise_wilcoxon_tests_with_holm_as_methods_do(root, capsys):
+    """Every pair of ranked rules, over the ranked datasets: p from scipy.stats.wilcoxon on the
+    score differences (zsplit, Demsar 2006 section 3.1.3), and Holm's step-down adjustment (Holm
+    1979) written out here from its definition."""
+    c = compare_campaign(root, "adhoc", RULES)
+    ranked = c.scores.loc[list(c.ranks.index), list(c.ranks.columns)]
+    k = ranked.shape[1]
+    assert len(c.pairwise) == k * (k - 1) // 2
+    ps = []
+    for row in c.pairwise.itertuples():
+        d = (ranked[row.method_b] - ranked[row.method_a]).to_numpy(float)
+        p = 1.0 if np.all(d == 0) else stats.wilcoxon(d, zero_method="zsplit").pvalue
+        assert row.p == pytest.approx(p, rel=1e-12)
+        ps.append(row.p)
+    order = np.argsort(ps, kind="stable")
+    m, running, holm = len(ps), 0.0, np.empty(len(ps))
+    for i, j in enumerate(order):
+        running = max(running, min(1.0, (m - i) * ps[j]))
+        holm[j] = running
+    assert c.pairwise["p_holm"].to_numpy() == pytest.approx(holm, rel=1e-12)
+    assert main(["rank", "adhoc", "--root", str(root), "--baselines", "none", "--compare", "holdout",
+                 "--compare", "budget", "--compare", "holdout:patience=3"]) == 0
+    out = capsys.readouterr().out
+    assert "pairwise Wilcoxon signed-rank tests of the rules over datasets, Holm-corrected" in out
+    assert "rule a" in out.split("of the rules over datasets")[1]

@@ -1,8 +1,10 @@
 """Helpers shared by the launcher and fault tests (not a test module)."""
 from __future__ import annotations
 
+import functools
 import json
 import os
+import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -49,3 +51,22 @@ def popen(*args: str, **kw) -> subprocess.Popen:
     env = dict(os.environ, PYTHONUNBUFFERED="1")
     return subprocess.Popen([sys.executable, "-m", "stopwise.cli", *args], stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True, env=env, **kw)
+
+
+@functools.lru_cache(maxsize=None)
+def scheduler_missing() -> str:
+    """Why no SLURM scheduler can run jobs here ('' when one can)."""
+    if shutil.which("sinfo") is None or shutil.which("sbatch") is None:
+        return ("no SLURM scheduler here: sinfo/sbatch are not on PATH "
+                "(scripts/start-slurm.sh starts a single-node one, as root)")
+    try:
+        res = subprocess.run(["sinfo", "--noheader", "--format=%T"], capture_output=True, text=True, timeout=20)
+    except subprocess.TimeoutExpired:
+        return "no SLURM scheduler answers: sinfo did not answer within 20 s"
+    if res.returncode != 0:
+        why = (res.stderr.strip().splitlines() or [f"exit {res.returncode}"])[0]
+        return f"no SLURM scheduler answers: sinfo: {why}"
+    states = set(res.stdout.split())
+    if not states & {"idle", "mixed", "allocated", "completing"}:
+        return f"SLURM answers but no node can run jobs (node states: {', '.join(sorted(states)) or 'none'})"
+    return ""

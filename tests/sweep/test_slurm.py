@@ -9,10 +9,8 @@ and exit code, `stopwise ls`, the stored run files and the campaign manifest.
 """
 from __future__ import annotations
 
-import functools
 import json
 import re
-import shutil
 import signal
 import subprocess
 import time
@@ -21,32 +19,13 @@ from pathlib import Path
 
 import pytest
 
-from helpers.sweep import assert_same_traces, cli, popen
+from helpers.sweep import assert_same_traces, cli, popen, scheduler_missing
 
 QUICK = ["sweep", "dataset=diabetes", "solver=gd,nesterov", "seed=0,1", "budget.iterations=50"]
 SLURM = ["hydra/launcher=slurm", "hydra.launcher.timeout_min=10"]
 HEADER = re.compile(r"^campaign (\S+) \(([0-9a-f]{16})\): ")
 # the submitting process's own lines: a header, a summary; submitit's log format has a time stamp
 STAMP = re.compile(r"\(\d{4}-\d\d-\d\d \d\d:\d\d:\d\d,\d+\)|Call #\d+ - ")
-
-
-@functools.lru_cache(maxsize=None)
-def scheduler_missing() -> str:
-    """Why no SLURM scheduler can run jobs here ('' when one can)."""
-    if shutil.which("sinfo") is None or shutil.which("sbatch") is None:
-        return ("no SLURM scheduler here: sinfo/sbatch are not on PATH "
-                "(scripts/start-slurm.sh starts a single-node one, as root)")
-    try:
-        res = subprocess.run(["sinfo", "--noheader", "--format=%T"], capture_output=True, text=True, timeout=20)
-    except subprocess.TimeoutExpired:
-        return "no SLURM scheduler answers: sinfo did not answer within 20 s"
-    if res.returncode != 0:
-        why = (res.stderr.strip().splitlines() or [f"exit {res.returncode}"])[0]
-        return f"no SLURM scheduler answers: sinfo: {why}"
-    states = set(res.stdout.split())
-    if not states & {"idle", "mixed", "allocated", "completing"}:
-        return f"SLURM answers but no node can run jobs (node states: {', '.join(sorted(states)) or 'none'})"
-    return ""
 
 
 @pytest.fixture

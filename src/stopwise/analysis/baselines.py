@@ -44,7 +44,7 @@ import time
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable, Iterable, Mapping
+from typing import Any, Callable, Iterable, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -509,12 +509,15 @@ _CONVENTIONS = {
 }
 
 
-def _campaign_specs(store: Store, campaign: str | None) -> list[dict[str, Any]]:
-    """Distinct data specs (dataset, split, seed) of a campaign's stored runs."""
+def _campaign_specs(store: Store, campaign: str | Sequence[str] | None) -> list[dict[str, Any]]:
+    """Distinct data specs (dataset, split, seed) of a campaign's stored runs (of several
+    campaigns: of the union of their runs)."""
+    from stopwise.analysis.selection import campaign_run_ids, find_campaigns
+
     if campaign is None:
         files = store.run_files()
     else:
-        files = store.run_files(store.find_campaign(campaign)["run_ids"])
+        files = store.run_files(campaign_run_ids(find_campaigns(store, campaign)))
     out: list[dict[str, Any]] = []
     seen: set[str] = set()
     from stopwise.config.spec import canonical_json
@@ -533,7 +536,7 @@ def _campaign_specs(store: Store, campaign: str | None) -> list[dict[str, Any]]:
     return out
 
 
-def ensure_baselines(root: str | Path, campaign: str | None,
+def ensure_baselines(root: str | Path, campaign: str | Sequence[str] | None,
                      methods: Iterable[str | tuple[str, Mapping[str, Any]]] | None = None) -> pd.DataFrame:
     """Compute (or reuse) baselines for every distinct (dataset, split, seed) of a campaign.
 
@@ -557,7 +560,7 @@ def ensure_baselines(root: str | Path, campaign: str | None,
     return load_baselines(root, campaign)
 
 
-def load_baselines(root: str | Path = "results", campaign: str | None = None) -> pd.DataFrame:
+def load_baselines(root: str | Path = "results", campaign: str | Sequence[str] | None = None) -> pd.DataFrame:
     """Every stored baseline row (one per penalty) as a DataFrame.
 
     With ``campaign``, only baselines computed on a (dataset, split, seed) of that

@@ -199,20 +199,61 @@ def _fmt_value(v: Any) -> str:
     return str(v)
 
 
+def solver_defaults(solver: Any) -> dict[str, Any]:
+    """Default value of every parameter the registered solver ``solver`` declares (its params
+    dataclass); ``{}`` for a name no solver is registered under."""
+    import dataclasses
+
+    from stopwise.solvers import SOLVERS
+
+    if not isinstance(solver, str) or solver not in SOLVERS:
+        return {}
+    return {f.name: f.default for f in dataclasses.fields(SOLVERS[solver].params)
+            if f.default is not dataclasses.MISSING}
+
+
+def _same(a: Any, b: Any) -> bool:
+    try:
+        return bool(a == b) or (isinstance(a, (int, float)) and isinstance(b, (int, float))
+                                and float(a) == float(b))
+    except (TypeError, ValueError):
+        return False
+
+
+def _missing(v: Any) -> bool:
+    return v is None or (isinstance(v, float) and math.isnan(v)) or v is pd.NA
+
+
 def config_labels(df: pd.DataFrame, params: Sequence[str]) -> pd.Series:
-    """``"step_scale=0.5 momentum=0.9"`` for each row (parameters that are null are left out)."""
+    """``"step_scale=0.5 momentum=0.9"`` for each row: the parameters that vary among the rows
+    of the same solver, and those whose value differs from the solver's default (read from its
+    registered params dataclass). A parameter at its default that every row of the solver
+    shares says nothing about the configuration and is left out; so are nulls. Without a
+    ``solver`` column every non-null parameter is listed. ``(default)`` when nothing is left.
+
+    >>> df = pd.DataFrame({"solver": ["heavy_ball", "heavy_ball"], "step_scale": [0.5, 1.0],
+    ...                    "momentum": [0.5, 0.5]})
+    >>> config_labels(df, ["step_scale", "momentum"]).tolist()
+    ['step_scale=0.5', 'step_scale=1']
+    """
     if not params or df.empty:
         return pd.Series(["(default)"] * len(df), index=df.index, dtype=object)
-    parts = []
-    for p in params:
-        col = df[p]
-        s = col.map(lambda v, p=p: "" if v is None or (isinstance(v, float) and math.isnan(v)) else f"{p}={_fmt_value(v)}")
-        parts.append(s)
-    out = parts[0]
-    for s in parts[1:]:
-        out = out.str.cat(s, sep=" ")
-    out = out.str.split().str.join(" ")
-    return out.where(out != "", "(default)")
+    solvers = df["solver"] if "solver" in df.columns else pd.Series([None] * len(df), index=df.index)
+    keep: dict[Any, tuple[set[str], dict[str, Any]]] = {}
+    for sv, g in df.groupby(solvers.map(lambda v: "" if _missing(v) else v), sort=False):
+        varying = {p for p in params if g[p].map(lambda v: None if _missing(v) else repr(v)).dropna().nunique() > 1}
+        keep[sv] = (varying, solver_defaults(sv) if sv != "" else {})
+    labels = []
+    for sv, row in zip(solvers.map(lambda v: "" if _missing(v) else v), df[list(params)].itertuples(index=False)):
+        varying, defaults = keep[sv]
+        parts = []
+        for p, v in zip(params, row):
+            if _missing(v):
+                continue
+            if sv == "" or p in varying or p not in defaults or not _same(v, defaults[p]):
+                parts.append(f"{p}={_fmt_value(v)}")
+        labels.append(" ".join(parts) or "(default)")
+    return pd.Series(labels, index=df.index, dtype=object)
 
 
 def method_labels(df: pd.DataFrame, method_by: Sequence[str]) -> pd.Series:
@@ -705,34 +746,40 @@ class CampaignData:
     """What ranking and the report read from a results root for one campaign."""
 
     root: Path
-    campaign: str
+    campaign: str | tuple[str, ...]  # one campaign reference, or several (the union of their runs)
     rule: str                      # label of the ranked rule
     selections: pd.DataFrame       # every requested rule
     baselines: pd.DataFrame | None
     references: pd.DataFrame | None
 
 
-def gather(root: str | Path, campaign: str, rule: str | Mapping[str, Any] = "holdout",
+def gather(root: str | Path, campaign: str | Sequence[str], rule: str | Mapping[str, Any] = "holdout",
            extra_rules: Iterable[Any] = (), baselines: str = "ensure", references: bool = True,
            method_by: Sequence[str] = ("solver",), params: Iterable[str] | None = None,
            **options: Any) -> CampaignData:
     """Selections (the ranked rule plus ``extra_rules``), explicit baselines and references.
+
+    ``campaign`` is a campaign name or id, or several: then the union of their runs (a run
+    that two campaigns hold counts once) is one campaign, and a method is defined once
+    across them.
 
     ``baselines``: ``ensure`` (compute the missing ones for every dataset, split and seed of
     the campaign, reuse stored ones), ``stored`` (only what is stored) or ``none``. Every
     option is checked (``options`` as :func:`rank` takes them) before anything is computed
     or written.
     """
-    from stopwise.analysis.selection import select
+    from stopwise.analysis.selection import campaign_list, find_campaigns, select
     from stopwise.results.store import Store, StoreError
 
     if baselines not in ("ensure", "stored", "none"):
         raise RankError(f"baselines mode {baselines!r} is invalid; valid: ensure, stored, none")
     check_options(**options)
     try:
-        Store(root).find_campaign(campaign)
+        refs = campaign_list(campaign)
+        find_campaigns(Store(root), refs)
     except StoreError as e:
         raise RankError(str(e)) from None
+    campaign = refs[0] if len(refs) == 1 else tuple(refs)
     main = rule_spec(rule)
     if main["rule"] == "oracle":
         raise RankError("stopping rule 'oracle' is a reference (it reads test error) and never ranks as a method; "
@@ -740,7 +787,7 @@ def gather(root: str | Path, campaign: str, rule: str | Mapping[str, Any] = "hol
     specs = [main] + [rule_spec(r) for r in extra_rules]
     sel = select(root, campaign, rules=[{"rule": s["rule"], "params": s["params"]} for s in specs])
     if sel.empty:
-        raise RankError(f"campaign {campaign!r} has no stored runs under {root}; run it first with stopwise sweep")
+        raise RankError(f"campaign {' + '.join(refs)} has no stored runs under {root}; run it first with stopwise sweep")
     _require(sel, tuple(method_by), "the selection table")
     param_columns(sel, tuple(method_by), params)
     bl = None
@@ -790,11 +837,13 @@ def mark_protocols(references: pd.DataFrame, root: str | Path, selections: pd.Da
     return references.assign(protocol_matches=match)
 
 
-def rank_campaign(root: str | Path = "results", campaign: str = "", rule: str | Mapping[str, Any] = "holdout", *,
+def rank_campaign(root: str | Path = "results", campaign: str | Sequence[str] = "",
+                  rule: str | Mapping[str, Any] = "holdout", *,
                   baselines: str = "ensure", data: CampaignData | None = None, **options: Any) -> Ranking:
     """Rank a stored campaign: select with ``rule`` on every trace, tune on validation
     error, read only the tuned runs' ``run_id, iteration, passes, test_error`` columns, and
-    aggregate (``options`` go to :func:`rank`).
+    aggregate (``options`` go to :func:`rank`). ``campaign`` may name several campaigns:
+    their runs are ranked as one campaign holding the union of them.
 
     >>> r = rank_campaign("results", "demo", "holdout", target="baseline")   # doctest: +SKIP
     >>> print(stopwise.report.tables.render(r, "markdown"))                          # doctest: +SKIP
@@ -805,6 +854,6 @@ def rank_campaign(root: str | Path = "results", campaign: str = "", rule: str | 
                 baselines=data.baselines, references=data.references, include_baselines=include, **options)
 
 __all__ = ["Ranking", "RankError", "Target", "baseline_levels", "config_labels", "param_columns",
-           "passes_to_target", "rank", "reference_levels", "summarize", "tune", "StatsError",
+           "passes_to_target", "rank", "reference_levels", "solver_defaults", "summarize", "tune", "StatsError",
            "performance_ratios", "CampaignData", "gather", "rank_campaign", "read_traces",
            "rule_spec", "check_options", "mark_protocols"]

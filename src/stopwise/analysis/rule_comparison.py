@@ -23,7 +23,9 @@ Per (dataset, method, configuration, rule) the table holds the median relative e
 seeds, mean excess, median passes, and the shares that did not stop and stopped at
 iteration 0. Rules are then ranked across datasets with the statistics methods are ranked
 with (average ranks, Friedman, Iman-Davenport, Nemenyi; Demsar 2006): a dataset's score
-for a rule is the median relative error over its paths. A rule that is not applicable
+for a rule is the median relative error over its paths. Every pair of ranked rules is also
+compared with the Wilcoxon signed-rank test over those datasets, Holm-corrected, as methods
+are. A rule that is not applicable
 on some dataset (or has no finite score there) is left out of the rank test with a note
 that names the dataset and the reason: it is not counted as a tie. The rank test takes the rules that
 apply on every dataset; when fewer than two do, it takes every rule on the datasets where
@@ -38,7 +40,7 @@ from typing import Any, Iterable, Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from stopwise.analysis.rankstats import RankTest, StatsError, friedman_test, rank_table
+from stopwise.analysis.rankstats import RankTest, StatsError, friedman_test, pairwise_wilcoxon, rank_table
 
 COMPARISON_COLUMNS = ("dataset", "method", "config", "rule", "runs", "applicable", "relative_error",
                       "excess_error", "passes_spent", "not_stopped", "stopped_at_0")
@@ -56,6 +58,10 @@ class RuleComparison:
     ``test``     Friedman / Nemenyi statistics (None with fewer than 2 rules or datasets).
     ``summary``  one row per rule: median relative error, median passes, shares not
                  stopped / at 0 / not applicable over every run, average rank.
+    ``pairwise`` Wilcoxon signed-rank test of every pair of ranked rules over the ranked
+                 datasets, Holm-corrected (the function methods are compared with:
+                 :func:`stopwise.analysis.rankstats.pairwise_wilcoxon`; columns ``method_a``,
+                 ``method_b`` name the rules); empty with fewer than 2 rules or datasets.
     """
 
     rules: tuple[str, ...]
@@ -66,6 +72,7 @@ class RuleComparison:
     test: RankTest | None
     summary: pd.DataFrame
     notes: list[str] = field(default_factory=list)
+    pairwise: pd.DataFrame = field(default_factory=pd.DataFrame)
 
 
 def default_rules(campaign_rules: Iterable[Any] = ()) -> list[dict[str, Any]]:
@@ -166,12 +173,18 @@ def compare_rules(selections: pd.DataFrame, method_by: Sequence[str] = ("solver"
                   passes_spent=("passes_spent", _median), not_stopped=("not_stopped", "sum"),
                   stopped_at_0=("at0", "sum"))
              .reset_index())
+    # one order whatever order the runs were listed in (a campaign, or several): datasets,
+    # methods and configurations sorted, rules in the order they were given
+    position = {r: i for i, r in enumerate(rules)}
+    table = (table.assign(_rule=table["rule"].map(position))
+             .sort_values(["dataset", "method", "config", "_rule"], kind="stable")
+             .drop(columns="_rule").reset_index(drop=True))
     for c in ("not_stopped", "stopped_at_0"):  # shares of the runs where the rule applies
         with np.errstate(divide="ignore", invalid="ignore"):
             table[c] = np.where(table["applicable"] > 0, table[c] / table["applicable"].where(table["applicable"] > 0),
                                 np.nan)
     scores = (table.groupby(["dataset", "rule"], sort=False)["relative_error"].agg(_median)
-              .unstack("rule").reindex(columns=list(rules)))
+              .unstack("rule").reindex(columns=list(rules)).sort_index())
     finite = scores.apply(lambda col: np.isfinite(col.to_numpy(float)))
     everywhere = [r for r in rules if bool(finite[r].all())]
     if len(everywhere) >= 2 or len(rules) < 2:
@@ -194,8 +207,10 @@ def compare_rules(selections: pd.DataFrame, method_by: Sequence[str] = ("solver"
     ranked = scores.loc[kept, ranked_rules]
     ranks = rank_table(ranked) if len(kept) and len(ranked_rules) else pd.DataFrame()
     test = None
+    pairwise = pd.DataFrame()
     if len(ranked_rules) >= 2 and len(kept) >= 2:
         test = friedman_test(ranked, alpha)
+        pairwise = pairwise_wilcoxon(ranked, alpha)
     elif len(rules) >= 2:
         notes.append(f"no rank test: {len(ranked_rules)} rule(s) on {len(kept)} dataset(s) where they all apply "
                      "(needs 2 and 2)")
@@ -209,7 +224,8 @@ def compare_rules(selections: pd.DataFrame, method_by: Sequence[str] = ("solver"
         "average_rank": [float(ranks[r].mean()) if r in getattr(ranks, "columns", []) and len(ranks) else math.nan
                          for r in rules],
     })
-    return RuleComparison(rules, runs, table[list(COMPARISON_COLUMNS)], scores, ranks, test, summary, notes)
+    return RuleComparison(rules, runs, table[list(COMPARISON_COLUMNS)], scores, ranks, test, summary, notes,
+                          pairwise)
 
 
 def _share(g: pd.DataFrame, rule: str, col: str) -> float:
@@ -225,20 +241,21 @@ def _why(runs: pd.DataFrame, dataset: Any, rule: str) -> str:
     return "no finite relative error"
 
 
-def compare_campaign(root: Any = "results", campaign: str = "", rules: Iterable[Any] | None = None,
+def compare_campaign(root: Any = "results", campaign: str | Sequence[str] = "", rules: Iterable[Any] | None = None,
                      method_by: Sequence[str] = ("solver",), params: Sequence[str] | None = None,
                      alpha: float = 0.05) -> RuleComparison:
-    """:func:`compare_rules` on a stored campaign: ``rules`` default to the campaign's own
-    rules and every registered rule at its defaults (:func:`default_rules`).
+    """:func:`compare_rules` on a stored campaign, or on the union of several campaigns' runs:
+    ``rules`` default to the campaigns' own rules and every registered rule at its defaults
+    (:func:`default_rules`).
 
     >>> c = compare_campaign("results", "demo")          # doctest: +SKIP
     >>> c.summary                                        # doctest: +SKIP
     """
-    from stopwise.analysis.selection import select
+    from stopwise.analysis.selection import find_campaigns, select
     from stopwise.results.store import Store
 
     if rules is None:
-        listed = Store(root).find_campaign(campaign).get("stopping") or []
+        listed = [r for m in find_campaigns(Store(root), campaign) for r in (m.get("stopping") or [])]
         rules = default_rules([{"rule": r.get("rule"), "params": r.get("params") or {}}
                                for r in listed if isinstance(r, Mapping)])
     specs = [{"rule": r["rule"], "params": r.get("params") or {}} if isinstance(r, Mapping) else r for r in rules]

@@ -8,7 +8,7 @@ from __future__ import annotations
 import math
 import warnings
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any, Iterable, Sequence
 
 import numpy as np
 import pandas as pd
@@ -52,9 +52,38 @@ def _check_file_names(loaded: list) -> None:
                                    "file under its own dataset.name")
 
 
-def _campaign_rules(store: Store, campaign: str | None, metas: list[dict]) -> list[Any]:
+def campaign_list(campaign: str | Sequence[str] | None) -> list[str] | None:
+    """One campaign reference or several, as a list (``None`` stays None: every stored run).
+
+    >>> campaign_list("demo"), campaign_list(["a", "b", "a"]), campaign_list(None)
+    (['demo'], ['a', 'b'], None)
+    """
+    if campaign is None:
+        return None
+    refs = [campaign] if isinstance(campaign, str) else [str(c) for c in campaign]
+    if not refs:
+        raise StoreError("no campaign named: give at least one campaign name or id")
+    return list(dict.fromkeys(refs))
+
+
+def find_campaigns(store: Store, campaign: str | Sequence[str]) -> list[dict[str, Any]]:
+    """The manifest of each named campaign (by name or id), each once even when named twice."""
+    out: dict[str, dict[str, Any]] = {}
+    for ref in campaign_list(campaign) or []:
+        m = store.find_campaign(ref)
+        out.setdefault(str(m["campaign_id"]), m)
+    return list(out.values())
+
+
+def campaign_run_ids(manifests: Sequence[dict[str, Any]]) -> list[str]:
+    """The union of the campaigns' runs, in the order they are first listed: a run that
+    several campaigns hold (the same run id) counts once."""
+    return list(dict.fromkeys(str(r) for m in manifests for r in m.get("run_ids", [])))
+
+
+def _campaign_rules(store: Store, campaign: str | Sequence[str] | None, metas: list[dict]) -> list[Any]:
     if campaign is not None:
-        listed = store.find_campaign(campaign).get("stopping") or []
+        listed = [r for m in find_campaigns(store, campaign) for r in (m.get("stopping") or [])]
     else:
         listed = [(m.get("config") or {}).get("stopping") for m in metas]
     rules = [{"rule": r.get("rule"), "params": r.get("params") or {}} for r in listed if isinstance(r, dict)]
@@ -77,9 +106,12 @@ def _read(store: Store, rid: str) -> tuple[dict | None, pd.DataFrame | None, str
     return meta, table.to_pandas(), ""
 
 
-def select(root: str | Path = "results", campaign: str | None = None,
+def select(root: str | Path = "results", campaign: str | Sequence[str] | None = None,
            rules: Iterable[Any] | None = None) -> pd.DataFrame:
     """Evaluate stopping rules on stored traces; one row per (run, rule).
+
+    ``campaign``: a campaign name or id, several of them (the union of their runs, each run
+    once), or None for every stored run.
 
     ``rules``: rule names, ``{"rule": NAME, "params": {...}}`` mappings or ``(NAME, params)``
     pairs. ``None`` means the rules named in the campaign manifest's ``stopping`` list
@@ -98,7 +130,7 @@ def select(root: str | Path = "results", campaign: str | None = None,
     """
     store = Store(root)
     if campaign is not None:
-        run_ids = list(store.find_campaign(campaign)["run_ids"])
+        run_ids = campaign_run_ids(find_campaigns(store, campaign))
     else:
         run_ids = [p.stem for p in store.run_files()]
     loaded = [(rid, *_read(store, rid)) for rid in run_ids]
@@ -189,4 +221,5 @@ def format_table(df: pd.DataFrame) -> str:
         return show.to_string(index=False, na_rep="-")
 
 
-__all__ = ["SELECT_COLUMNS", "select", "parse_rule_arg", "format_table", "StoreError"]
+__all__ = ["SELECT_COLUMNS", "campaign_list", "campaign_run_ids", "find_campaigns", "select", "parse_rule_arg",
+           "format_table", "StoreError"]

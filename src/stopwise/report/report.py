@@ -9,6 +9,7 @@ Layout of the output folder::
     ranks.csv, tests.csv, pairwise.csv
     rules.csv           stopping rules compared, per (dataset, method, configuration, rule)
     rules_per_run.csv   the same per (run, rule)
+    rules_pairwise.csv  pairwise Wilcoxon signed-rank tests of the rules, Holm-corrected
     figures/<name>.png  every figure the page shows
 
 Everything is computed before the first file is written; each file is written
@@ -23,14 +24,15 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Sequence
 
+import numpy as np
 import pandas as pd
 
 from stopwise.core.version import __version__
 from stopwise.report.figures import Plot
 from stopwise.analysis.rank import Ranking
 from stopwise.results.store import write_folder
-from stopwise.report.tables import (display_tables, heading, render_rules, rules_frame, rules_scores_frame, to_csv,
-                                    to_markdown)
+from stopwise.report.tables import (display_tables, heading, render_rules, rules_frame, rules_pairwise_frame,
+                                    rules_scores_frame, to_csv, to_markdown)
 
 FIGURE_DIR = "figures"
 
@@ -123,6 +125,10 @@ def render_html(page: ReportPage) -> str:
             parts.append("<h3>Rank tests of the rules (Friedman, Iman-Davenport, Nemenyi)</h3>")
             from stopwise.report.tables import num
             parts.append(_html_table(c.test.as_frame().assign(value=lambda f: f["value"].map(num))))
+        pw = rules_pairwise_frame(c)
+        if not pw.empty:
+            parts.append("<h3>Pairwise Wilcoxon signed-rank tests of the rules over datasets, Holm-corrected</h3>")
+            parts.append(_html_table(pw))
         if c.notes:
             parts.append('<ul class="notes">' + "".join(f"<li>{esc(n)}</li>" for n in c.notes) + "</ul>")
     parts.append("<h2>Figures</h2>")
@@ -174,6 +180,9 @@ def write_report(page: ReportPage, out_dir: str | Path) -> Path:
     if page.rules is not None:
         files.append((out / "rules.csv", to_csv(page.rules.table).encode()))
         files.append((out / "rules_per_run.csv", to_csv(page.rules.per_run).encode()))
+        pw = rules_pairwise_frame(page.rules, raw=True)
+        if not pw.empty:
+            files.append((out / "rules_pairwise.csv", to_csv(pw).encode()))
     files.append((out / "tables.md", render_markdown(page).encode()))
     files.append((out / "index.html", render_html(page).encode()))  # last: the page appears when all is there
     # a page is for reading: not the 0600 of a temporary file; checksums.json lets verify name a changed byte
@@ -188,29 +197,47 @@ def _umask() -> int:
 
 
 def standard_plots(ranking: Ranking, *, traces: pd.DataFrame | None = None, selections: pd.DataFrame | None = None,
-                   implicit_panels: Sequence[dict] = (), method_by: str = "solver") -> tuple[list[Plot], list[str]]:
+                   implicit_panels: Sequence[dict] = (), method_by: str = "solver",
+                   tasks: dict[str, str] | None = None, margin_traces: pd.DataFrame | None = None,
+                   hard_margins: dict[str, float] | None = None) -> tuple[list[Plot], list[str]]:
     """The report's figures from the ranking and its inputs; figures that cannot be drawn
-    (no traces, fewer than two datasets, ...) are left out with a note saying why."""
+    (no traces, fewer than two datasets, ...) are left out with a note saying why.
+
+    ``traces`` hold the tuned runs of every seed (run_id, passes, test_error); ``tasks``
+    maps each dataset to its task (it names the error metric on the axes);
+    ``margin_traces`` (run_id, passes, margin, svm_dist) and ``hard_margins`` (per dataset
+    1/||w*||) give the classification datasets their margin curves."""
     from stopwise.report import figures as F
+    from stopwise.report.tables import winners
 
     plots: list[Plot] = []
     notes: list[str] = []
     r = ranking
+    best = {str(d): tuple(map(str, ms)) for d, ms in winners(r).items()}
     rep = r.replicates
     tuned = rep[(rep["kind"] == "iterative") & rep["valid"].astype(bool)]
-    first = tuned.sort_values("seed", kind="stable").groupby(["dataset", "method"], sort=True).head(1)
-    if traces is not None and selections is not None and not first.empty:
-        stops = selections[selections["run_id"].isin(first["run_id"])]
-        plots.append(F.curves(traces, first, stops, r.rule))
+    if traces is not None and selections is not None and not tuned.empty:
+        stops = selections[selections["run_id"].isin(tuned["run_id"])]
+        plots.append(F.curves(traces, tuned, stops, r.rule, best, tasks))
     else:
         notes.append("error-versus-passes curves left out: no traces of the tuned runs")
+    classify = sorted(d for d, t in (tasks or {}).items() if t in ("binary", "multiclass"))
+    if classify:
+        ct = tuned[tuned["dataset"].astype(str).isin(classify)]
+        has = (margin_traces is not None and "margin" in margin_traces.columns
+               and np.isfinite(margin_traces["margin"].to_numpy(dtype=float)).any())
+        if has and not ct.empty:
+            plots.append(F.margin_curves(margin_traces, ct, hard_margins, best))
+        else:
+            notes.append("margin curves left out: the tuned runs' traces of " + ", ".join(classify)
+                         + " carry no normalized margin")
     if implicit_panels:
         plots.append(F.implicit_explicit(list(implicit_panels)))
     else:
         notes.append("implicit-versus-explicit figure left out: needs a gradient descent run and a ridge "
                      "path on the same dataset and seed")
     if not r.performance.empty:
-        plots.append(F.profiles(r.performance, r.data, r.target.describe(), r.unit))
+        plots.append(F.profiles(r.performance, r.data, r.target.describe(), r.unit, best))
     else:
         notes.append("profiles left out: no target or no passes to target")
     if r.test is not None:
@@ -218,12 +245,39 @@ def standard_plots(ranking: Ranking, *, traces: pd.DataFrame | None = None, sele
     else:
         notes.append("critical-difference diagram left out: needs at least 2 datasets and 2 methods")
     if selections is not None:
-        hm = F.heatmaps(selections, r.rule, r.params, method_by=method_by)
+        hm = F.heatmaps(selections, r.rule, r.params, method_by=method_by, winners=best, tasks=tasks)
         if hm is not None:
             plots.append(hm)
         else:
             notes.append("heat maps left out: no method has a parameter that varies")
     return plots, notes
+
+
+def dataset_tasks(store, selections: pd.DataFrame) -> dict[str, str]:
+    """Each dataset's task, from the metadata of its first readable stored run."""
+    out: dict[str, str] = {}
+    for d, g in selections.groupby("dataset", sort=True):
+        for rid in g["run_id"].drop_duplicates():
+            task = ((store.run_meta(str(rid)) or {}).get("problem") or {}).get("task")
+            if task:
+                out[str(d)] = str(task)
+                break
+    return out
+
+
+def hard_margin_values(store, tuned: pd.DataFrame) -> dict[str, float]:
+    """Per dataset, the median over its tuned runs' splits of the hard-margin value
+    ``1/||w*||`` stored in each run's metadata (separable training rows only)."""
+    out: dict[str, float] = {}
+    for d, g in tuned.groupby("dataset", sort=True):
+        vals = []
+        for rid in g["run_id"].drop_duplicates():
+            v = ((store.run_meta(str(rid)) or {}).get("problem") or {}).get("svm_margin")
+            if isinstance(v, (int, float)) and np.isfinite(v):
+                vals.append(float(v))
+        if vals:
+            out[str(d)] = float(np.median(vals))
+    return out
 
 
 # ---------------------------------------------------------------- a stored campaign
@@ -279,7 +333,7 @@ def definition_text(manifest: dict) -> str:
     """The campaign as it was defined: its file (when it had one), the command-line
     overrides and the sweep that the expansion took."""
     d = manifest.get("definition") or {}
-    out = []
+    out = [f"# campaign {manifest.get('name', '?')} ({str(manifest.get('campaign_id', ''))[:16]})"]
     if d.get("campaign_file"):
         out += [f"# campaign file of {d.get('campaign')}", str(d["campaign_file"]).rstrip()]
     if d.get("overrides"):
@@ -340,47 +394,74 @@ def environment_lines(store, manifest: dict) -> list[str]:
     return lines
 
 
-def report_campaign(root: str | Path = "results", campaign: str = "", out: str | Path | None = None,
+def report_campaign(root: str | Path = "results", campaign: str | Sequence[str] = "", out: str | Path | None = None,
                     rule: str = "holdout", marked_rules: Sequence[str] | None = None, baselines: str = "ensure",
                     **options) -> Path:
     """Rank a stored campaign and write its report folder; returns the path of index.html.
 
+    ``campaign`` may name several campaigns: they are ranked as one campaign holding the
+    union of their runs (a run two of them hold counts once), and the page states each.
     ``marked_rules`` are the rules whose stopping points the curves show (default: the
-    rules the campaign named, and the oracle as a reference). ``options`` go to
+    rules the campaigns named, and the oracle as a reference). ``options`` go to
     :func:`stopwise.analysis.rank.rank` (target, eps, tau, by, alpha, confidence, tuning, unit, ...).
     """
     from stopwise.analysis.rank import gather, rank_campaign, read_traces, rule_spec
+    from stopwise.analysis.selection import campaign_list, campaign_run_ids, find_campaigns
     from stopwise.results.store import Store
 
     main = rule_spec(rule)
     store = Store(root)
-    manifest = store.find_campaign(campaign)
-    if marked_rules is None:  # the rules the campaign named, and the oracle as a reference
+    refs = campaign_list(campaign) or []
+    manifests = find_campaigns(store, refs)
+    which = refs[0] if len(refs) == 1 else tuple(refs)
+    if marked_rules is None:  # the rules the campaigns named, and the oracle as a reference
         named = [{"rule": r.get("rule"), "params": r.get("params") or {}}
-                 for r in manifest.get("stopping") or [] if isinstance(r, dict) and r.get("rule")]
+                 for m in manifests for r in m.get("stopping") or [] if isinstance(r, dict) and r.get("rule")]
         marked_rules = [*named, "oracle"]
-    extra = [r for r in marked_rules if rule_spec(r)["label"] != main["label"]]
-    data = gather(root, campaign, rule, extra_rules=extra, baselines=baselines)
-    ranking = rank_campaign(root, campaign, rule, data=data, **options)
+    extra = list({rule_spec(r)["label"]: r for r in marked_rules if rule_spec(r)["label"] != main["label"]}.values())
+    data = gather(root, which, rule, extra_rules=extra, baselines=baselines)
+    ranking = rank_campaign(root, which, rule, data=data, **options)
     rep = ranking.replicates
     tuned = rep[(rep["kind"] == "iterative") & rep["valid"].astype(bool)]
-    first = tuned.sort_values("seed", kind="stable").groupby(["dataset", "method"]).head(1)
-    traces = read_traces(data.root, first["run_id"], ("run_id", "iteration", "passes", "test_error"))
+    traces = read_traces(data.root, tuned["run_id"], ("run_id", "iteration", "passes", "test_error"))
+    tasks = dataset_tasks(store, data.selections)
+    classify = [d for d, t in tasks.items() if t in ("binary", "multiclass")]
+    ct = tuned[tuned["dataset"].astype(str).isin(classify)]
+    margin_traces = read_traces(data.root, ct["run_id"], ("run_id", "passes", "margin", "svm_dist")) if len(ct) \
+        else None
     plots, notes = standard_plots(ranking, traces=traces, selections=data.selections,
-                                  implicit_panels=implicit_panels(data, data.rule))
-    n_runs = len(manifest.get("run_ids", []))
-    status = data.selections.drop_duplicates("run_id")["status"].value_counts()
-    context = [f"Campaign {manifest.get('name', campaign)} ({str(manifest.get('campaign_id', ''))[:16]}) under "
-               f"{Path(root)}: {n_runs} runs (" + ", ".join(f"{v} {k}" for k, v in status.items()) + ").",
-               f"Seeds are repeated random splits and initializations; intervals are percentile bootstrap intervals "
-               f"of the mean over seeds at {ranking.confidence:g} (Efron and Tibshirani 1993; 9999 resamples), "
-               f"shown only with at least 3 seeds. Stopping points are marked for rules: "
-               + ", ".join(dict.fromkeys([data.rule] + [rule_spec(r)["label"] for r in extra])) + "."]
+                                  implicit_panels=implicit_panels(data, data.rule), tasks=tasks,
+                                  margin_traces=margin_traces, hard_margins=hard_margin_values(store, ct))
+    union = campaign_run_ids(manifests)
+    first = data.selections.drop_duplicates("run_id")
+    status_of = dict(zip(first["run_id"].astype(str).str[:16], first["status"]))
+
+    def by_status(ids) -> str:
+        counts: dict[str, int] = {}
+        for rid in ids:
+            k = str(status_of.get(str(rid)[:16], "missing"))
+            counts[k] = counts.get(k, 0) + 1
+        return ", ".join(f"{v} {k}" for k, v in sorted(counts.items(), key=lambda kv: -kv[1]))
+
+    names = [str(m.get("name", "?")) for m in manifests]
+    context = [f"Campaign {m.get('name', '?')} ({str(m.get('campaign_id', ''))[:16]}) under {Path(root)}: "
+               f"{len(m.get('run_ids', []))} runs ({by_status(m.get('run_ids', []))})." for m in manifests]
+    if len(manifests) > 1:
+        shared = sum(len(set(m.get("run_ids", []))) for m in manifests) - len(union)
+        context.append(f"{len(manifests)} campaigns ranked as one: the union of their runs, {len(union)} distinct runs "
+                       f"({by_status(union)}); {shared} run{'s' if shared != 1 else ''} listed by more than one "
+                       f"campaign count{'s' if shared == 1 else ''} once, and a method is defined once across them.")
+    context.append(
+        f"Seeds are repeated random splits and initializations; intervals are percentile bootstrap intervals "
+        f"of the mean over seeds at {ranking.confidence:g} (Efron and Tibshirani 1993; 9999 resamples), "
+        f"shown only with at least 3 seeds. Curves show the median over seeds with the range over seeds shaded. "
+        f"Stopping points are marked for rules: "
+        + ", ".join(dict.fromkeys([data.rule] + [rule_spec(r)["label"] for r in extra])) + ".")
     from stopwise.analysis.rule_comparison import compare_campaign
     from stopwise.report import figures as F
 
     method_by = tuple(options.get("method_by") or ("solver",))
-    rules = compare_campaign(root, campaign, method_by=method_by, params=options.get("params"),
+    rules = compare_campaign(root, which, method_by=method_by, params=options.get("params"),
                              alpha=options.get("alpha", 0.05))
     if len(rules.per_run):
         plots.append(F.rule_comparison(rules.per_run, rules.rules))
@@ -388,12 +469,14 @@ def report_campaign(root: str | Path = "results", campaign: str = "", out: str |
         cd = F.critical_difference_diagram(rules.test, "test error relative to the oracle")
         plots.append(F.Plot("critical_difference_rules", cd.caption.replace("each method", "each stopping rule")
                             .replace("methods whose", "rules whose"), cd.alt, cd.png))
-    context += environment_lines(store, manifest)
-    page = ReportPage(f"stopwise report: campaign {manifest.get('name', campaign)}", ranking, plots, context, notes,
-                      rules, definition_text(manifest))
-    target = Path(out) if out is not None else Path(root) / "reports" / str(manifest.get("name", campaign))
+    context += environment_lines(store, {"run_ids": union})
+    definition = "\n\n".join(definition_text(m) for m in manifests) if len(manifests) > 1 else definition_text(manifests[0])
+    title = (f"stopwise report: campaign {names[0]}" if len(names) == 1
+             else f"stopwise report: campaigns {' + '.join(names)}")
+    page = ReportPage(title, ranking, plots, context, notes, rules, definition)
+    target = Path(out) if out is not None else Path(root) / "reports" / "+".join(names)
     return write_report(page, target)
 
 
-__all__ = ["MARKED_RULES", "ReportPage", "implicit_panels", "render_html", "render_markdown", "report_campaign",
-           "standard_plots", "write_report"]
+__all__ = ["MARKED_RULES", "ReportPage", "dataset_tasks", "hard_margin_values", "implicit_panels", "render_html",
+           "render_markdown", "report_campaign", "standard_plots", "write_report"]

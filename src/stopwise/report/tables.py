@@ -92,7 +92,12 @@ def winners(r: Ranking) -> dict[Any, tuple]:
 
 def pairwise_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
     """The Holm-corrected pairwise Wilcoxon signed-rank tests of a ranking."""
-    f = r.pairwise
+    return _pairwise_display(r.pairwise, r.test.alpha if r.test is not None else None, "method", raw)
+
+
+def _pairwise_display(f: pd.DataFrame, alpha: float | None, what: str, raw: bool = False) -> pd.DataFrame:
+    """A :func:`~stopwise.analysis.rankstats.pairwise_wilcoxon` table for display; ``what``
+    names the compared things (``method``, ``rule``)."""
     if raw or f.empty:
         return f
     f = f.copy()
@@ -100,9 +105,19 @@ def pairwise_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
         f[c] = f[c].map(num)
     f["significant"] = f["significant"].map(lambda v: "yes" if v else "no")
     f["better"] = f["better"].replace("", "-")
-    return f.rename(columns={"method_a": "method a", "method_b": "method b", "r_plus": "R+", "r_minus": "R-",
-                             "p_holm": "p (Holm)", "significant": f"significant at {r.test.alpha:g}"
-                             if r.test is not None else "significant"})
+    return f.rename(columns={"method_a": f"{what} a", "method_b": f"{what} b", "r_plus": "R+", "r_minus": "R-",
+                             "p_holm": "p (Holm)", "significant": f"significant at {alpha:g}"
+                             if alpha is not None else "significant"})
+
+
+def rules_pairwise_frame(c: Any, raw: bool = False) -> pd.DataFrame:
+    """Pairwise Wilcoxon signed-rank tests of the stopping rules over datasets, Holm-corrected."""
+    f = getattr(c, "pairwise", None)
+    if f is None or f.empty:
+        return pd.DataFrame()
+    if raw:
+        return f.rename(columns={"method_a": "rule_a", "method_b": "rule_b"})
+    return _pairwise_display(f, c.test.alpha if c.test is not None else None, "rule")
 
 
 def ranks_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
@@ -175,6 +190,9 @@ def render_rules(c: Any, fmt: str = "text") -> str:
             out += ["", "per dataset: median over paths of error / oracle", to_text(sc)]
         if test is not None:
             out += ["", "rank tests of the rules (Friedman, Iman-Davenport, Nemenyi)", to_text(test)]
+        pw = rules_pairwise_frame(c)
+        if not pw.empty:
+            out += ["", "pairwise Wilcoxon signed-rank tests of the rules over datasets, Holm-corrected", to_text(pw)]
         out += [f"note: {n}" for n in c.notes]
         return "\n".join(out) + "\n"
     out = [f"_{title}_", "", to_markdown(rules_frame(c))]
@@ -183,6 +201,9 @@ def render_rules(c: Any, fmt: str = "text") -> str:
         out += ["", "#### Per dataset: median over paths of error / oracle", "", to_markdown(sc)]
     if test is not None:
         out += ["", "#### Rank tests of the rules", "", to_markdown(test)]
+    pw = rules_pairwise_frame(c)
+    if not pw.empty:
+        out += ["", "#### Pairwise Wilcoxon signed-rank tests of the rules (Holm-corrected)", "", to_markdown(pw)]
     if c.notes:
         out += [""] + [f"- note: {n}" for n in c.notes]
     return "\n".join(out) + "\n"
@@ -285,4 +306,5 @@ def render(r: Ranking, fmt: str = "text") -> str:
     return "\n".join(out) + "\n"
 
 
-__all__ = ["FORMATS", "FormatError", "display_tables", "render", "render_rules", "rules_frame", "to_csv", "to_markdown", "to_text"]
+__all__ = ["FORMATS", "FormatError", "display_tables", "render", "render_rules", "rules_frame",
+           "rules_pairwise_frame", "pairwise_frame", "to_csv", "to_markdown", "to_text"]
