@@ -63,16 +63,23 @@ def _openml_shape(data_id: int, root: Path) -> tuple[Any, Any, str, str]:
     return md.num_rows, cols, task, name
 
 
-def _file_shape(path: str) -> tuple[Any, Any]:
+def _file_shape(p: dict[str, Any]) -> tuple[Any, Any]:
+    """Rows and feature columns of a file config (an svmlight file: its matrix's shape)."""
     import pandas as pd
 
-    p = Path(path)
-    if p.suffix.lower() in (".parquet", ".pq"):
+    from stopwise.data.tabular import FileParams, _file_format, read_svmlight
+
+    params = FileParams(**p)
+    fmt = _file_format(params)
+    if fmt == "svmlight":
+        X, _, _ = read_svmlight(params)
+        return X.shape[0], X.shape[1]
+    if fmt == "parquet":
         import pyarrow.parquet as pq
 
-        md = pq.read_metadata(p)
+        md = pq.read_metadata(params.path)
         return md.num_rows, md.num_columns - 1
-    df = pd.read_csv(p)
+    df = pd.read_csv(params.path, sep=params.sep)
     return df.shape[0], df.shape[1] - 1
 
 
@@ -95,9 +102,9 @@ def describe_config(name: str, cfg: dict[str, Any]) -> Entry:
     if src_name == "file":
         if not p.get("path"):
             return Entry(name, "file", p.get("task", "auto"), "-", "-", use + " dataset.params.path=FILE dataset.params.target=COL",
-                         "template: set path and target")
+                         "template: set path (and target, for CSV / Parquet)")
         try:
-            rows, cols = _file_shape(p["path"])
+            rows, cols = _file_shape(p)
         except Exception as e:  # noqa: BLE001 - a catalog line, not a failure
             return Entry(name, "file", p.get("task", "auto"), "?", "?", use, f"unreadable: {type(e).__name__}")
         return Entry(name, "file", p.get("task", "auto"), rows, cols, use, p["path"])
