@@ -26,6 +26,11 @@ under the ROC curve has no such conversion: it is shown as published, labelled.
     gap to median = test error - median error of the uploaded runs
 
 (positive: the method's error is higher than the published one).
+
+>>> TRACE_ERROR["classification"], TRACE_ERROR["regression"]
+('misclassification rate', 'mean squared error')
+>>> list(published_table(pd.DataFrame(), None).columns[:5])
+['dataset', 'task_id', 'measure', 'method', 'test_error']
 """
 from __future__ import annotations
 
