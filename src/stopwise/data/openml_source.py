@@ -28,10 +28,7 @@ from __future__ import annotations
 
 import contextlib
 import hashlib
-import json
-import math
 import os
-import re
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass
 from pathlib import Path

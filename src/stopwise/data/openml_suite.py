@@ -37,7 +37,6 @@ from stopwise.data.openml_source import (
     openml_lock,
     openml_module,
     read_description,
-    read_task,
     resolve,
     task_kind,
     task_splits,
