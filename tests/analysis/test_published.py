@@ -61,3 +61,23 @@ def test_a_task_without_stored_scores_gets_a_note(openml_cache):
     f = published_table(table([(CANCER, "gd", 3, 3, 0.05)]), tasks())
     assert len(f) == 1 and f"stopwise datasets fetch --task {OML_TASK_CANCER}" in f["note"].iloc[0]
     assert published_table(table([]), None).empty
+
+
+def test_a_hand_made_campaign_sweeping_folds_under_one_seed_gets_no_gap(openml_cache, tmp_path):
+    """Three folds of the task under seed 0: the ranking's means are over seeds, not over the task's
+    splits, so the published scores are shown alone with the reason."""
+    from stopwise.analysis.published import task_datasets
+    from stopwise.cli import main
+    import stopwise
+
+    root = str(tmp_path / "res")
+    assert main(["sweep", "dataset=openml", f"dataset.params.task_id={OML_TASK_CANCER}", "dataset.name=cancer",
+                 "split.kind=indices", "split.fold=0,1,2", "solver=gd", "budget.iterations=5",
+                 f"results_root={root}"]) == 0
+    sel = stopwise.select(root, "adhoc")
+    (row,) = task_datasets(root, sel).itertuples()
+    assert (row.dataset, row.task_id, row.splits_run, row.splits_total, row.one_split_per_seed) == (
+        "cancer", OML_TASK_CANCER, 3, 3, False)
+    r = stopwise.rank_campaign(root, "adhoc", "holdout", baselines="none")
+    assert r.published["gap_best"].isna().all()
+    assert "some seed holds runs on two splits" in r.published["note"].iloc[0]

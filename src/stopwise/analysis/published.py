@@ -35,7 +35,7 @@ under the ROC curve has no such conversion: it is shown as published, labelled.
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -48,26 +48,40 @@ PUBLISHED_COLUMNS = ("dataset", "task_id", "measure", "method", "test_error", "e
 TRACE_ERROR = {"classification": "misclassification rate", "regression": "mean squared error"}
 
 
-def task_datasets(root: str | Path, run_ids: Iterable[str]) -> pd.DataFrame:
+def task_datasets(root: str | Path, runs: pd.DataFrame) -> pd.DataFrame:
     """Per dataset whose stored runs are on an OpenML task's predefined folds: the task, its
     kind, how many of its splits the runs cover, how many it has, and whether each seed
-    stands for one split (as a suite's expansion makes it)."""
+    stands for one split (as a suite's expansion makes it). ``runs`` has ``dataset`` and
+    ``run_id`` columns (a selection table); only the first run of a dataset is read unless
+    it is on a task, so campaigns without OpenML tasks cost one metadata read per dataset."""
     from stopwise.data.openml_source import read_task, task_kind, task_splits
     from stopwise.results.store import Store
 
     store = Store(root)
-    seen: dict[str, dict[str, Any]] = {}
-    for rid in dict.fromkeys(str(r) for r in run_ids):
+
+    def on_task(rid: str) -> tuple[str, int, tuple[int, int], Any] | None:
         cfg = (store.run_meta(rid) or {}).get("config") or {}
         ds, split = cfg.get("dataset") or {}, cfg.get("split") or {}
         tid = (ds.get("params") or {}).get("task_id") if ds.get("source") == "openml" else None
         if tid is None or split.get("kind") != "indices" or split.get("train_rows") is not None:
+            return None
+        return str(ds.get("name")), int(tid), (int(split.get("repeat", 0)), int(split.get("fold", 0))), cfg.get("seed")
+
+    seen: dict[str, dict[str, Any]] = {}
+    pairs = runs[["dataset", "run_id"]].drop_duplicates("run_id") if len(runs) else runs
+    for _, g in pairs.groupby("dataset", sort=True):
+        ids = [str(r) for r in g["run_id"]]
+        if on_task(ids[0]) is None:
             continue
-        d = seen.setdefault(str(ds.get("name")), {"task_ids": set(), "pairs": set(), "by_seed": {}})
-        d["task_ids"].add(int(tid))
-        pair = (int(split.get("repeat", 0)), int(split.get("fold", 0)))
-        d["pairs"].add(pair)
-        d["by_seed"].setdefault(cfg.get("seed"), set()).add(pair)
+        for rid in ids:
+            got = on_task(rid)
+            if got is None:
+                continue
+            name, tid, pair, seed = got
+            d = seen.setdefault(name, {"task_ids": set(), "pairs": set(), "by_seed": {}})
+            d["task_ids"].add(tid)
+            d["pairs"].add(pair)
+            d["by_seed"].setdefault(seed, set()).add(pair)
     rows = []
     for name, d in sorted(seen.items()):
         if len(d["task_ids"]) != 1:

@@ -761,7 +761,7 @@ def gather(root: str | Path, campaign: str, rule: str | Mapping[str, Any] = "hol
 def _task_datasets(root: str | Path, selections: pd.DataFrame, references: bool) -> pd.DataFrame | None:
     from stopwise.analysis.published import task_datasets
 
-    return task_datasets(root, selections["run_id"]) if references else None
+    return task_datasets(root, selections) if references else None
 
 
 def mark_protocols(references: pd.DataFrame, root: str | Path, selections: pd.DataFrame) -> pd.DataFrame:
