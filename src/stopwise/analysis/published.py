@@ -60,12 +60,21 @@ def task_datasets(root: str | Path, runs: pd.DataFrame) -> pd.DataFrame:
     store = Store(root)
 
     def on_task(rid: str) -> tuple[str, int, tuple[int, int], Any] | None:
-        cfg = (store.run_meta(rid) or {}).get("config") or {}
-        ds, split = cfg.get("dataset") or {}, cfg.get("split") or {}
-        tid = (ds.get("params") or {}).get("task_id") if ds.get("source") == "openml" else None
-        if tid is None or split.get("kind") != "indices" or split.get("train_rows") is not None:
+        """(dataset, task, (repeat, fold), seed) of a run on a task's folds; None otherwise,
+        also for metadata that is not what stopwise writes (results folders are data)."""
+        try:
+            cfg = (store.run_meta(rid) or {}).get("config") or {}
+            ds, split = cfg.get("dataset") or {}, cfg.get("split") or {}
+            tid = (ds.get("params") or {}).get("task_id") if ds.get("source") == "openml" else None
+            if tid is None or split.get("kind") != "indices" or split.get("train_rows") is not None:
+                return None
+            tid, pair = int(tid), (int(split.get("repeat", 0)), int(split.get("fold", 0)))
+            seed = cfg.get("seed")
+            if tid <= 0 or not isinstance(seed, (int, type(None))):
+                return None
+            return str(ds.get("name")), tid, pair, seed
+        except (AttributeError, TypeError, ValueError):
             return None
-        return str(ds.get("name")), int(tid), (int(split.get("repeat", 0)), int(split.get("fold", 0))), cfg.get("seed")
 
     seen: dict[str, dict[str, Any]] = {}
     pairs = runs[["dataset", "run_id"]].drop_duplicates("run_id") if len(runs) else runs
