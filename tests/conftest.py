@@ -3,6 +3,7 @@ import os
 import shutil
 import tempfile
 
+import numpy as np
 import pytest
 
 os.environ.setdefault("OMP_NUM_THREADS", "1")
@@ -28,8 +29,17 @@ def root(tmp_path):
 # datasplits.arff}. The tests write these files themselves from data that scikit-learn
 # ships, keep them read-only, and copy them into a fresh cache before each use (openml
 # deletes a dataset's cache folder when a call on it fails).
+#
+# openml keeps no copy of benchmark suites or of run evaluations; stopwise keeps its own
+# (<root>/org/openml/www/stopwise/suites/<id>.json, .../evaluations/<task>.json). The
+# fixture writes those through the functions `stopwise datasets fetch` uses, from the
+# openml package's own objects (OpenMLBenchmarkSuite, OpenMLEvaluation): a suite of the
+# three tasks below, and as the "uploaded runs" of each task three scikit-learn estimators
+# scored on the task's folds (a scenario of our own making, not OpenML's numbers).
 
 OML_DIABETES, OML_IRIS, OML_TASK_DIABETES, OML_TASK_IRIS = 900001, 900002, 900011, 900012
+OML_CANCER, OML_TASK_CANCER = 900003, 900013
+OML_SUITE, OML_SUITE_ALIAS = 900021, "lakeside-bench"
 
 
 def _description(did, name, target):
@@ -85,7 +95,101 @@ def task_folds():
     iris = {}
     for i, (tr, te) in enumerate(RepeatedKFold(n_splits=3, n_repeats=2, random_state=0).split(range(150))):
         iris[(i // 3, i % 3)] = (tr, te)
-    return {OML_TASK_DIABETES: diab, OML_TASK_IRIS: iris}
+    cancer = {(0, f): (tr, te) for f, (tr, te) in enumerate(KFold(3, shuffle=True, random_state=1).split(range(569)))}
+    return {OML_TASK_DIABETES: diab, OML_TASK_IRIS: iris, OML_TASK_CANCER: cancer}
+
+
+def published_runs():
+    """The "uploaded runs" of the test tasks: three scikit-learn estimators each, fitted on every
+    training fold and scored over the predictions of all folds and repeats together, as OpenML
+    scores a run. {task: [(run_id, flow_id, flow_name, {measure: value})]}."""
+    from sklearn import datasets
+    from sklearn.linear_model import LogisticRegression, Ridge
+    from sklearn.metrics import accuracy_score, roc_auc_score
+    from sklearn.neighbors import KNeighborsClassifier, KNeighborsRegressor
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+    from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
+
+    folds = task_folds()
+    data = {OML_TASK_DIABETES: datasets.load_diabetes(return_X_y=True),
+            OML_TASK_IRIS: datasets.load_iris(return_X_y=True),
+            OML_TASK_CANCER: datasets.load_breast_cancer(return_X_y=True)}
+    flows = {OML_TASK_DIABETES: [("sklearn.linear_model.Ridge", lambda: Ridge(alpha=1.0)),
+                                 ("sklearn.neighbors.KNeighborsRegressor", lambda: KNeighborsRegressor(10)),
+                                 ("sklearn.tree.DecisionTreeRegressor", lambda: DecisionTreeRegressor(max_depth=3, random_state=0))]}
+    cls = [("sklearn.pipeline(StandardScaler,LogisticRegression)",
+            lambda: make_pipeline(StandardScaler(), LogisticRegression(max_iter=2000))),
+           ("sklearn.neighbors.KNeighborsClassifier", lambda: KNeighborsClassifier(5)),
+           ("sklearn.tree.DecisionTreeClassifier", lambda: DecisionTreeClassifier(max_depth=2, random_state=0))]
+    flows[OML_TASK_IRIS] = flows[OML_TASK_CANCER] = cls
+    out = {}
+    run_id = 7000
+    for tid, (X, y) in data.items():
+        runs = []
+        for flow_id, (name, make) in enumerate(flows[tid], start=100):
+            truth, pred, proba = [], [], []
+            for (_, _), (tr, te) in sorted(folds[tid].items()):
+                m = make().fit(X[tr], y[tr])
+                truth.append(y[te])
+                pred.append(m.predict(X[te]))
+                if hasattr(m, "predict_proba"):
+                    proba.append(m.predict_proba(X[te]))
+            t, p = np.concatenate(truth), np.concatenate(pred)
+            if tid == OML_TASK_DIABETES:
+                scores = {"root_mean_squared_error": float(np.sqrt(np.mean((t - p) ** 2)))}
+            else:
+                pr = np.concatenate(proba)
+                auc = roc_auc_score(t, pr[:, 1]) if pr.shape[1] == 2 else \
+                    roc_auc_score(t, pr, multi_class="ovr", average="weighted")
+                scores = {"predictive_accuracy": float(accuracy_score(t, p)), "area_under_roc_curve": float(auc)}
+            run_id += 1
+            runs.append((run_id, flow_id, name, scores))
+        out[tid] = runs
+    return out
+
+
+def write_published(root, task_id, runs):
+    """The summary `stopwise datasets fetch` keeps for a task, from openml.evaluations.OpenMLEvaluation
+    objects holding ``runs`` (as published_runs gives them)."""
+    import openml
+    from openml.evaluations import OpenMLEvaluation
+
+    from stopwise.data.openml_scores import MEASURES, scores_record, store_scores, summarize
+
+    kind = "regression" if task_id == OML_TASK_DIABETES else "classification"
+    summaries = []
+    for measure in MEASURES[kind]:
+        evals = [OpenMLEvaluation(run_id=r, task_id=task_id, setup_id=r, flow_id=f, flow_name=n, data_id=0,
+                                  data_name="", function=measure, upload_time="2024-01-01 00:00:00", uploader=1,
+                                  uploader_name="test", value=sc[measure], values=None)
+                 for r, f, n, sc in runs]
+        summaries.append(summarize(((e.value, e.run_id, e.flow_id, e.flow_name) for e in evals), measure))
+    old = openml.config._root_cache_directory
+    openml.config.set_root_cache_directory(root)
+    try:
+        store_scores(scores_record(task_id, kind, summaries))
+    finally:
+        openml.config.set_root_cache_directory(old)
+
+
+def write_suite(root):
+    """The suite record `stopwise datasets fetch --suite` keeps, from an OpenMLBenchmarkSuite."""
+    import openml
+    from openml.study import OpenMLBenchmarkSuite
+
+    from stopwise.data.openml_suite import store_suite
+
+    suite = OpenMLBenchmarkSuite(suite_id=OML_SUITE, alias=OML_SUITE_ALIAS, name="Lakeside clinic test bench",
+                                 description="three small tasks", status="active", creation_date="2024-01-01",
+                                 creator=1, tags=None, data=[OML_IRIS, OML_DIABETES, OML_CANCER],
+                                 tasks=[OML_TASK_IRIS, OML_TASK_DIABETES, OML_TASK_CANCER])
+    old = openml.config._root_cache_directory
+    openml.config.set_root_cache_directory(root)
+    try:
+        return store_suite(suite)
+    finally:
+        openml.config.set_root_cache_directory(old)
 
 
 def _write(path, text):
@@ -100,6 +204,10 @@ def openml_fixture(tmp_path_factory):
     from sklearn import datasets
 
     root = tmp_path_factory.mktemp("openml-fixture")
+    cancer_b = datasets.load_breast_cancer(as_frame=True)
+    cancer = cancer_b.data.copy()
+    cancer["diagnosis"] = pd.Categorical([cancer_b.target_names[i] for i in cancer_b.target],
+                                         categories=list(cancer_b.target_names))
     www = root / "org" / "openml" / "www"
     diab = datasets.load_diabetes(scaled=False, as_frame=True).frame
     iris_b = datasets.load_iris(as_frame=True)
@@ -107,7 +215,8 @@ def openml_fixture(tmp_path_factory):
     iris["class"] = pd.Categorical([iris_b.target_names[i] for i in iris_b.target], categories=list(iris_b.target_names))
     for did, name, df, target, nominal in [
             (OML_DIABETES, "diabetes-copy", diab, "target", {}),
-            (OML_IRIS, "iris-copy", iris, "class", {"class": list(iris_b.target_names)})]:
+            (OML_IRIS, "iris-copy", iris, "class", {"class": list(iris_b.target_names)}),
+            (OML_CANCER, "breast-cancer-copy", cancer, "diagnosis", {"diagnosis": list(cancer_b.target_names)})]:
         d = www / "datasets" / str(did)
         d.mkdir(parents=True)
         df.to_parquet(d / f"dataset_{did}.pq")
@@ -120,6 +229,12 @@ def openml_fixture(tmp_path_factory):
     _write(www / "tasks" / str(OML_TASK_IRIS) / "task.xml",
            _task(OML_TASK_IRIS, OML_IRIS, "class", 1, "Supervised Classification", 2, 3))
     _write(www / "tasks" / str(OML_TASK_IRIS) / "datasplits.arff", _splits_arff(folds[OML_TASK_IRIS]))
+    _write(www / "tasks" / str(OML_TASK_CANCER) / "task.xml",
+           _task(OML_TASK_CANCER, OML_CANCER, "diagnosis", 1, "Supervised Classification", 1, 3))
+    _write(www / "tasks" / str(OML_TASK_CANCER) / "datasplits.arff", _splits_arff(folds[OML_TASK_CANCER]))
+    write_suite(root)
+    for tid, runs in published_runs().items():
+        write_published(root, tid, runs)
     for p in sorted(root.rglob("*"), reverse=True):
         p.chmod(0o555 if p.is_dir() else 0o444)
     return root

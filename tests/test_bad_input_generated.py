@@ -109,7 +109,7 @@ CASES = [pytest.param(key, base, kind, value, marks=[pytest.mark.slow] if extra 
 # Source params that take free text (names, paths, class lists): no Interval or Choice can
 # describe them, so the generated tests skip them; their loaders check them (tests/data).
 FREE_TEXT_SOURCE_PARAMS = {"sklearn": {"classes", "positive"}, "file": {"path", "target", "sep"},
-                           "openml": {"name", "target"}}
+                           "openml": {"name", "target"}, "openml_suite": {"suite"}}
 
 
 def test_the_generator_reaches_every_solver_source_and_field():

@@ -56,7 +56,7 @@ from pathlib import Path
 
 import pytest
 
-from conftest import OML_DIABETES, OML_IRIS, OML_TASK_DIABETES, OML_TASK_IRIS
+from conftest import OML_DIABETES, OML_IRIS, OML_SUITE, OML_TASK_DIABETES, OML_TASK_IRIS
 from helpers.sweep import scheduler_missing
 from stopwise.cli import COMMANDS, USAGE, main
 
@@ -67,6 +67,7 @@ PROMPT = re.compile(r"^(?:\$ )?(?:\.venv/bin/)?stopwise (?=[a-z])")
 
 # placeholder -> what it stands for in the scratch folder (whole words only)
 PLACEHOLDERS = {
+    "SUITE": str(OML_SUITE),             # an OpenML suite the test-built cache holds
     "TASK_ID": str(OML_TASK_DIABETES),   # an OpenML task the test-built cache holds
     "ID": str(OML_DIABETES),             # an OpenML dataset the test-built cache holds
     "NAME": "diabetes_copy",             # a dataset name of the user's choosing

@@ -68,7 +68,7 @@ def test_run_id_ignores_names_roots_and_post_hoc_rules():
     (["run", "dataset.features=[height]"], "no feature 'height'"),
     (["sweep", "solver=gd,newton"], "unknown solver 'newton'"),
     (["sweep", "solver.step_scale=0.5,-1"], "is invalid"),
-    (["sweep", "no_such_campaign"], "unknown campaign 'no_such_campaign'; valid: classical, demo, hydrology, margins, stochastic"),
+    (["sweep", "no_such_campaign"], "unknown campaign 'no_such_campaign'; valid: benchmark_suite, classical, demo, hydrology, margins, stochastic"),
     (["sweep", "../etc/passwd"], "campaign name '../etc/passwd' is invalid"),
     (["rerun", "0123456789abcdef"], "no run or campaign"),
     (["frobnicate"], "unknown command 'frobnicate'"),

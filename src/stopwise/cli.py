@@ -29,8 +29,8 @@ commands:
                                  tuned on validation error with medians and ranges over its seeds
   campaigns [--root DIR]         list stored campaigns: name, id, creation time, runs by status
   datasets                       list every dataset a run can use (rows, columns, task, source)
-  datasets fetch [ID|NAME@VERSION ...] [--task ID ...]
-                                 download OpenML datasets / tasks into openml's cache (needs network)
+  datasets fetch [ID|NAME@VERSION ...] [--task ID ...] [--suite ID ...]
+                                 download OpenML datasets / tasks / suites into openml's cache (needs network)
   select CAMPAIGN [--rule NAME[:k=v,...] ...] [--root DIR]
                                  evaluate stopping rules on a campaign's stored traces
   baselines CAMPAIGN [--method NAME ...] [--root DIR] [--path]
@@ -450,30 +450,63 @@ def _datasets_fetch(argv: list[str]) -> int:
     import re
 
     ap = ArgParser(prog="stopwise datasets fetch",
-                   description="Download OpenML datasets (ID or NAME@VERSION) and tasks into openml's "
-                                             "cache, so that runs can read them without network.")
+                   description="Download OpenML datasets (ID or NAME@VERSION), tasks (with the published scores "
+                               "of their uploaded runs) and benchmark suites (their task list and every task) into "
+                               "openml's cache, so that runs can read them without network.")
     ap.add_argument("refs", nargs="*", metavar="ID", help="dataset id, or NAME@VERSION")
     ap.add_argument("--task", type=str, action="append", default=[], metavar="ID", help="task id (repeatable)")
+    ap.add_argument("--suite", type=str, action="append", default=[], metavar="ID",
+                    help="benchmark suite id or alias (repeatable)")
     a = ap.parse_args(argv)
-    if not a.refs and not a.task:
-        return _fail("datasets fetch needs at least one dataset id (or NAME@VERSION) or --task ID")
+    if not a.refs and not a.task and not a.suite:
+        return _fail("datasets fetch needs at least one dataset id (or NAME@VERSION), --task ID or --suite ID")
     for r in a.refs:
         if not (re.fullmatch(r"[1-9][0-9]*", r) or re.fullmatch(r"[^@\s]+@[1-9][0-9]*", r)):
             return _fail(f"{r!r} is not an OpenML dataset id or NAME@VERSION (for example 61 or iris@1)")
     for t in a.task:
         if not re.fullmatch(r"[1-9][0-9]*", t):
             return _fail(f"--task {t!r} is not an OpenML task id (a positive integer)")
+    for u in a.suite:
+        if not re.fullmatch(r"[1-9][0-9]*|[A-Za-z][A-Za-z0-9_.-]{0,99}", u):
+            return _fail(f"--suite {u!r} is not an OpenML suite id or alias (for example 99 or OpenML-CC18)")
+    from stopwise.data.openml_scores import fetch_scores
     from stopwise.data.openml_source import fetch_dataset, fetch_task
+    from stopwise.data.openml_suite import fetch_suite
 
     failed = 0
-    jobs = [("dataset", r, fetch_dataset) for r in a.refs] + [("task", t, fetch_task) for t in a.task]
-    for kind, ref, fn in jobs:
+
+    def attempt(kind, ref, fn):
+        nonlocal failed
         try:
-            print(f"fetched {fn(ref)}", flush=True)
+            return fn(ref)
         except Exception as e:  # noqa: BLE001 - network and server errors: one line each
             failed += 1
             msg = str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
             print(f"stopwise: could not fetch OpenML {kind} {ref}: {type(e).__name__}: {msg}", file=sys.stderr)
+            return None
+
+    tasks = list(dict.fromkeys(a.task))
+    for u in a.suite:
+        got = attempt("suite", u, fetch_suite)
+        if got is not None:
+            rec, line = got
+            print(f"fetched {line}", flush=True)
+            tasks += [str(t) for t in rec["tasks"] if str(t) not in tasks]
+    for r in a.refs:
+        line = attempt("dataset", r, fetch_dataset)
+        if line is not None:
+            print(f"fetched {line}", flush=True)
+    for t in tasks:
+        line = attempt("task", t, fetch_task)
+        if line is None:
+            continue
+        print(f"fetched {line}", flush=True)
+        try:
+            print(f"  {fetch_scores(int(t))}", flush=True)
+        except Exception as e:  # noqa: BLE001 - the task is warm; its published scores are extra
+            msg = str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
+            print(f"  task {t}: published scores not fetched ({type(e).__name__}: {msg[:120]}); rank and report "
+                  "show none for it", flush=True)
     print(f"OpenML cache: {_openml_cache_dir()}")
     return 1 if failed else 0
 

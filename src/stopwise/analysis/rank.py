@@ -159,6 +159,7 @@ class Ranking:
     params: tuple[str, ...] = ()
     notes: list[str] = field(default_factory=list)
     pairwise: pd.DataFrame = field(default_factory=pd.DataFrame)
+    published: pd.DataFrame = field(default_factory=pd.DataFrame)  # OpenML tasks: see analysis.published
 
     @property
     def average_ranks(self) -> pd.Series:
@@ -751,6 +752,7 @@ class CampaignData:
     selections: pd.DataFrame       # every requested rule
     baselines: pd.DataFrame | None
     references: pd.DataFrame | None
+    tasks: pd.DataFrame | None = None  # datasets on OpenML tasks' folds (analysis.published.task_datasets)
 
 
 def gather(root: str | Path, campaign: str | Sequence[str], rule: str | Mapping[str, Any] = "holdout",
@@ -800,7 +802,13 @@ def gather(root: str | Path, campaign: str | Sequence[str], rule: str | Mapping[
         from stopwise.analysis.references import load_references
 
         refs = mark_protocols(load_references(), root, sel)
-    return CampaignData(Path(root), campaign, main["label"], sel, bl, refs)
+    return CampaignData(Path(root), campaign, main["label"], sel, bl, refs, _task_datasets(root, sel, references))
+
+
+def _task_datasets(root: str | Path, selections: pd.DataFrame, references: bool) -> pd.DataFrame | None:
+    from stopwise.analysis.published import task_datasets
+
+    return task_datasets(root, selections) if references else None
 
 
 def mark_protocols(references: pd.DataFrame, root: str | Path, selections: pd.DataFrame) -> pd.DataFrame:
@@ -850,8 +858,18 @@ def rank_campaign(root: str | Path = "results", campaign: str | Sequence[str] = 
     """
     data = data or gather(root, campaign, rule, baselines=baselines, **options)
     include = options.pop("include_baselines", data.baselines is not None)
-    return rank(data.selections, data.rule, traces=lambda ids: read_traces(data.root, ids),
-                baselines=data.baselines, references=data.references, include_baselines=include, **options)
+    r = rank(data.selections, data.rule, traces=lambda ids: read_traces(data.root, ids),
+             baselines=data.baselines, references=data.references, include_baselines=include, **options)
+    return _with_published(r, data)
+
+
+def _with_published(r: Ranking, data: CampaignData) -> Ranking:
+    """The published scores of the campaign's OpenML tasks beside its methods (see
+    :mod:`stopwise.analysis.published`)."""
+    from stopwise.analysis.published import published_table
+
+    r.published = published_table(r.table, data.tasks)
+    return r
 
 __all__ = ["Ranking", "RankError", "Target", "baseline_levels", "config_labels", "param_columns",
            "passes_to_target", "rank", "reference_levels", "solver_defaults", "summarize", "tune", "StatsError",

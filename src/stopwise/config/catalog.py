@@ -1,8 +1,9 @@
 """The dataset catalog: every dataset a run can use, with its size, task and source.
 
 Listed: the dataset configs (``conf/dataset/*.yaml``: bundled data, generators, OpenML
-datasets and the user's files that have a config), the bundled loaders and generator
-sources that no config uses, and every dataset and task in OpenML's local cache. Reading
+datasets and suites and the user's files that have a config), the bundled loaders and
+generator sources that no config uses, and every dataset, task and suite in OpenML's local
+cache. Reading
 the catalog never touches the network and writes nothing.
 """
 from __future__ import annotations
@@ -63,17 +64,40 @@ def _openml_shape(data_id: int, root: Path) -> tuple[Any, Any, str, str]:
     return md.num_rows, cols, task, name
 
 
-def _file_shape(path: str) -> tuple[Any, Any]:
+def _file_shape(p: dict[str, Any]) -> tuple[Any, Any]:
+    """Rows and feature columns of a file config (an svmlight file: its matrix's shape)."""
     import pandas as pd
 
-    p = Path(path)
-    if p.suffix.lower() in (".parquet", ".pq"):
+    from stopwise.data.tabular import FileParams, _file_format, read_svmlight
+
+    params = FileParams(**p)
+    fmt = _file_format(params)
+    if fmt == "svmlight":
+        X, _, _ = read_svmlight(params)
+        return X.shape[0], X.shape[1]
+    if fmt == "parquet":
         import pyarrow.parquet as pq
 
-        md = pq.read_metadata(p)
+        md = pq.read_metadata(params.path)
         return md.num_rows, md.num_columns - 1
-    df = pd.read_csv(p)
+    df = pd.read_csv(params.path, sep=params.sep)
     return df.shape[0], df.shape[1] - 1
+
+
+def _suite_entry(name: str, use: str, p: dict[str, Any]) -> Entry:
+    """A suite config: its tasks' kinds, and how many tasks (rows and columns vary by task)."""
+    from stopwise.data.openml_suite import SuiteParams, suite_tasks
+
+    if p.get("suite") is None:
+        return Entry(name, "openml_suite", "mixed", "-", "-", use + " dataset.params.suite=ID",
+                     "template: set the suite (stopwise sweep expands it into one dataset per task)")
+    try:
+        rec, tasks = suite_tasks(SuiteParams(**p))
+    except DataError:
+        return Entry(name, "openml_suite", "?", "?", "?", use, f"not cached: stopwise datasets fetch --suite {p['suite']}")
+    kinds = sorted({t.kind for t in tasks})
+    return Entry(name, "openml_suite", "/".join(kinds), "-", "-", use,
+                 f"suite {rec['suite_id']} {rec.get('alias') or ''}: {len(tasks)} tasks".replace("  ", " "))
 
 
 def describe_config(name: str, cfg: dict[str, Any]) -> Entry:
@@ -95,9 +119,9 @@ def describe_config(name: str, cfg: dict[str, Any]) -> Entry:
     if src_name == "file":
         if not p.get("path"):
             return Entry(name, "file", p.get("task", "auto"), "-", "-", use + " dataset.params.path=FILE dataset.params.target=COL",
-                         "template: set path and target")
+                         "template: set path (and target, for CSV / Parquet)")
         try:
-            rows, cols = _file_shape(p["path"])
+            rows, cols = _file_shape(p)
         except Exception as e:  # noqa: BLE001 - a catalog line, not a failure
             return Entry(name, "file", p.get("task", "auto"), "?", "?", use, f"unreadable: {type(e).__name__}")
         return Entry(name, "file", p.get("task", "auto"), rows, cols, use, p["path"])
@@ -117,6 +141,8 @@ def describe_config(name: str, cfg: dict[str, Any]) -> Entry:
         rows, cols, task, oname = _openml_shape(did, cache_root())
         return Entry(name, "openml", task if p.get("task") == "auto" else p["task"], rows, cols, use,
                      f"OpenML {did} {oname}".strip())
+    if src_name == "openml_suite":
+        return _suite_entry(name, use, p)
     # bundled and anything else: load it (these are small)
     try:
         raw = src.load(make_params(src.params, params, "dataset.params"))
@@ -179,6 +205,14 @@ def entries() -> list[Entry]:
             out.append(Entry(f"openml-task-{tid}", "openml", kind, rows, cols,
                              f"dataset=openml dataset.params.task_id={tid} split.kind=indices",
                              f"cached task on dataset {did} {oname}".strip()))
+        from stopwise.data.openml_suite import cached_suites
+
+        for rec in cached_suites(root):
+            n_cached = sum(1 for t in rec["tasks"] if t in set(cached_task_ids(root)))
+            out.append(Entry(f"openml-suite-{rec['suite_id']}", "openml_suite", "mixed", "-", "-",
+                             f"dataset=openml_suite dataset.params.suite={rec['suite_id']}",
+                             f"cached suite {rec.get('alias') or rec.get('name') or ''}: {len(rec['tasks'])} tasks "
+                             f"({n_cached} cached), fetched {rec.get('fetched')}"))
     except ImportError:  # pragma: no cover - openml is a dependency
         pass
     return out

@@ -32,7 +32,7 @@ from stopwise.data.preprocess import (
 )
 from stopwise.data.sources import SOURCES, RawData, SourceDef  # noqa: F401
 from stopwise.data.split import SPLIT_KINDS, SplitError, carve_validation, split_rows  # noqa: F401
-from stopwise.data import classical, generators, openml_source, tabular  # noqa: E402,F401  (register their sources)
+from stopwise.data import classical, generators, openml_source, openml_suite, tabular  # noqa: E402,F401  (register their sources)
 
 # Preprocessing options added after the first release. A key at its default is left out
 # of the normalized config, so configs that do not use them keep their run ids.

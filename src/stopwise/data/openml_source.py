@@ -9,9 +9,20 @@ the id and the command that warms the cache on a machine with network::
 
     stopwise datasets fetch 61            # a dataset
     stopwise datasets fetch --task 59     # a task (its dataset, features and folds)
+    stopwise datasets fetch --suite 99    # a benchmark suite: its task list and every task
 
 Calls into openml are serialized across processes with a file lock, since openml's
 cache writes are not safe under concurrent jobs.
+
+Two things openml does not cache are kept by stopwise in its own files under the same
+cache root (``<root>/stopwise/``), written when the cache is warmed:
+
+- ``suites/<id>.json``: a benchmark suite's id, alias, name and task list, as
+  ``openml.study.get_suite`` returned them (openml asks the server on every call), so a
+  campaign over a suite expands offline (``dataset=openml_suite``);
+- ``evaluations/<task id>.json``: a summary of the evaluations of the runs uploaded to
+  OpenML for a task (``openml.evaluations.list_evaluations``): per measure the number of
+  runs, the best and median value, the best run's id and flow, and the fetch date.
 """
 from __future__ import annotations
 
@@ -112,17 +123,55 @@ def cached_task_ids(root: Path | None = None) -> list[int]:
 
 
 def read_task(tid: int, root: Path | None = None) -> dict[str, Any] | None:
-    """Task type, dataset id and target of a cached task, or None."""
+    """Task type, dataset id, target and split dimensions (``repeats``, ``folds``: None when
+    the description does not state them) of a cached task, or None."""
     path = (root or cache_root()) / "tasks" / str(tid) / "task.xml"
     try:
         tree = ET.parse(path).getroot()
     except (OSError, ET.ParseError):
         return None
+    dims: dict[str, int | None] = {"repeats": None, "folds": None}
+    for el in tree.iter(f"{OML_NS}parameter"):
+        key = {"number_repeats": "repeats", "number_folds": "folds"}.get(el.get("name", ""))
+        if key and el.text and el.text.strip().isdigit():
+            dims[key] = int(el.text.strip())
     try:
         return {"task_type_id": int(_text(tree, "task_type_id") or 0), "data_id": int(_text(tree, "data_set_id") or 0),
-                "target": _text(tree, "target_feature")}
+                "target": _text(tree, "target_feature"), **dims}
     except ValueError:
         return None
+
+
+def task_kind(task: dict[str, Any] | None) -> str | None:
+    """``classification`` or ``regression`` for a supervised task (from :func:`read_task`), else None."""
+    if task is None:
+        return None
+    if task["task_type_id"] in CLASSIFICATION_TASK_TYPES:
+        return "classification"
+    return "regression" if task["task_type_id"] in REGRESSION_TASK_TYPES else None
+
+
+def task_splits(tid: int, root: Path | None = None) -> list[tuple[int, int]]:
+    """The (repeat, fold) pairs of a cached task, in order: from the description's number of
+    repeats and folds, else from the split file itself."""
+    root = root or cache_root()
+    t = read_task(tid, root)
+    if t is not None and t["repeats"] and t["folds"]:
+        return [(r, f) for r in range(t["repeats"]) for f in range(t["folds"])]
+    seen: set[tuple[int, int]] = set()
+    try:
+        with open(root / "tasks" / str(tid) / "datasplits.arff", encoding="utf-8") as fh:
+            data = False
+            for line in fh:
+                if not data:
+                    data = line.strip().upper() == "@DATA"
+                    continue
+                parts = line.strip().split(",")
+                if len(parts) >= 4:
+                    seen.add((int(float(parts[2])), int(float(parts[3]))))
+    except (OSError, ValueError):
+        return []
+    return sorted(seen)
 
 
 def resolve(p: OpenMLParams, root: Path | None = None) -> tuple[int, dict[str, Any] | None]:

@@ -1,8 +1,11 @@
-"""Tabular sources: the user's own CSV / Parquet files.
+"""Tabular sources: the user's own CSV, Parquet and svmlight / LIBSVM files.
 
-A tabular source returns the raw feature columns as a DataFrame (``RawData.frame``); the
-encoding of categorical columns, imputation and scaling happen after the split, fitted on
-the training rows only (see :mod:`stopwise.data.preprocess`).
+A CSV or Parquet source returns the raw feature columns as a DataFrame (``RawData.frame``);
+the encoding of categorical columns, imputation and scaling happen after the split, fitted
+on the training rows only (see :mod:`stopwise.data.preprocess`). An svmlight file is read
+by scikit-learn's ``load_svmlight_file`` into a CSR matrix (:func:`read_svmlight`), which
+:func:`load_file` turns into a dense design today (stated in ``RawData.info``): the one
+place a sparse design would be kept sparse.
 """
 from __future__ import annotations
 
@@ -14,11 +17,13 @@ from typing import Any
 import numpy as np
 
 from stopwise.data.errors import DataError
-from stopwise.core.params import Choice, param
+from stopwise.core.params import Choice, Interval, param
 from stopwise.data.sources import RawData, SourceDef, register_source
 
 TASK_CHOICES = ("auto", "regression", "binary", "multiclass")
-FORMATS = ("auto", "csv", "parquet")
+FORMATS = ("auto", "csv", "parquet", "svmlight")
+SVMLIGHT_SUFFIXES = (".svm", ".svmlight", ".libsvm")
+INDEX_BASES = ("auto", "zero", "one")
 
 
 class TabularError(DataError):
@@ -111,40 +116,140 @@ ROW_ORDERS = ("exchangeable", "signal")
 
 @dataclass(frozen=True)
 class FileParams:
-    path: str | None = param(None, None, "CSV or Parquet file (relative paths: from the working directory)")
-    target: str | None = param(None, None, "name of the target column")
-    format: str = param("auto", Choice(FORMATS), "auto (by suffix: .parquet/.pq is Parquet, else CSV), csv, parquet")
-    task: str = param("auto", Choice(TASK_CHOICES), "auto: numeric target -> regression, labels -> classification")
+    path: str | None = param(None, None, "CSV, Parquet or svmlight file (relative paths: from the working directory)")
+    target: str | None = param(None, None, "name of the target column (CSV / Parquet; an svmlight line starts with its label)")
+    format: str = param("auto", Choice(FORMATS), "auto (by suffix: .parquet/.pq is Parquet, .svm/.svmlight/.libsvm "
+                                                 "is svmlight, else CSV), csv, parquet, svmlight")
+    task: str = param("auto", Choice(TASK_CHOICES), "auto: numeric target -> regression, labels -> classification "
+                                                    "(svmlight: two distinct labels -> binary, real labels -> regression)")
     sep: str = param(",", None, "CSV field separator")
     row_order: str = param("exchangeable", Choice(ROW_ORDERS),
                            "signal: the rows are samples of a signal in file order (time, position), "
                            "so the residual's NCP statistic is recorded; exchangeable: row order means nothing")
+    index_base: str = param("auto", Choice(INDEX_BASES),
+                            "svmlight feature indices: zero (first feature 0), one (first feature 1, LIBSVM's "
+                            "convention), auto (one-based unless some line uses index 0, as load_svmlight_file decides)",
+                            omit_default=True)
+    n_features: int | None = param(None, Interval(1, None, integer=True),
+                                   "svmlight: number of features (default: the largest index in the file)",
+                                   omit_default=True)
 
 
 def _file_format(p: FileParams) -> str:
     if p.format != "auto":
         return p.format
-    return "parquet" if Path(p.path).suffix.lower() in (".parquet", ".pq") else "csv"
+    suffix = Path(p.path).suffix.lower()
+    if suffix in (".parquet", ".pq"):
+        return "parquet"
+    return "svmlight" if suffix in SVMLIGHT_SUFFIXES else "csv"
 
 
 def check_file(p: FileParams) -> None:
     if not p.path:
-        raise TabularError("dataset.source=file needs dataset.params.path (a CSV or Parquet file)")
+        raise TabularError("dataset.source=file needs dataset.params.path (a CSV, Parquet or svmlight file)")
     path = Path(p.path)
     if not path.is_file():
         raise TabularError(f"dataset file {p.path!r} not found" if not path.exists()
                            else f"dataset file {p.path!r} is not a regular file")
-    if p.target is None:
+    svm = _file_format(p) == "svmlight"
+    if svm and p.target is not None:
+        raise TabularError(f"dataset.params.target={p.target!r} does not apply to the svmlight file {p.path!r}: "
+                           "each line starts with its label (drop dataset.params.target)")
+    if not svm and p.target is None:
         raise TabularError("dataset.source=file needs dataset.params.target (the target column)")
+    if not svm and (p.index_base != "auto" or p.n_features is not None):
+        raise TabularError("dataset.params.index_base and n_features apply to svmlight files only "
+                           "(set dataset.params.format=svmlight, or drop them)")
+
+
+def read_svmlight(p: FileParams) -> tuple[Any, np.ndarray, int]:
+    """(X as a ``scipy.sparse`` CSR matrix of float64, the labels, the index base) of an
+    svmlight / LIBSVM file, read by ``sklearn.datasets.load_svmlight_file``.
+
+    The file is read with its indices as written (``zero_based=True``); a one-based file then
+    loses the empty column 0. ``auto`` takes the file as one-based unless some line uses
+    index 0, the rule of ``load_svmlight_file(zero_based="auto")``, so the matrix equals what
+    scikit-learn's own loader returns for the same choice (``n_features`` pads columns)."""
+    import scipy.sparse as sp
+    from sklearn.datasets import load_svmlight_file
+
+    try:
+        X, y = load_svmlight_file(p.path, zero_based=True, dtype=np.float64)
+    except Exception as e:  # malformed line, bad label: one line
+        first = str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
+        raise TabularError(f"cannot read dataset file {p.path!r} as svmlight: {first}") from None
+    X = sp.csr_matrix(X)
+    has_zero = bool(X.nnz) and int(X.indices.min()) == 0
+    base = {"zero": 0, "one": 1}.get(p.index_base, 0 if has_zero else 1)
+    if base == 1 and has_zero:
+        raise TabularError(f"dataset file {p.path!r} uses feature index 0, which a one-based file cannot "
+                           "(set dataset.params.index_base=zero or auto)")
+    d = max(X.shape[1] - base, 0)
+    if p.n_features is not None:
+        if d > p.n_features:
+            raise TabularError(f"dataset file {p.path!r} has feature index {d - 1 + base}, beyond "
+                               f"dataset.params.n_features={p.n_features} ({'one' if base else 'zero'}-based)")
+        d = p.n_features
+    cols = X.indices - base if base else X.indices
+    X = sp.csr_matrix((X.data, cols, X.indptr), shape=(X.shape[0], d))
+    return X, np.asarray(y, dtype=np.float64), base
+
+
+def svmlight_target(y: np.ndarray, task: str, where: str) -> tuple[np.ndarray, str]:
+    """The task and targets of svmlight labels (always numbers). ``auto``: two distinct
+    labels are a binary task, labels that are not all whole numbers a regression; more than
+    two whole-number labels are refused as ambiguous (class codes or counts?), naming the
+    two choices. Class labels are kept as Python numbers (whole ones as int), for the
+    label encoding after the split (binary -1/+1, multiclass 0..K-1)."""
+    distinct = np.unique(y[np.isfinite(y)])
+    if task == "auto":
+        whole = bool(np.all(distinct == np.round(distinct)))
+        if distinct.size == 2:
+            task = "binary"
+        elif not whole:
+            task = "regression"
+        else:
+            raise TabularError(f"{where} has {distinct.size} distinct whole-number labels: set dataset.params.task="
+                               "multiclass (class codes) or regression (counts)")
+    if task == "regression":
+        return y, "regression"
+    if task == "classification":
+        task = "binary" if distinct.size == 2 else "multiclass"
+    if distinct.size < 2:
+        raise TabularError(f"{where} has {distinct.size} distinct label(s); classification needs at least 2")
+    if task == "binary" and distinct.size != 2:
+        raise TabularError(f"{where} has {distinct.size} distinct labels; task=binary needs exactly 2 (use task=multiclass)")
+    labels = np.array([int(v) if float(v).is_integer() else float(v) for v in y.tolist()], dtype=object)
+    return labels, task
+
+
+def densify(X: Any, where: str) -> np.ndarray:
+    """A dense float64 copy of a sparse design (the solvers take dense arrays today), refused
+    in one line when it would take more than half of this machine's memory."""
+    import os
+
+    need = 8 * X.shape[0] * X.shape[1]
+    try:
+        total = os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+    except (ValueError, OSError, AttributeError):  # pragma: no cover - not POSIX
+        total = None
+    if total and need > total // 2:
+        raise TabularError(f"{where}: a dense copy of its {X.shape[0]} x {X.shape[1]} design needs "
+                           f"{need / 2**30:.1f} GiB, more than half of this machine's memory ({total / 2**30:.1f} GiB); "
+                           "sparse designs are not yet kept sparse")
+    return np.asarray(X.toarray(), dtype=np.float64)
 
 
 def load_file(p: FileParams) -> RawData:
     """Read the whole file with pandas (``read_csv`` / ``read_parquet``), then split off
-    the target column. Columns of non-numeric type are categorical."""
+    the target column; columns of non-numeric type are categorical. An svmlight file is
+    read by :func:`read_svmlight` and densified (``info['design']`` says so)."""
     import pandas as pd
 
     check_file(p)
     fmt = _file_format(p)
+    if fmt == "svmlight":
+        return _load_svmlight(p)
     try:
         df = pd.read_parquet(p.path) if fmt == "parquet" else pd.read_csv(p.path, sep=p.sep)
     except Exception as e:  # unreadable file: one line
@@ -158,10 +263,26 @@ def load_file(p: FileParams) -> RawData:
                    info={"origin": f"file ({fmt})", "path": p.path, "target": p.target})
 
 
+def _load_svmlight(p: FileParams) -> RawData:
+    where = f"file {p.path!r}"
+    X, y, base = read_svmlight(p)
+    if X.shape[0] == 0:
+        raise TabularError(f"dataset file {p.path!r} has no rows")
+    if X.shape[1] == 0:
+        raise TabularError(f"dataset file {p.path!r} has no feature (every line holds only a label)")
+    labels, task = svmlight_target(y, p.task, where)
+    n, d = X.shape
+    nnz = int(X.nnz)
+    info = {"origin": "file (svmlight)", "path": p.path, "index_base": base,
+            "design": {"stored": "csr", "used": "dense", "nnz": nnz, "density": nnz / (n * d)}}
+    names = tuple(f"x{j + base}" for j in range(d))  # the file's own feature numbers
+    return RawData(X=densify(X, where), y=labels, task=task, feature_names=names, info=info)
+
+
 def file_fingerprint(p: FileParams) -> str:
     check_file(p)
     return file_digest(Path(p.path))
 
 
-register_source(SourceDef("file", FileParams, load_file, "the user's own CSV or Parquet file",
+register_source(SourceDef("file", FileParams, load_file, "the user's own CSV, Parquet or svmlight / LIBSVM file",
                           fingerprint=file_fingerprint, check=check_file, row_order=lambda p: p.row_order))

@@ -7,6 +7,7 @@ Layout of the output folder::
     tables.md           the page's tables in Markdown
     results.csv         per (dataset, method) numbers at full precision
     ranks.csv, tests.csv, pairwise.csv
+    published.csv       OpenML tasks only: published scores beside each method
     rules.csv           stopping rules compared, per (dataset, method, configuration, rule)
     rules_per_run.csv   the same per (run, rule)
     rules_pairwise.csv  pairwise Wilcoxon signed-rank tests of the rules, Holm-corrected
@@ -85,7 +86,9 @@ def _html_table(df: pd.DataFrame) -> str:
 TABLE_TITLES = {"results": "Per dataset and method (* = rank 1 on the dataset)",
                 "ranks": "Ranks (1 = best, ties averaged)",
                 "tests": "Rank tests (Friedman, Iman-Davenport, Nemenyi)",
-                "pairwise": "Pairwise Wilcoxon signed-rank tests over datasets, Holm-corrected (Demsar 2006; Holm 1979)"}
+                "pairwise": "Pairwise Wilcoxon signed-rank tests over datasets, Holm-corrected (Demsar 2006; Holm 1979)",
+                "published": "Published scores of the OpenML tasks (runs uploaded to OpenML, as errors where the "
+                             "conversion is exact: 1 - accuracy, RMSE squared; gap = test error - published error)"}
 
 
 def render_html(page: ReportPage) -> str:
@@ -177,6 +180,8 @@ def write_report(page: ReportPage, out_dir: str | Path) -> Path:
         files.append((out / "tests.csv", to_csv(raw["tests"]).encode()))
     if not raw["pairwise"].empty:
         files.append((out / "pairwise.csv", to_csv(raw["pairwise"]).encode()))
+    if not raw["published"].empty:
+        files.append((out / "published.csv", to_csv(raw["published"]).encode()))
     if page.rules is not None:
         files.append((out / "rules.csv", to_csv(page.rules.table).encode()))
         files.append((out / "rules_per_run.csv", to_csv(page.rules.per_run).encode()))

@@ -209,10 +209,34 @@ def render_rules(c: Any, fmt: str = "text") -> str:
     return "\n".join(out) + "\n"
 
 
+def published_frame(r: Ranking, raw: bool = False) -> pd.DataFrame:
+    """The published scores of the campaign's OpenML tasks beside each method's test error
+    (:mod:`stopwise.analysis.published`); empty without such tasks."""
+    f = getattr(r, "published", None)
+    if f is None or f.empty:
+        return pd.DataFrame()
+    if raw:
+        return f
+    return pd.DataFrame({
+        "dataset": f["dataset"], "task": f["task_id"], "measure": f["measure"], "method": f["method"],
+        "test error": f["test_error"].map(num), "as error": f["error_metric"].fillna("-"),
+        "published best": [num(e) if pd.notna(e) else num(b) for e, b in zip(f["error_best"], f["published_best"])],
+        "published median": [num(e) if pd.notna(e) else num(b) for e, b in zip(f["error_median"], f["published_median"])],
+        "gap to best": f["gap_best"].map(num), "gap to median": f["gap_median"].map(num),
+        "runs": f["n_runs"].map(num), "best run (flow)": [
+            "-" if pd.isna(i) else f"{int(i)} ({n})" for i, n in zip(f["best_run_id"], f["best_flow_name"])],
+        "splits": f["splits"], "fetched": f["fetched"].fillna("-"), "note": f["note"].fillna("")})
+
+
 def display_tables(r: Ranking, raw: bool = False) -> dict[str, pd.DataFrame]:
-    """The named tables of a ranking: ``results``, ``ranks``, ``tests``."""
+    """The named tables of a ranking: ``results``, ``ranks``, ``tests``, ``pairwise`` and
+    ``published`` (OpenML tasks' published scores; empty without them)."""
     return {"results": results_frame(r, raw), "ranks": ranks_frame(r, raw), "tests": tests_frame(r, raw),
-            "pairwise": pairwise_frame(r, raw)}
+            "pairwise": pairwise_frame(r, raw), "published": published_frame(r, raw)}
+
+
+PUBLISHED_TITLE = ("published scores of the OpenML tasks (runs uploaded to OpenML; accuracy shown as "
+                   "1 - accuracy, RMSE as its square, to compare with the test error)")
 
 
 def heading(r: Ranking) -> str:
@@ -290,6 +314,8 @@ def render(r: Ranking, fmt: str = "text") -> str:
             out += ["", "rank tests (Friedman, Iman-Davenport, Nemenyi)", to_text(tabs["tests"])]
         if not tabs["pairwise"].empty:
             out += ["", "pairwise Wilcoxon signed-rank tests over datasets, Holm-corrected", to_text(tabs["pairwise"])]
+        if not tabs["published"].empty:
+            out += ["", PUBLISHED_TITLE, to_text(tabs["published"])]
         out += ["* best = rank 1 on the dataset"] if any(tabs["results"]["best"] == "*") else []
         out += [f"note: {n}" for n in r.notes]
         return "\n".join(out) + "\n"
@@ -301,10 +327,12 @@ def render(r: Ranking, fmt: str = "text") -> str:
         out += ["", "### Rank tests", "", to_markdown(tabs["tests"])]
     if not tabs["pairwise"].empty:
         out += ["", "### Pairwise Wilcoxon signed-rank tests (Holm-corrected)", "", to_markdown(tabs["pairwise"])]
+    if not tabs["published"].empty:
+        out += ["", f"### {PUBLISHED_TITLE[0].upper()}{PUBLISHED_TITLE[1:]}", "", to_markdown(tabs["published"])]
     if r.notes:
         out += [""] + [f"- note: {n}" for n in r.notes]
     return "\n".join(out) + "\n"
 
 
-__all__ = ["FORMATS", "FormatError", "display_tables", "render", "render_rules", "rules_frame",
+__all__ = ["FORMATS", "FormatError", "display_tables", "published_frame", "render", "render_rules", "rules_frame",
            "rules_pairwise_frame", "pairwise_frame", "to_csv", "to_markdown", "to_text"]

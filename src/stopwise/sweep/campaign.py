@@ -36,6 +36,7 @@ from stopwise.config.spec import (
     spec_from_config,
 )
 from stopwise.results.store import Store, campaign_digest
+from stopwise.solvers import get_solver
 
 NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 
@@ -222,6 +223,91 @@ def _check_file_names(specs) -> None:
                             "a ranking would merge them; name each with dataset.name=NAME")
 
 
+# ---------------------------------------------------------------- OpenML suites
+
+# keys a suite's expansion sets itself: a job's own value of them does not carry over
+SUITE_SET_KEYS = ("dataset", "dataset.name", "dataset.params.suite", "dataset.params.splits", "seed",
+                  "split.kind", "split.fold", "split.repeat", "split.train_rows", "split.val_rows", "split.test_rows")
+
+
+def is_suite(cfg: dict) -> bool:
+    return isinstance(cfg.get("dataset"), dict) and cfg["dataset"].get("source") == "openml_suite"
+
+
+def _line_key(line: str) -> str:
+    return line.lstrip("+~").split("=", 1)[0].strip()
+
+
+def suite_jobs(cfg: dict, job: list[str], cache: dict[str, Any], replaced: set[str]) -> list[tuple[dict, list[str], Any]]:
+    """One composed config per task and split of the suite a job names (``dataset=openml_suite``).
+
+    Each is the config of the single-task job ``dataset=openml dataset.params.task_id=T
+    dataset.name=<dataset>-t<T> split.kind=indices split.repeat=R split.fold=F seed=K`` with the
+    job's other overrides, K being the split's index in the task's (repeat, fold) order: the
+    run ids are those of that job written by hand. Returns (config, that job's overrides, the
+    task). ``replaced`` collects the keys of ``SUITE_SET_KEYS`` the job itself set (a note says
+    the expansion replaced them)."""
+    from dataclasses import asdict
+
+    from stopwise.core.params import ParamError, make_params
+    from stopwise.data.errors import DataError
+    from stopwise.data.openml_suite import SuiteParams, suite_tasks
+
+    try:
+        params = make_params(SuiteParams, dict(cfg["dataset"].get("params") or {}), "dataset.params (openml_suite)")
+        key = canonical_json(asdict(params))
+        if key not in cache:
+            cache[key] = suite_tasks(params)
+    except (ParamError, DataError) as e:
+        raise SpecError(str(e)) from None
+    _, tasks = cache[key]
+    keep = []
+    for line in job:
+        k = _line_key(line)
+        if k in SUITE_SET_KEYS:
+            if k in ("seed", "dataset.name", "split.kind", "split.fold", "split.repeat"):
+                replaced.add(k)
+            continue
+        keep.append(line)
+    base = {k: v for k, v in cfg["dataset"].items() if k not in ("name", "source", "params")}
+    out = []
+    for t in tasks:
+        splits = t.splits[:params.splits] if params.splits else t.splits
+        for i, (r, f) in enumerate(splits):
+            c = dict(cfg)
+            c["dataset"] = dict(base, name=t.name, source="openml", params={"task_id": t.task_id})
+            c["split"] = dict(cfg.get("split") or {}, kind="indices", repeat=r, fold=f,
+                              train_rows=None, val_rows=None, test_rows=None)
+            c["seed"] = i
+            lines = keep + ["dataset=openml", f"dataset.params.task_id={t.task_id}", f"dataset.name={t.name}",
+                            "split.kind=indices", f"split.repeat={r}", f"split.fold={f}", f"seed={i}"]
+            out.append((c, lines, t))
+    return out
+
+
+def suite_task_fits(kind: str, solver_tasks: tuple[str, ...]) -> bool:
+    """Whether a solver can run on a task of this kind (a classification task is binary or
+    multiclass, which only loading its data tells: a solver handling either fits)."""
+    if kind == "regression":
+        return "regression" in solver_tasks
+    return bool({"binary", "multiclass"} & set(solver_tasks))
+
+
+def suite_note(rec: dict, tasks: list, replaced: set[str]) -> str:
+    """One line: what a suite expanded to."""
+    n_splits = sorted({len(t.splits) for t in tasks})
+    label = rec.get("alias") or rec.get("name") or ""
+    text = (f"suite {rec['suite_id']} ({label}, task list fetched {rec.get('fetched')}): {len(tasks)} task(s) as "
+            f"datasets <name>-t<task>, each on its own folds with the seed as the split's index "
+            f"({'/'.join(map(str, n_splits))} splits per task)")
+    if rec.get("unsupported"):
+        text += f"; left out tasks that are not supervised classification or regression: " \
+                f"{', '.join(map(str, rec['unsupported']))}"
+    if replaced:
+        text += f"; the suite sets {', '.join(sorted(replaced))} itself (the job's values are not used)"
+    return text
+
+
 def expand(campaign: str | None, overrides: list[str], strict: bool = False) -> Expansion:
     """Expand a campaign plus command-line overrides into validated runs and a manifest.
 
@@ -260,11 +346,18 @@ def expand(campaign: str | None, overrides: list[str], strict: bool = False) -> 
         swept_solvers: list[str] = []
         left_out: dict[tuple[str, str], str] = {}
         rules: list = []
+        suites: dict[str, Any] = {}    # suite params (canonical JSON) -> (record, tasks)
+        replaced: set[str] = set()
         for job in jobs:
             shown = " ".join(x for x in job if not x.startswith("+campaign="))
 
-            def where(e: Exception) -> SpecError:
+            def where(e: Exception, shown: str = shown) -> SpecError:
                 return SpecError(f"{e} (in job: {shown})" if len(jobs) > 1 else str(e))
+
+            def named(e: SpecError) -> SpecError:
+                if cf is not None:  # name the campaign's file, not its registered copy
+                    return SpecError(str(e).replace(f"campaign/{reg}", str(cf.path)))
+                return e
 
             try:
                 shaping, values = composer.split(job)
@@ -287,25 +380,35 @@ def expand(campaign: str | None, overrides: list[str], strict: bool = False) -> 
                         applied.add(k)
                     use.append(o)
                 cfg = composer.apply(b, use)
-                spec = spec_from_config(cfg)
-            except TaskMismatch as e:
-                if strict:
-                    raise where(e) from None
-                left_out[(e.solver, e.dataset)] = e.task
-                continue
+                variants = suite_jobs(cfg, job, suites, replaced) if is_suite(cfg) else [(cfg, job, None)]
             except SpecError as e:
-                if cf is not None:  # name the campaign's file, not its registered copy
-                    e = SpecError(str(e).replace(f"campaign/{reg}", str(cf.path)))
-                raise where(e) from None
-            kept.append(job)
-            roots.add(str(cfg.get("results_root")))
-            threads.add(cfg.get("threads"))
-            launch.add(tuple(x for x in shaping if composer.parse(x).is_hydra_override()))
-            if spec.stopping not in rules:  # every job's rule, also of jobs that share a run
-                rules.append(spec.stopping)
-            if spec.run_id not in specs:
-                specs[spec.run_id] = spec
-                run_ids.append(spec.run_id)
+                raise where(named(e)) from None
+            for cfg, vjob, task in variants:
+                vshown = " ".join(x for x in vjob if not x.startswith("+campaign="))
+                try:
+                    if task is not None and not suite_task_fits(task.kind, get_solver(solver).tasks):
+                        if strict:
+                            raise where(SpecError(f"solver {solver!r} does not handle {task.kind} problems such as "
+                                                  f"dataset {task.name!r}"), vshown)
+                        left_out[(solver, task.name)] = task.kind
+                        continue
+                    spec = spec_from_config(cfg)
+                except TaskMismatch as e:
+                    if strict:
+                        raise where(e, vshown) from None
+                    left_out[(e.solver, e.dataset)] = e.task
+                    continue
+                except SpecError as e:
+                    raise where(named(e), vshown) from None
+                kept.append(vjob)
+                roots.add(str(cfg.get("results_root")))
+                threads.add(cfg.get("threads"))
+                launch.add(tuple(x for x in shaping if composer.parse(x).is_hydra_override()))
+                if spec.stopping not in rules:  # every job's rule, also of jobs that share a run
+                    rules.append(spec.stopping)
+                if spec.run_id not in specs:
+                    specs[spec.run_id] = spec
+                    run_ids.append(spec.run_id)
     _check_file_names(specs.values())
     notes: list[str] = []
     for k in sorted(collapsed):
@@ -316,6 +419,8 @@ def expand(campaign: str | None, overrides: list[str], strict: bool = False) -> 
                             f"({who}); valid: {', '.join(valid)}")
         notes.append(f"solver.{k} does not apply to {', '.join(sorted(collapsed[k]))}: collapsed for "
                      f"{'it' if len(collapsed[k]) == 1 else 'them'}")
+    for rec, tasks in suites.values():
+        notes.append(suite_note(rec, tasks, replaced))
     if left_out:
         pairs = ", ".join(f"{s} x {d} ({t})" for (s, d), t in left_out.items())
         if not kept:
@@ -338,6 +443,9 @@ def expand(campaign: str | None, overrides: list[str], strict: bool = False) -> 
     }
     if subs != [{}]:
         manifest["definition"]["sub_sweeps"] = subs
+    if suites:  # what each suite expanded to (the task list as cached, with its fetch date)
+        manifest["suites"] = {str(rec["suite_id"]): {k: rec.get(k) for k in ("alias", "name", "tasks", "fetched", "server")}
+                              for rec, _ in suites.values()}
     if notes:
         manifest["notes"] = notes
     return Expansion(name=name, base=base + user, jobs=kept, specs=[specs[r] for r in run_ids],
