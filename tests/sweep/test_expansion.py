@@ -178,3 +178,29 @@ def test_the_readme_sweep_with_collapse_and_pairs_runs_as_documented(tmp_path, c
     assert "note: solver.batch does not apply to gd, nesterov: collapsed for them" in out
     assert "left out 1 solver x dataset pair that cannot run: " not in out  # gd, nesterov, sgd all take binary
     assert "12 jobs, 8 distinct runs" in out, out
+
+
+def test_the_final_count_and_a_resume_open_no_trace_the_chunks_stored(tmp_path, capsys, monkeypatch):
+    """Each chunk leaves the status of every trace it stored with the file's stamp (size,
+    modification time, inode); the end-of-sweep count and the next sweep's "already stored?"
+    check take them from the status index instead of opening the traces."""
+    from stopwise.results.store import Store
+
+    root = tmp_path / "res"
+    args = ["dataset=wellposed", "solver=gd,nesterov", "seed=0,1,2", *QUICK, f"results_root={root}"]
+    opened: list[str] = []
+    real = Store.read_meta
+    monkeypatch.setattr(Store, "read_meta", lambda self, path: opened.append(Path(path).name) or real(self, path))
+    code, out, err = sweep(capsys, *args, "--chunk", "2")
+    assert code == 0 and "6 completed" in out.splitlines()[-1], out + err
+    assert opened == []  # counted from the chunks' stamps
+    index = json.loads((root / "index" / "status.json").read_text())
+    for p in (root / "runs").glob("*.parquet"):
+        st = p.stat()
+        assert index[p.stem] == [st.st_size, st.st_mtime_ns, st.st_ino, "completed"]
+    code, out, err = sweep(capsys, *args)
+    assert "every run already stored" in out and opened == []
+    # a trace replaced since its stamp was taken is read again, not trusted
+    victim = sorted((root / "runs").glob("*.parquet"))[0]
+    victim.write_bytes(victim.read_bytes())  # same bytes, new modification time
+    assert Store(root).statuses([victim.stem]) == {victim.stem: "completed"} and opened == [victim.name]

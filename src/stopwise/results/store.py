@@ -169,6 +169,29 @@ class Store:
                 pass
         return out
 
+    def remember(self, entries: dict[str, list]) -> None:
+        """Merge ``{run_id: [size, mtime_ns, inode, status]}`` into the status index: stamps
+        taken by the process that wrote each trace, right after writing it, so that
+        :meth:`statuses` need not open those traces again. A stamp that no longer matches its
+        file (the file was replaced since) is simply read again by :meth:`statuses`."""
+        if not entries:
+            return
+        index_path = self.root / "index" / "status.json"
+        try:
+            index = json.loads(index_path.read_text())
+            if not isinstance(index, dict):
+                index = {}
+        except (OSError, ValueError):
+            index = {}
+        for rid, entry in entries.items():
+            if (isinstance(rid, str) and _ID.match(rid) and isinstance(entry, list) and len(entry) == 4
+                    and all(isinstance(x, int) for x in entry[:3]) and entry[3] in STATUSES):
+                index[rid] = entry
+        try:
+            atomic_write_bytes(index_path, json.dumps(index, separators=(",", ":")).encode(), durable=False)
+        except OSError:  # an index that cannot be written only costs time
+            pass
+
     def run_files(self, run_ids: Iterable[str] | None = None) -> list[Path]:
         """Stored trace files (hidden temporary files of writes in progress never match).
         A file that is a link leading outside the results root is skipped with a warning."""

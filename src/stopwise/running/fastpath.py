@@ -104,7 +104,7 @@ class GramGradient:
         self.c = c if c is not None else _frozen(X.T @ y)
 
     def __call__(self, w: np.ndarray) -> np.ndarray:
-        g = self.G @ w
+        g = self.G.dot(w)  # the same BLAS call as G @ w, with less dispatch
         g -= self.c
         g /= self.n
         return g

@@ -160,11 +160,11 @@ class Recorder:
     def _finish_row(self, i: int, w: np.ndarray, state: Any, w_sq: float | None = None) -> None:
         """Columns every task shares: ||w||, distance to the truth, metric sets; then count the row."""
         col, truth = self._data, self._truth
-        col["w_norm"][i] = math.sqrt(float(w @ w) if w_sq is None else w_sq)
+        col["w_norm"][i] = math.sqrt(float(w.dot(w)) if w_sq is None else w_sq)
         if truth is not None and truth.shape == w.shape:
             buf = self._dbuf if self._dbuf.shape == w.shape else np.empty_like(w)
             np.subtract(w, truth, out=buf)
-            col["dist_truth"][i] = math.sqrt(float(buf @ buf))
+            col["dist_truth"][i] = math.sqrt(float(buf.dot(buf)))
         else:
             col["dist_truth"][i] = math.nan
         for name, fn in self._extras.items():
@@ -322,7 +322,7 @@ class RegressionRecorder(Recorder):
         else:
             np.dot(X, w, out=buf)
             buf -= getattr(self.problem, "y_" + split)
-        return float(buf @ buf)
+        return float(buf.dot(buf))
 
     def _compressed_error(self, split: str, w: np.ndarray) -> float:
         self.fallbacks += 1
@@ -379,7 +379,7 @@ class RegressionRecorder(Recorder):
             if self._train_stat is not None:  # the training error came from statistics: evaluate r
                 np.dot(self.problem.X_train, w, out=cur)
                 cur -= self.problem.y_train
-            col["residual_dot_prev"][i] = math.nan if first else float(cur @ self._rb[1 - self._rk])
+            col["residual_dot_prev"][i] = math.nan if first else float(cur.dot(self._rb[1 - self._rk]))
             if self._ncp is not None:
                 col["ncp_distance"][i] = self._ncp(cur)
             self._rk = 1 - self._rk
@@ -393,7 +393,7 @@ class RegressionRecorder(Recorder):
         - c^T w + y^T y``, exact up to rounding of size eps times ``2 sqrt(s_prev s_t)`` (s the
         errors' scales); below ``GUARD`` times that, from the compressed rows instead
         (``(R [w_prev; -1]) . (R [w; -1])``, as accurate as the residual vectors)."""
-        dot = float(self._wprev @ self._uk_train) + self._lprev - self._ltr + self.statistics.yy[self._train_stat]
+        dot = float(self._wprev.dot(self._uk_train)) + self._lprev - self._ltr + self.statistics.yy[self._train_stat]
         if abs(dot) >= GUARD * math.sqrt(max(self._sprev * self._str, 0.0)):
             return dot
         self.fallbacks += 1

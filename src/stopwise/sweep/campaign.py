@@ -536,8 +536,15 @@ def launch(exp: Expansion, chunk: int | None = None) -> dict[str, Any]:
 
 
 def tally(exp_or_manifest: Any, root: str | Path) -> dict[str, int]:
+    """Runs of a campaign by stored status. The chunks of the launch left each trace's status
+    with its file's stamp (:func:`stopwise.sweep.chunks.chunk_statuses`); they go into the
+    status index first, so the count opens only traces written by someone else."""
+    from stopwise.sweep.chunks import chunk_statuses
+
     manifest = exp_or_manifest.manifest if isinstance(exp_or_manifest, Expansion) else exp_or_manifest
-    status = Store(root).statuses(manifest["run_ids"])
+    store = Store(root)
+    store.remember(chunk_statuses(store, manifest["campaign_id"]))
+    status = store.statuses(manifest["run_ids"])
     counts = {"completed": 0, "diverged": 0, "failed": 0, "missing": 0}
     for rid in manifest["run_ids"]:
         st = status.get(rid, "missing")

@@ -64,10 +64,11 @@ def write_plan(store: Store, campaign_id: str, pending: list[RunSpec], k: int, t
                done_before: int) -> list[int]:
     """Cut ``pending`` into ``k`` chunks (:func:`cut`), write one chunk file each
     (replacing any of an earlier launch) and reset the progress count. Returns the sizes."""
-    folder = jobs_dir(store, campaign_id) / "chunks"
-    if folder.is_dir():
-        for old in folder.glob("*.json"):
-            old.unlink()
+    for name in ("chunks", "status"):
+        folder = jobs_dir(store, campaign_id) / name
+        if folder.is_dir():
+            for old in folder.glob("*.json"):
+                old.unlink()
     chunks = cut(pending, k)
     for i, part in enumerate(chunks):
         runs = [[s.run_id, s.identity()] for s in part]
@@ -229,6 +230,7 @@ def run_chunk(root: str, campaign_id: str, k: int, threads: int | None = None) -
 
     store = Store(root)
     counts: dict[str, int] = {}
+    stamps: dict[str, list] = {}  # each stored trace's status with its file's stamp (see chunk_statuses)
     runs, launcher = _read_chunk(store, campaign_id, k)
     _PARENT.setdefault("start", os.getppid())
     with limited_threads(threads), batched_sync():
@@ -258,14 +260,39 @@ def run_chunk(root: str, campaign_id: str, k: int, threads: int | None = None) -
             if out.skipped:  # stored by an earlier attempt of this chunk (a requeue): counted then
                 continue
             try:
+                st = os.stat(out.path)
+                stamps[spec.run_id] = [st.st_size, st.st_mtime_ns, st.st_ino, out.status]
+            except (OSError, TypeError):
+                pass
+            try:
                 head, tail = progress_prefix(count_one(store, campaign_id))
                 print(head + outcome_line(out) + tail, flush=True)
             except Exception:  # a progress line must never fail a run
                 pass
+    try:
+        atomic_write_bytes(jobs_dir(store, campaign_id) / "status" / f"{int(k)}.json",
+                           json.dumps(stamps, separators=(",", ":")).encode(), durable=False)
+    except OSError:  # the stamps only save the sweep's final count a read of these traces
+        pass
     if counts.get("left"):  # traces flushed above; nobody will ever collect this worker's result
         os._exit(0)
     return counts
 
 
+def chunk_statuses(store: Store, campaign_id: str) -> dict[str, list]:
+    """The stamps the chunks of the last launch left (``{run_id: [size, mtime_ns, inode,
+    status]}``): what the store's status index needs to count those runs without opening them."""
+    out: dict[str, list] = {}
+    folder = jobs_dir(store, campaign_id) / "status"
+    for path in sorted(folder.glob("*.json")) if folder.is_dir() else []:
+        try:
+            doc = json.loads(path.read_text())
+        except (OSError, ValueError):
+            continue
+        if isinstance(doc, dict):
+            out.update(doc)
+    return out
+
+
 __all__ = ["chunk_path", "count_one", "cut", "problem_groups", "progress_prefix", "read_chunk", "run_chunk",
-           "orphaned", "write_plan"]
+           "chunk_statuses", "orphaned", "write_plan"]
