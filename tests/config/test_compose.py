@@ -178,3 +178,31 @@ def test_numbers_parsed_without_the_grammar_are_what_the_grammar_makes(line):
         fast = composer.parse(line)
         (ref,) = composer.parser.parse_overrides([line])
     assert fast == ref and type(fast.value()) is type(ref.value())
+
+
+def test_numbers_after_the_first_of_a_key_are_stored_as_hydra_stores_them():
+    """A key probes Hydra once per number type; later numbers of that type follow the stored
+    conversion (as given, or float on a float node). Every job still equals Hydra's own."""
+    with hydra_context():
+        composer = Composer()
+        jobs = [["seed=3"], ["seed=11"], ["seed=-4"],                                  # int node
+                ["solver.step_scale=1"], ["solver.step_scale=7"], ["solver.step_scale=0.25"],  # float node
+                ["budget.passes=2"], ["budget.passes=5"], ["budget.passes=0.5"],        # optional float
+                ["split.val=0"], ["split.val=0.3"]]
+        for job in jobs:
+            mine, ref = composer.config(job), per_job(job)
+            assert mine == ref, job
+            key = job[0].split("=")[0].split(".")
+            a, b = mine, ref
+            for k in key:
+                a, b = a[k], b[k]
+            assert type(a) is type(b), (job, type(a), type(b))
+        for bad in (["seed=1.5"], ["budget.iterations=2.5"]):  # a float where Hydra refuses one
+            try:
+                ref = per_job(bad)
+            except SpecError as e:
+                with pytest.raises(SpecError) as mine:
+                    composer.config(bad)
+                assert str(mine.value) == str(e)
+            else:
+                assert composer.config(bad) == ref

@@ -85,6 +85,7 @@ class Base:
     simple: bool                    # no interpolation anywhere: leaf values can be set directly
     scratch: Any = None             # a copy that probes write into (leaf values only)
     probes: dict = field(default_factory=dict)  # override line -> value Hydra stored
+    templates: dict = field(default_factory=dict)  # (key, number type) -> how Hydra stored such a number
 
     def at(self, path: tuple[str, ...]) -> Any:
         node: Any = self.plain
@@ -284,9 +285,21 @@ class Composer:
         return True
 
     def _probe(self, base: Base, o) -> Any:
+        """The value Hydra stores for override ``o`` on ``base``: Hydra's own override
+        application on a scratch copy, once per override line. A number given to a key is
+        stored the same way whatever the number (as given, or as a float on a float node),
+        so once a key has stored one int (or float) as given or as its float, other numbers
+        of that type take the same path without Hydra (a sweep over 2,500 seeds probes once)."""
         line = o.input_line
         if line in base.probes:
             return base.probes[line]
+        v = o.value()
+        number = type(v) in (int, float)  # bool is not a number here
+        how = base.templates.get((o.key_or_group, type(v))) if number else None
+        if how == "as given":
+            return v
+        if how == "float":
+            return float(v)
         from hydra._internal.config_loader_impl import ConfigLoaderImpl
         from hydra.errors import HydraException
         from omegaconf import DictConfig, ListConfig, OmegaConf
@@ -298,11 +311,15 @@ class Composer:
             ConfigLoaderImpl._apply_overrides_to_config([o], base.scratch)
         except (HydraException, OmegaConfBaseException) as e:
             raise SpecError(hydra_error_line(e)) from None
-        v = OmegaConf.select(base.scratch, o.key_or_group)
-        if isinstance(v, (DictConfig, ListConfig)):
-            v = OmegaConf.to_container(v, resolve=True)
-        base.probes[line] = v
-        return v
+        stored = OmegaConf.select(base.scratch, o.key_or_group)
+        if isinstance(stored, (DictConfig, ListConfig)):
+            stored = OmegaConf.to_container(stored, resolve=True)
+        base.probes[line] = stored
+        if number and type(stored) is type(v) and stored == v:
+            base.templates[(o.key_or_group, type(v))] = "as given"
+        elif number and type(v) is int and type(stored) is float and stored == float(v):
+            base.templates[(o.key_or_group, type(v))] = "float"
+        return stored
 
     def _slow(self, base: Base, overrides: list) -> dict:
         from hydra._internal.config_loader_impl import ConfigLoaderImpl

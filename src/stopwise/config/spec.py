@@ -464,7 +464,7 @@ def spec_from_config(cfg: Any) -> RunSpec:
                    record=record, seed=seed, stopping=stopping)
 
 
-_DATASETS: dict[str, dict] = {}  # normalized dataset sections by their input (a sweep repeats a few)
+_DATASETS: dict[str, str] = {}  # normalized dataset sections by their input (a sweep repeats a few)
 
 
 @functools.lru_cache(maxsize=None)
@@ -484,14 +484,14 @@ def _dataset_section(raw: dict) -> dict:
         key = None
     hit = _DATASETS.get(key) if key is not None else None
     if hit is not None:
-        return json.loads(json.dumps(hit))  # a fresh copy: a RunSpec owns its dict
+        return json.loads(hit)  # a fresh copy: a RunSpec owns its dict
     try:
         out = normalize_dataset(raw)
     except DataError as e:
         raise SpecError(str(e)) from None
     if key is not None and len(_DATASETS) < 256:
         try:
-            _DATASETS[key] = json.loads(json.dumps(out))
+            _DATASETS[key] = json.dumps(out)
         except (TypeError, ValueError):  # not plain data: not kept
             pass
     return out
@@ -520,6 +520,10 @@ def _split_section(raw: dict | None) -> dict:
     return split
 
 
+_PARAMS: dict[str, Any] = {}   # validated params (frozen, so shared) by solver section and dataset task
+_TASKS: dict[str, Any] = {}    # dataset_task by normalized dataset section
+
+
 def _solver_section(raw: dict, dataset: dict, asked_loss: Any) -> tuple[str, Any]:
     solver_cfg = dict(raw)
     name = solver_cfg.pop("name", None)
@@ -527,7 +531,31 @@ def _solver_section(raw: dict, dataset: dict, asked_loss: Any) -> tuple[str, Any
         sdef = get_solver(name)
     except UnknownSolver as e:
         raise SpecError(str(e)) from None
-    task = dataset_task(dataset)
+    try:
+        dkey = json.dumps(dataset, sort_keys=True)
+    except (TypeError, ValueError):
+        dkey = None
+    if dkey is not None and dkey in _TASKS:
+        task = _TASKS[dkey]
+    else:
+        task = dataset_task(dataset)
+        if dkey is not None and len(_TASKS) < 256:
+            _TASKS[dkey] = task
+    try:
+        pkey = json.dumps([name, solver_cfg, task, asked_loss], sort_keys=True)
+    except (TypeError, ValueError):
+        pkey = None
+    hit = _PARAMS.get(pkey) if pkey is not None else None
+    if hit is not None and type(hit) is sdef.params:  # the same registered solver
+        return name, hit
+    name, params = _validate_solver(name, sdef, solver_cfg, dataset, task, asked_loss)
+    if pkey is not None and len(_PARAMS) < 4096:
+        _PARAMS[pkey] = params
+    return name, params
+
+
+def _validate_solver(name: str, sdef: Any, solver_cfg: dict, dataset: dict, task: Any,
+                     asked_loss: Any) -> tuple[str, Any]:
     if task is not None and task not in sdef.tasks:
         raise TaskMismatch(f"solver {name!r} does not handle {task} problems such as dataset {dataset.get('name')!r}; "
                            f"valid solvers: {', '.join(n for n, d in SOLVERS.items() if task in d.tasks)}",
@@ -585,11 +613,27 @@ def _run_options_section(c: dict) -> None:
     check_campaign_id(c.get("campaign_id"))
 
 
+_STOPPING: dict[str, str] = {}  # normalized stopping sections (JSON) by their input (a sweep repeats a few)
+
+
 def _stopping_section(raw: dict | None, record: dict, dataset: dict) -> dict:
     try:
-        stopping = normalize_stopping(dict(_defaults(StoppingConfig), **(raw or {})))
-    except RuleError as e:
-        raise SpecError(str(e)) from None
+        key = json.dumps(raw, sort_keys=True)
+    except (TypeError, ValueError):
+        key = None
+    hit = _STOPPING.get(key) if key is not None else None
+    if hit is not None:
+        stopping = json.loads(hit)  # a fresh copy: a RunSpec owns its dict
+    else:
+        try:
+            stopping = normalize_stopping(dict(_defaults(StoppingConfig), **(raw or {})))
+        except RuleError as e:
+            raise SpecError(str(e)) from None
+        if key is not None and len(_STOPPING) < 256:
+            try:
+                _STOPPING[key] = json.dumps(stopping)
+            except (TypeError, ValueError):  # not plain data: not kept
+                pass
     if stopping["halt"]:
         _check_halt_columns(stopping["rule"], record, dataset)
     return stopping
