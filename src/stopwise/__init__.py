@@ -30,7 +30,6 @@ from stopwise.problem.models import LinearModel, TwoLayerReLU  # noqa: E402
 from stopwise.data import RawData, SourceDef, build_problem, cached_problem  # noqa: E402
 from stopwise.data.sources import register_source  # noqa: E402
 from stopwise.problem.problem import Problem, TrainingSet  # noqa: E402
-from stopwise.results.query import load_runs, load_traces  # noqa: E402
 from stopwise.running.runner import RunOutcome, execute, run  # noqa: E402
 from stopwise.solvers import PROX_OPERATORS, SOLVERS, ProxDef, get_solver, register_prox  # noqa: E402
 from stopwise.solvers.averaging import AveragingParams, averaged  # noqa: E402
@@ -40,6 +39,7 @@ from stopwise.config.compose import spec_from_overrides
 # Ranking, baselines, selection and verification load on first use (PEP 562), so a launcher
 # worker that only runs solvers does not pay for SciPy's statistics and scikit-learn's models.
 _LAZY = {
+    "load_runs": "results.query", "load_traces": "results.query",  # pandas loads with them
     "select": "analysis.selection",
     "BASELINES": "analysis.baselines", "ensure_baselines": "analysis.baselines", "fit_path": "analysis.baselines",
     "load_baselines": "analysis.baselines",

@@ -178,3 +178,48 @@ def test_raw_data_kept_in_memory_is_read_only(problem_cache):
     from sklearn.datasets import load_diabetes
 
     assert np.array_equal(raw.X, load_diabetes(scaled=False).data)
+
+
+RUN_IN_FRESH_PROCESS = """
+import sys
+import stopwise
+out = stopwise.run(["dataset=diabetes", "solver=gd", "budget.iterations=30"], root=sys.argv[1])
+print(out.path)
+print("sklearn imported" if "sklearn" in sys.modules else "sklearn not imported")
+"""
+
+
+def test_scikit_learn_tables_are_kept_so_another_process_need_not_import_scikit_learn(tmp_path, monkeypatch):
+    """The first process loads diabetes through scikit-learn and keeps the raw arrays; a
+    second process reads them from the cache without importing scikit-learn, and its run
+    is bit for bit the first one's (the arrays are the loader's own float64 values)."""
+    import pyarrow.parquet as pq
+
+    from stopwise.data import cache
+    from stopwise.results.verify import verify_root
+
+    env = {**os.environ, "STOPWISE_CACHE": str(tmp_path / "cache")}
+    outs = []
+    for k in (1, 2):
+        res = subprocess.run([sys.executable, "-c", RUN_IN_FRESH_PROCESS, str(tmp_path / f"r{k}")],
+                             capture_output=True, text=True, env=env)
+        assert res.returncode == 0, res.stderr[-2000:]
+        outs.append(res.stdout.split("\n"))
+    assert outs[0][1] == "sklearn imported" and outs[1][1] == "sklearn not imported"
+    first, second = (pq.read_table(o[0]).drop(["seconds"]).to_pandas() for o in outs)
+    assert first.equals(second)
+    (kept,) = [e for e in cache.entries(tmp_path / "cache") if e.parent.name == "raw"]
+    # the kept arrays are scikit-learn's own
+    from sklearn.datasets import load_diabetes
+
+    raw = cache.read_raw(json.loads(kept.read_text())["key"], tmp_path / "cache")
+    ref = load_diabetes(scaled=False)  # the project reads the original measurements
+    assert np.array_equal(raw.X, ref.data) and np.array_equal(raw.y, ref.target)
+    # a changed byte in the kept arrays: verify names it, the next load reads the source again
+    npz = kept.with_suffix(".npz")
+    b = bytearray(npz.read_bytes()); b[len(b) // 2] ^= 0xFF; npz.write_bytes(bytes(b))
+    monkeypatch.setenv("STOPWISE_CACHE", str(tmp_path / "cache"))
+    rep = verify_root(tmp_path / "r1")
+    assert [f.path for f in rep.bad] == [kept] and "arrays differ" in rep.bad[0].problem
+    assert rep.cached == len(cache.entries(tmp_path / "cache"))  # processed problems and raw data
+    assert cache.read_raw(json.loads(kept.read_text())["key"], tmp_path / "cache") is None

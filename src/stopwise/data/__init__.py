@@ -351,7 +351,12 @@ def _load_raw(src: SourceDef, params: Any) -> RawData:
     if hit is not None:
         _RAW.move_to_end(key)
         return hit
-    raw = src.load(params)
+    disk = _cache.raw_key(src.name, key[1], src.raw_cache) if src.raw_cache else None
+    raw = _cache.read_raw(disk) if disk is not None else None
+    if raw is None:
+        raw = src.load(params)
+        if disk is not None:
+            _cache.write_raw(disk, raw)
     for a in (raw.X, raw.y, raw.w_true):
         if isinstance(a, np.ndarray):
             a.flags.writeable = False

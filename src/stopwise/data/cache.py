@@ -113,7 +113,7 @@ def check_entry(json_path: Path) -> str:
         return f"unreadable: {type(e).__name__}: {' '.join(str(e).split())[:200]}"
     if not isinstance(meta, dict):
         return "not a JSON object"
-    if meta.get("format") != CACHE_FORMAT:
+    if meta.get("format") != (RAW_FORMAT if Path(json_path).parent.name == "raw" else CACHE_FORMAT):
         return ""  # another cache format: never read, so never wrong (left for its own version)
     if meta.get("meta_sha256") != _meta_sha(meta):
         return "its fields differ from what was written (checksum mismatch: a changed byte)"
@@ -127,10 +127,12 @@ def check_entry(json_path: Path) -> str:
 
 
 def entries(root: Path | None = None) -> list[Path]:
-    """The JSON files of the cache's entries (each beside its ``.npz``)."""
+    """The JSON files of the cache's entries, processed problems and kept raw data (each
+    beside its ``.npz``)."""
     root = root if root is not None else cache_dir()
-    d = root / "problems" if root is not None else None
-    return sorted(d.glob("*.json")) if d is not None and d.is_dir() else []
+    if root is None:
+        return []
+    return [p for d in (root / "problems", root / "raw") if d.is_dir() for p in sorted(d.glob("*.json"))]
 
 
 def read(key: str, root: Path | None = None) -> Problem | None:
@@ -187,3 +189,83 @@ def write(key: str, problem: Problem, root: Path | None = None) -> Path | None:
     meta["meta_sha256"] = _meta_sha(meta)
     atomic_write_bytes(json_path, json.dumps(meta, sort_keys=True).encode(), durable=False)
     return json_path
+
+
+# ---------------------------------------------------------------- raw data of sources that allow it
+#
+# A source that declares ``raw_cache`` (the packages whose versions decide its data, e.g. the
+# tables scikit-learn ships) may keep its raw numeric data here, so that another process
+# reads a few arrays instead of importing those packages (scikit-learn takes seconds to
+# import; its diabetes table is 35 KB). Same layout and checks as a processed problem:
+# ``raw/<key32>.npz`` + ``raw/<key32>.json`` with the SHA-256 of both; a changed or
+# missing entry is loaded from the source again.
+
+RAW_FORMAT = 1
+
+
+def raw_key(source: str, params: Any, packages: tuple[str, ...]) -> str:
+    import importlib.metadata as md
+
+    versions = {}
+    for pkg in packages:
+        try:
+            versions[pkg] = md.version(pkg)
+        except md.PackageNotFoundError:
+            versions[pkg] = "?"
+    doc = {"format": RAW_FORMAT, "source": source, "params": params, "versions": versions}
+    return hashlib.sha256(json.dumps(doc, sort_keys=True, separators=(",", ":"), default=str).encode()).hexdigest()
+
+
+def _raw_paths(root: Path, key: str) -> tuple[Path, Path]:
+    d = root / "raw"
+    return d / f"{key[:32]}.npz", d / f"{key[:32]}.json"
+
+
+def read_raw(key: str, root: Path | None = None):
+    """The kept raw data for ``key`` (a RawData), or None."""
+    from stopwise.data.sources import RawData
+
+    root = root if root is not None else cache_dir()
+    if root is None:
+        return None
+    npz_path, json_path = _raw_paths(root, key)
+    try:
+        meta = json.loads(json_path.read_text())
+        if meta.get("key") != key or meta.get("format") != RAW_FORMAT or meta.get("meta_sha256") != _meta_sha(meta):
+            return None
+        data = npz_path.read_bytes()
+        if hashlib.sha256(data).hexdigest() != meta.get("arrays_sha256"):
+            return None
+        with np.load(io.BytesIO(data), allow_pickle=False) as z:
+            arrays = {k: np.array(z[k]) for k in z.files}
+    except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile):
+        return None
+    if set(arrays) - {"X", "y", "w_true"} or "X" not in arrays or "y" not in arrays:
+        return None
+    return RawData(X=arrays["X"], y=arrays["y"], task=meta["task"], feature_names=tuple(meta["feature_names"]),
+                   w_true=arrays.get("w_true"), info=meta["info"])
+
+
+def write_raw(key: str, raw: Any, root: Path | None = None) -> None:
+    """Keep ``raw`` (numeric data only: X, y, w_true, names, task, info; a source with a noise
+    model, a frame or folds is never kept) under ``key``."""
+    root = root if root is not None else cache_dir()
+    if root is None or raw.X is None or raw.frame is not None or raw.folds is not None or raw.noise != "none":
+        return
+    arrays = {"X": np.asarray(raw.X), "y": np.asarray(raw.y)}
+    if raw.w_true is not None:
+        arrays["w_true"] = np.asarray(raw.w_true)
+    if any(a.dtype == object for a in arrays.values()):
+        return
+    npz_path, json_path = _raw_paths(root, key)
+    buf = io.BytesIO()
+    np.savez(buf, **arrays)
+    data = buf.getvalue()
+    try:
+        atomic_write_bytes(npz_path, data, durable=False)
+        meta = jsonable({"key": key, "format": RAW_FORMAT, "task": raw.task, "feature_names": list(raw.feature_names),
+                         "info": raw.info, "arrays_sha256": hashlib.sha256(data).hexdigest()})
+        meta["meta_sha256"] = _meta_sha(meta)
+        atomic_write_bytes(json_path, json.dumps(meta, sort_keys=True).encode(), durable=False)
+    except OSError:  # a cache that cannot be written only costs the next process an import
+        pass

@@ -67,6 +67,10 @@ class SourceDef:
     # optional: the row order the params give, "signal" (rows are samples of a signal in
     # order, see Problem.signal_rows) or "exchangeable" (the default when absent)
     row_order: Callable[[Any], str] | None = None
+    # optional: the packages whose versions decide what ``load`` returns, for a source whose
+    # raw data may be kept in the on-disk cache between processes (data/cache.py: a worker
+    # then reads a few arrays instead of importing the package that ships them)
+    raw_cache: tuple[str, ...] = ()
 
 
 SOURCES: Registry[SourceDef] = Registry("dataset source", DataError, sort=True)
@@ -200,7 +204,7 @@ def load_sklearn(p: SklearnParams) -> RawData:
 
 
 register_source(SourceDef("sklearn", SklearnParams, load_sklearn, "datasets that scikit-learn ships",
-                          check=check_sklearn))
+                          check=check_sklearn, raw_cache=("scikit-learn", "numpy")))
 
 
 # ---------------------------------------------------------------- synthetic least squares with known truth

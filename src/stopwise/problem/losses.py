@@ -33,12 +33,27 @@ binary margin is ``y_i s_i``, the multiclass margin ``S_{i c_i} - max_{j != c_i}
 """
 from __future__ import annotations
 
+import functools
 from typing import Callable, NamedTuple
 
 import numpy as np
-from scipy.special import expit
 
 from stopwise.core.errors import SpecError
+
+
+@functools.lru_cache(maxsize=1)
+def _scipy_expit() -> Callable:
+    from scipy.special import expit as f
+
+    return f
+
+
+def expit(x, out=None):
+    """The logistic function, ``scipy.special.expit`` (SciPy loads on first use, not with the
+    package: a worker that runs least squares never needs it)."""
+    return _scipy_expit()(x, out=out) if out is not None else _scipy_expit()(x)
+
+
 # ``train`` arguments are a stopwise.problem.problem.TrainingSet (annotations only: the problem module
 # imports this one, not the other way round).
 

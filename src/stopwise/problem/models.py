@@ -21,7 +21,7 @@ from __future__ import annotations
 from typing import Callable
 
 import numpy as np
-from scipy.special import expit
+from stopwise.problem.losses import expit
 
 
 KERNELS = ("linear", "rbf", "polynomial", "laplacian")

@@ -283,7 +283,7 @@ def _move(store: Store, path: Path) -> Path:
     from stopwise.data import cache
 
     croot = cache.cache_dir()
-    if croot is not None and path.parent == croot / "problems" and path.suffix == ".json":
+    if croot is not None and path.parent in (croot / "problems", croot / "raw") and path.suffix == ".json":
         dest_dir = croot / QUARANTINE
         dest_dir.mkdir(parents=True, exist_ok=True)
         for part in (path.with_suffix(".npz"), path):  # the entry's two files, arrays first
