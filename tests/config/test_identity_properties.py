@@ -250,3 +250,14 @@ def test_values_outside_a_constraint_are_refused_in_one_line(data):
         assert "\n" not in str(e) and str(e)
         return
     raise AssertionError(f"{'.'.join(path)}={bad!r} was accepted")
+
+
+@SETTINGS
+@given(configs())
+def test_the_identity_text_of_a_spec_is_its_canonical_json(cfg):
+    """RunSpec.digest hashes the identity with one json.dumps (identity_json); that text must
+    be canonical_json's, the definition of a run id (docs/architecture.md)."""
+    from stopwise.config.spec import canonical_json, identity_json
+
+    ident = spec_from_config(cfg).identity()
+    assert identity_json(ident) == canonical_json(ident)

@@ -213,3 +213,23 @@ def test_files_written_before_checksums_are_checked_as_before_and_counted(root):
     rep = verify_root(root, cache=False)
     assert rep.ok and rep.unsealed == 1
     assert any("1 files written before checksums" in f.problem for f in rep.notes)
+
+
+@pytest.mark.parametrize("n", [0, 1, 7])
+def test_the_writers_digest_is_the_digest_of_what_it_wrote(tmp_path, n):
+    """Store.write_run computes the data checksum from the values it writes (ColumnDigest);
+    it must equal data_digest of the file read back, for every kind of column a trace holds."""
+    from stopwise.results.schema import data_digest, read_table
+
+    rng = np.random.default_rng(n)
+    run_level = {"run_id": "ab" * 8, "dataset": "plants", "task": "regression", "loss": None, "solver": "sgd",
+                 "seed": 3, "status": "completed", "step_scale": 0.5, "tail": 1, "nonneg": True,
+                 "groups": [1, 2], "schedule": {"kind": "constant"}, "name_with_é": "é"}
+    columns = {"iteration": np.arange(n, dtype=np.int64), "passes": rng.random(n),
+               "val_error": np.where(np.arange(n) % 2, np.nan, 1.0), "dist_truth": np.full(n, np.nan),
+               "count32": np.arange(n, dtype=np.int32), "grid": np.arange(2 * n, dtype=np.float64)[::2]}
+    store = Store(tmp_path / "r")
+    path = store.write_run("ab" * 8, columns, run_level, {"run_id": "ab" * 8})
+    table = read_table(path)
+    stored = json.loads(table.schema.metadata[b"stopwise.checksums"])["data"]
+    assert stored == data_digest(table)

@@ -380,7 +380,7 @@ class RunSpec:
 
     @functools.cached_property
     def digest(self) -> str:  # computed once: a spec is frozen
-        return hashlib.sha256(canonical_json(self.identity()).encode()).hexdigest()
+        return hashlib.sha256(identity_json(self.identity()).encode()).hexdigest()
 
     @property
     def run_id(self) -> str:
@@ -404,6 +404,25 @@ class RunSpec:
 
 def _fmt(v: Any) -> str:
     return f"{v:g}" if isinstance(v, float) else str(v)
+
+
+def identity_json(ident: dict) -> str:
+    """:func:`canonical_json` of a run identity, at the cost of one ``json.dumps``: an identity
+    is built from validated sections whose keys are all strings, so sorted-key JSON is
+    already canonical unless it holds a ``-0.0`` (or a non-finite number, refused), in which
+    case the general path gives the text (and the refusal).
+
+    >>> ident = {"seed": 1, "budget": {"passes": None, "iterations": 5}, "params": {"step_scale": 0.5}}
+    >>> identity_json(ident) == canonical_json(ident)
+    True
+    >>> identity_json({"w": -0.0}) == canonical_json({"w": 0.0})
+    True
+    """
+    try:
+        text = json.dumps(ident, sort_keys=True, separators=(",", ":"), allow_nan=False)
+    except (TypeError, ValueError):
+        return canonical_json(ident)
+    return canonical_json(ident) if "-0.0" in text else text
 
 
 def canonical_json(obj: Any) -> str:

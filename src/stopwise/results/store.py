@@ -30,7 +30,8 @@ from stopwise.core.files import atomic_write as _atomic_write  # noqa: F401  (th
 from stopwise.core.files import atomic_write_bytes
 from stopwise.core.errors import StopwiseError
 from stopwise.config.spec import canonical_json
-from stopwise.results.schema import META_KEY, RUN_LEVEL, STATUSES, encode, metadata_problem, read_table, seal  # noqa: F401
+from stopwise.results.schema import (META_KEY, RUN_LEVEL, STATUSES, ColumnDigest, encode,  # noqa: F401
+                                     metadata_problem, read_table, seal)
 
 _ID = re.compile(r"^[0-9a-f]{4,64}$")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")  # the campaign file names' rule (campaign.NAME)
@@ -68,17 +69,21 @@ class Store:
         """Write a run's trace atomically. ``run_level`` values are repeated on every row."""
         n = len(next(iter(columns.values()))) if columns else 0
         arrays, names = [], []
+        digest = ColumnDigest()  # the data's checksum, from the values as they are written
         for k, v in run_level.items():
             names.append(k)
             arrays.append(_constant_column(v, n))
+            digest.constant(k, v, n)
         for k, v in columns.items():
             names.append(k)
             if k == "dist_truth" and n and np.all(np.isnan(v)):
                 arrays.append(pa.nulls(n, pa.float64()))
+                digest.nulls(k, n, "double")
             else:
                 arrays.append(pa.array(v))
+                digest.values(k, v, arrays[-1])
         table = seal(pa.Table.from_arrays(arrays, names=names),
-                     json.dumps(meta, sort_keys=True, default=_json_default).encode())
+                     json.dumps(meta, sort_keys=True, default=_json_default).encode(), data=digest.hexdigest())
         path = self.run_path(run_id)
         try:
             _atomic_write(path, lambda fh: encode(table, fh))
