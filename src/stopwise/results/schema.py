@@ -177,9 +177,7 @@ def data_digest(table: pa.Table) -> str:
     False
     """
     import hashlib
-    import json
 
-    import numpy as np
 
     h = hashlib.sha256()
     for name, col in zip(table.column_names, table.columns):
