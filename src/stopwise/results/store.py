@@ -428,7 +428,12 @@ def _constant_column(v: Any, n: int) -> pa.Array:
         return pa.nulls(n, pa.string())
     if not isinstance(v, str):
         v = json.dumps(v, sort_keys=True)
-    return pa.repeat(pa.scalar(v, pa.string()), n)
+    b = v.encode()
+    if n * len(b) >= 2**31 - 1:  # beyond 32-bit offsets: let Arrow lay it out
+        return pa.repeat(pa.scalar(v, pa.string()), n)
+    # the string n times, laid out directly (a third of the time of pa.repeat for a string)
+    offsets = np.arange(n + 1, dtype=np.int32) * np.int32(len(b))
+    return pa.Array.from_buffers(pa.string(), n, [None, pa.py_buffer(offsets), pa.py_buffer(b * n)])
 
 
 def _json_default(o: Any) -> Any:

@@ -110,33 +110,50 @@ def orphaned(launcher: int | None) -> bool:
 _PARENT: dict[str, int] = {}  # this process's parent when its first chunk began
 
 
-@contextmanager
-def _locked(path: Path) -> Iterator[Any]:
-    import fcntl
+class ProgressCount:
+    """The launch's shared progress count (``progress.json``), held open for a chunk: each
+    finished run adds one under an exclusive lock (so every progress line carries an exact
+    count, across workers and machines that share the folder)."""
 
-    fd = os.open(path, os.O_RDWR)
-    try:
-        fcntl.flock(fd, fcntl.LOCK_EX)
-        with os.fdopen(os.dup(fd), "r+") as fh:
-            yield fh
-    finally:
-        os.close(fd)  # closing the last descriptor releases the lock
+    def __init__(self, store: Store, campaign_id: str):
+        try:
+            self.fd: int | None = os.open(jobs_dir(store, campaign_id) / "progress.json", os.O_RDWR)
+        except OSError:  # no progress file (Hydra driven directly): no count
+            self.fd = None
+
+    def add_one(self) -> dict[str, Any] | None:
+        """Add one finished run; the count after it, or None when there is none to keep."""
+        if self.fd is None:
+            return None
+        import fcntl
+
+        try:
+            fcntl.flock(self.fd, fcntl.LOCK_EX)
+            try:
+                state = json.loads(os.pread(self.fd, 1 << 16, 0) or b"{}")
+                state["done"] = int(state.get("done", 0)) + 1
+                out = json.dumps(state).encode()
+                os.pwrite(self.fd, out, 0)
+                os.ftruncate(self.fd, len(out))
+                return state
+            finally:
+                fcntl.flock(self.fd, fcntl.LOCK_UN)
+        except (OSError, ValueError, TypeError, AttributeError):
+            return None
+
+    def close(self) -> None:
+        if self.fd is not None:
+            os.close(self.fd)
+            self.fd = None
 
 
 def count_one(store: Store, campaign_id: str) -> dict[str, Any] | None:
-    """Add one finished run to the launch's progress count; the count after it, or None
-    when there is no progress file (Hydra driven directly) or it cannot be locked."""
-    path = jobs_dir(store, campaign_id) / "progress.json"
+    """Add one finished run to the launch's progress count (see :class:`ProgressCount`)."""
+    counter = ProgressCount(store, campaign_id)
     try:
-        with _locked(path) as fh:
-            state = json.loads(fh.read() or "{}")
-            state["done"] = int(state.get("done", 0)) + 1
-            fh.seek(0)
-            fh.write(json.dumps(state))
-            fh.truncate()
-            return state
-    except (OSError, ValueError, ImportError):
-        return None
+        return counter.add_one()
+    finally:
+        counter.close()
 
 
 def eta_text(seconds: float) -> str:
@@ -233,6 +250,7 @@ def run_chunk(root: str, campaign_id: str, k: int, threads: int | None = None) -
     stamps: dict[str, list] = {}  # each stored trace's status with its file's stamp (see chunk_statuses)
     runs, launcher = _read_chunk(store, campaign_id, k)
     _PARENT.setdefault("start", os.getppid())
+    progress = ProgressCount(store, campaign_id)
     with limited_threads(threads), batched_sync():
         for j, (run_id, ident) in enumerate(runs):
             if orphaned(launcher):  # the sweep was killed: leave the rest to the next sweep, never run it twice
@@ -265,10 +283,11 @@ def run_chunk(root: str, campaign_id: str, k: int, threads: int | None = None) -
             except (OSError, TypeError):
                 pass
             try:
-                head, tail = progress_prefix(count_one(store, campaign_id))
+                head, tail = progress_prefix(progress.add_one())
                 print(head + outcome_line(out) + tail, flush=True)
             except Exception:  # a progress line must never fail a run
                 pass
+    progress.close()
     try:
         atomic_write_bytes(jobs_dir(store, campaign_id) / "status" / f"{int(k)}.json",
                            json.dumps(stamps, separators=(",", ":")).encode(), durable=False)
