@@ -130,9 +130,10 @@ def test_the_same_command_after_the_submitter_was_killed_completes_every_run_onc
     """The submitting process is killed (SIGKILL) once the first trace of its campaign is
     stored, with the rest still queued or running; the same command typed again completes
     the campaign: every run of the manifest stored once, no temporary file left, one manifest,
-    the traces those of a sequential sweep."""
+    the traces those of a sequential sweep. One run per array task (``--chunk 1``): a single
+    task would store its eight runs of milliseconds each before the kill could land."""
     args = ["sweep", "dataset=diabetes", "solver=gd,nesterov", "seed=0,1,2,3", "budget.iterations=50",
-            *SLURM, f"results_root={tmp_path / 'res'}"]
+            *SLURM, f"results_root={tmp_path / 'res'}", "--chunk", "1"]
     root = tmp_path / "res"
     first = popen(*args, cwd=tmp_path)
     try:
