@@ -142,13 +142,7 @@ class Store:
                         entries[name[:-8]] = (st.st_size, st.st_mtime_ns, st.st_ino)
         except FileNotFoundError:
             return {}
-        index_path = self.root / "index" / "status.json"
-        try:
-            index = json.loads(index_path.read_text())
-            if not isinstance(index, dict):
-                index = {}
-        except (OSError, ValueError):
-            index = {}
+        index_path, index = self._status_index()
         out: dict[str, str] = {}
         changed = False
         for rid, stamp in entries.items():
@@ -174,6 +168,15 @@ class Store:
                 pass
         return out
 
+    def _status_index(self) -> tuple[Path, dict]:
+        """The status index's path and its entries ({} when missing or unreadable)."""
+        index_path = self.root / "index" / "status.json"
+        try:
+            index = json.loads(index_path.read_text())
+        except (OSError, ValueError):
+            return index_path, {}
+        return index_path, index if isinstance(index, dict) else {}
+
     def remember(self, entries: dict[str, list]) -> None:
         """Merge ``{run_id: [size, mtime_ns, inode, status]}`` into the status index: stamps
         taken by the process that wrote each trace, right after writing it, so that
@@ -181,13 +184,7 @@ class Store:
         file (the file was replaced since) is simply read again by :meth:`statuses`."""
         if not entries:
             return
-        index_path = self.root / "index" / "status.json"
-        try:
-            index = json.loads(index_path.read_text())
-            if not isinstance(index, dict):
-                index = {}
-        except (OSError, ValueError):
-            index = {}
+        index_path, index = self._status_index()
         for rid, entry in entries.items():
             if (isinstance(rid, str) and _ID.match(rid) and isinstance(entry, list) and len(entry) == 4
                     and all(isinstance(x, int) for x in entry[:3]) and entry[3] in STATUSES):
