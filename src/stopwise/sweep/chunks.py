@@ -293,7 +293,7 @@ def run_chunk(root: str, campaign_id: str, k: int, threads: int | None = None) -
                            json.dumps(stamps, separators=(",", ":")).encode(), durable=False)
     except OSError:  # the stamps only save the sweep's final count a read of these traces
         pass
-    if counts.get("left"):  # traces flushed above; nobody will ever collect this worker's result
+    if counts.get("left") or orphaned(launcher):  # traces flushed above; nobody will ever collect this result
         os._exit(0)
     return counts
 
