@@ -8,8 +8,9 @@ workers, or from its start for one kill in five, which then hits the campaign's 
 either the parent (the process the user started) or one of its joblib workers, chosen at
 random, is killed with SIGKILL, and the
 command is started again, until one start exits 0. A killed parent's workers are left
-alone: they may go on writing while the restarted command runs, as they would on a real
-machine; at the end, any still alive (found by the session each start was given) are killed. While this goes on, a watcher reads every trace that appears under its final name
+alone, as they would be on a real machine: each finishes the run it is in, stops before its
+next one (docs/reliability.md section 4) and exits; at the end, any still alive (found by the
+session each start was given) are counted and killed. While this goes on, a watcher reads every trace that appears under its final name
 in full (a partial file visible to a reader would fail to decode).
 
 At the end, against the campaign's manifest:
