@@ -483,6 +483,16 @@ def spec_from_config(cfg: Any) -> RunSpec:
                    record=record, seed=seed, stopping=stopping)
 
 
+def _keep(memo: dict[str, str], key: str | None, value: Any) -> None:
+    """Remember a normalized section as JSON under its input's key (at most 256 per memo;
+    a value that is not plain data is not kept)."""
+    if key is not None and len(memo) < 256:
+        try:
+            memo[key] = json.dumps(value)
+        except (TypeError, ValueError):
+            pass
+
+
 _DATASETS: dict[str, str] = {}  # normalized dataset sections by their input (a sweep repeats a few)
 
 
@@ -508,11 +518,7 @@ def _dataset_section(raw: dict) -> dict:
         out = normalize_dataset(raw)
     except DataError as e:
         raise SpecError(str(e)) from None
-    if key is not None and len(_DATASETS) < 256:
-        try:
-            _DATASETS[key] = json.dumps(out)
-        except (TypeError, ValueError):  # not plain data: not kept
-            pass
+    _keep(_DATASETS, key, out)
     return out
 
 
@@ -648,11 +654,7 @@ def _stopping_section(raw: dict | None, record: dict, dataset: dict) -> dict:
             stopping = normalize_stopping(dict(_defaults(StoppingConfig), **(raw or {})))
         except RuleError as e:
             raise SpecError(str(e)) from None
-        if key is not None and len(_STOPPING) < 256:
-            try:
-                _STOPPING[key] = json.dumps(stopping)
-            except (TypeError, ValueError):  # not plain data: not kept
-                pass
+        _keep(_STOPPING, key, stopping)
     if stopping["halt"]:
         _check_halt_columns(stopping["rule"], record, dataset)
     return stopping
