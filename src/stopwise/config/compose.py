@@ -42,14 +42,15 @@ def hydra_context() -> Iterator[Any]:
         yield GlobalHydra.instance()
 
 
-def compose_job(overrides: list[str], return_hydra_config: bool = False):
-    """Hydra's own composition of one job (inside :func:`hydra_context`); errors as one line."""
+def compose_job(overrides: list[str], return_hydra_config: bool = False, config_name: str = "config"):
+    """Hydra's own composition of one job (inside :func:`hydra_context`); errors as one line.
+    ``config_name``: ``config`` (a run's config) or ``launch`` (a launched chunk's)."""
     from hydra import compose
     from hydra.errors import HydraException
     from omegaconf.errors import OmegaConfBaseException
 
     try:
-        return compose(config_name="config", overrides=list(overrides), return_hydra_config=return_hydra_config)
+        return compose(config_name=config_name, overrides=list(overrides), return_hydra_config=return_hydra_config)
     except (HydraException, OmegaConfBaseException) as e:
         raise SpecError(hydra_error_line(e)) from None
 

@@ -28,6 +28,7 @@ from stopwise.config.spec import (
     TaskMismatch,
     campaigns_dir,
     canonical_json,
+    data_keys,
     conf_dir,
     group_options,
     hydra_error_line,
@@ -58,7 +59,7 @@ def check_data(specs: list[RunSpec]) -> None:
     from stopwise.solvers import get_solver
 
     firsts: dict[str, RunSpec] = {}
-    keys = [canonical_json([s.dataset, s.split]) for s in specs]
+    keys = data_keys(specs)
     for key, s in zip(keys, specs):
         firsts.setdefault(key, s)
     try:
@@ -466,7 +467,8 @@ def launcher_workers(exp: Expansion) -> tuple[str, int]:
     if not exp.launch_overrides:
         return "basic", 1
     with hydra_context():
-        cfg = compose_job(exp.launch_overrides + [f"results_root={quote(exp.root)}"], return_hydra_config=True)
+        cfg = compose_job(exp.launch_overrides + [f"results_root={quote(exp.root)}"], return_hydra_config=True,
+                          config_name="launch")
     target = str(cfg.hydra.launcher.get("_target_", ""))
     if "joblib" in target.lower():
         n = int(cfg.hydra.launcher.get("n_jobs") or 1)
@@ -479,8 +481,8 @@ def launcher_workers(exp: Expansion) -> tuple[str, int]:
 def chunk_count(pending: int, kind: str, workers: int, size: int | None = None) -> int:
     """How many chunks ``pending`` runs are cut into: ``--chunk N`` runs each when given;
     one for the in-process launcher; two per worker for a local pool (Hydra composes the
-    config of every launched job, about 0.3 s each, in the launching process and again in
-    the worker, so few chunks; :func:`stopwise.sweep.chunks.cut` balances them); for a
+    config of every launched job (``conf/launch.yaml``, with Hydra's own settings about 0.2 s
+    each) in the launching process and again in the worker, so few chunks; :func:`stopwise.sweep.chunks.cut` balances them); for a
     queue, one array task per worker at most and at least 16 runs per task (an array task
     starts a Python process of its own)."""
     if pending <= 0:
@@ -529,7 +531,9 @@ def launch(exp: Expansion, chunk: int | None = None) -> dict[str, Any]:
     saved = sys.argv
     sys.argv = argv
     try:
-        hydra.main(config_path=str(conf_dir()), config_name="config", version_base="1.3")(app.task)()
+        # conf/launch.yaml: a launched job runs stored identities, so Hydra composes only its
+        # settings (a few ms per job, in this process and again in each worker or array task)
+        hydra.main(config_path=str(conf_dir()), config_name="launch", version_base="1.3")(app.task)()
     finally:
         sys.argv = saved
     return {"pending": len(pending), "chunks": k}

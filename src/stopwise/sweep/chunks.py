@@ -25,7 +25,7 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Any, Iterator
 
-from stopwise.config.spec import RunSpec, SpecError, canonical_json, spec_from_identity
+from stopwise.config.spec import RunSpec, SpecError, data_keys, spec_from_identity
 from stopwise.core.files import atomic_write_bytes, batched_sync
 from stopwise.results.store import Store, StoreError
 
@@ -40,9 +40,9 @@ def chunk_path(store: Store, campaign_id: str, k: int) -> Path:
 
 def problem_groups(specs: list[RunSpec]) -> list[list[RunSpec]]:
     """Runs of the same data (dataset, split, seed) together, first-seen order kept."""
-    groups: dict[str, list[RunSpec]] = {}
-    for s in specs:
-        groups.setdefault(canonical_json([s.dataset, s.split, s.seed]), []).append(s)
+    groups: dict[tuple[str, int], list[RunSpec]] = {}
+    for key, s in zip(data_keys(specs), specs):
+        groups.setdefault((key, s.seed), []).append(s)
     return list(groups.values())
 
 
@@ -71,10 +71,11 @@ def write_plan(store: Store, campaign_id: str, pending: list[RunSpec], k: int, t
                 old.unlink()
     chunks = cut(pending, k)
     for i, part in enumerate(chunks):
-        runs = [[s.run_id, s.identity()] for s in part]
-        atomic_write_bytes(chunk_path(store, campaign_id, i),
-                           json.dumps({"chunk": i, "runs": runs, "launcher": os.getpid()},
-                                      separators=(",", ":")).encode(), durable=False)
+        # {"chunk": i, "runs": [[run_id, identity], ...], "launcher": pid}, each identity the
+        # canonical JSON its run id hashes (encoded once, when the id was computed)
+        runs = ",".join(f'["{s.run_id}",{s.identity_text}]' for s in part)
+        text = f'{{"chunk":{int(i)},"runs":[{runs}],"launcher":{os.getpid()}}}'
+        atomic_write_bytes(chunk_path(store, campaign_id, i), text.encode(), durable=False)
     atomic_write_bytes(jobs_dir(store, campaign_id) / "progress.json",
                        json.dumps({"start": time.time(), "total": total, "before": done_before,
                                    "pending": len(pending), "done": 0}).encode(), durable=False)
