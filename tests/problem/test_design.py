@@ -84,6 +84,14 @@ def test_a_sparse_problem_is_read_only_and_rejects_mixed_designs():
                 y_val=p.y_val, X_test=p.X_test, y_test=p.y_test)
 
 
+def test_a_problem_refuses_a_csr_matrix_with_duplicate_entries():
+    X = sp.csr_matrix((np.array([1.0, 2.0]), np.array([1, 1]), np.array([0, 2, 2])), shape=(2, 2))
+    with pytest.raises(TypeError, match="without duplicates"):
+        Problem(name="dup", task="regression", X_train=X, y_train=np.zeros(2), X_val=X, y_val=np.zeros(2),
+                X_test=X, y_test=np.zeros(2))
+    assert design.as_csr(X).toarray().tolist() == [[0.0, 3.0], [0.0, 0.0]]
+
+
 def test_the_dense_copy_is_made_once_and_refused_above_the_bound():
     p = sparse_problem()
     q = p.dense("solver 'kaczmarz'")

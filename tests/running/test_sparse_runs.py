@@ -56,9 +56,10 @@ def spec(solver, *extra, iterations=25):
     return spec_from_overrides(["dataset=wellposed", f"solver={solver}", f"budget.iterations={iterations}", *extra])
 
 
-@pytest.mark.parametrize("shape", [(0, 3), (1, 1), (5, 3), (40, 17), (17, 40)])
+@pytest.mark.parametrize("shape", [(0, 3), (1, 1), (5, 3), (40, 17), (17, 40), (9, 100), (3, 64)])
 def test_csr_kernels_equal_scipys_products(shape):
-    """Reference: SciPy's CSR products X @ w and X.T @ r (and numpy's on X.toarray())."""
+    """Reference: SciPy's CSR products X @ w and X.T @ r (and numpy's on X.toarray()); rows of
+    0 to 30 entries exercise the eight-entry scatter and its remainder."""
     n, d = shape
     X = random_csr(n, d, 0.3, n + d) if n else sp.csr_matrix((0, d))
     rng = np.random.default_rng(1)
@@ -72,6 +73,12 @@ def test_csr_kernels_equal_scipys_products(shape):
     r2 = np.full(n, np.nan)
     kernels.csr_residual(X, w, y, r2)
     np.testing.assert_allclose(r2, ref_r, rtol=1e-13, atol=1e-14)
+
+
+def test_the_csr_kernel_refuses_duplicate_entries():
+    X = sp.csr_matrix((np.array([1.0, 2.0]), np.array([0, 0]), np.array([0, 2])), shape=(1, 2))
+    with pytest.raises(ValueError, match="canonical form"):
+        kernels.csr_residual_gradient(X, np.ones(2), np.zeros(1), np.empty(1), np.empty(2))
 
 
 def iterates(solver, problem, params_spec, path, steps=25):

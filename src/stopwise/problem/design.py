@@ -35,13 +35,14 @@ def is_sparse(X: Any) -> bool:
 
 
 def as_csr(X: Any) -> Any:
-    """``X`` as a CSR matrix of float64 with sorted indices, no explicit zeros kept out on
-    purpose (the file's entries are the design's entries) and int32 indices where they fit."""
+    """``X`` as a CSR matrix of float64 in canonical form (sorted column indices, no
+    duplicates); explicit zeros are kept (the file's entries are the design's entries)."""
     import scipy.sparse as sp
 
     X = sp.csr_matrix(X, dtype=np.float64)
-    if not X.has_sorted_indices:
-        X = X.sorted_indices()
+    if not X.has_canonical_format:
+        X = X.copy()
+        X.sum_duplicates()  # sorted column indices, duplicates added up (as a dense copy would)
     return X
 
 

@@ -164,6 +164,9 @@ class Problem:
                 raise TypeError(f"Problem.{name} must be sparse like X_train, or dense like it")
             if _design.is_sparse(arr) and arr.format != "csr":
                 raise TypeError(f"Problem.{name} must be a CSR matrix, got {arr.format}")
+            if _design.is_sparse(arr) and not arr.has_canonical_format:
+                raise TypeError(f"Problem.{name} must have sorted column indices without duplicates "
+                                "(scipy's X.sum_duplicates())")
             _design.freeze(arr)
         if self.w_true is not None:
             self.w_true.flags.writeable = False
