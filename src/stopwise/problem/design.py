@@ -124,7 +124,12 @@ def densify(X: Any, where: str, choices: str = "") -> np.ndarray:
 
 
 def row_norms_sq(X: Any) -> np.ndarray:
-    """``||x_i||^2`` of every row (a new array)."""
+    """``||x_i||^2`` of every row (a new array).
+
+    >>> import scipy.sparse as sp
+    >>> row_norms_sq(sp.csr_matrix(np.array([[3.0, 4.0], [0.0, 0.0], [0.0, 2.0]]))).tolist()
+    [25.0, 0.0, 4.0]
+    """
     if is_sparse(X):
         rows = np.repeat(np.arange(X.shape[0]), np.diff(X.indptr))
         return np.bincount(rows, weights=np.square(X.data), minlength=X.shape[0]).astype(np.float64)
@@ -155,7 +160,12 @@ def spectral_norm_sq(X: Any) -> float:
 
 
 def sparse_norm2(X: Any) -> float:
-    """``||X||_2`` of a sparse matrix by ``scipy.sparse.linalg.svds(k=1)`` (no dense SVD)."""
+    """``||X||_2`` of a sparse matrix by ``scipy.sparse.linalg.svds(k=1)`` (no dense SVD).
+
+    >>> import scipy.sparse as sp
+    >>> round(sparse_norm2(sp.csr_matrix(np.diag([3.0, -5.0, 1.0]))), 12)
+    5.0
+    """
     from scipy.sparse.linalg import svds
 
     v0 = np.full(min(X.shape), 1.0 / np.sqrt(min(X.shape)))
