@@ -431,7 +431,9 @@ def fit_path(problem: Problem, method: str, params: Mapping[str, Any] | Any = No
     if problem.task not in d.tasks:
         raise BaselineError(f"baseline {method!r} does not handle {problem.task} problems; "
                             f"for {problem.task}: {', '.join(default_methods(problem.task)) or '(none)'}")
-    return d.fit(problem, p)
+    # the explicit baselines factor dense matrices (SVD, kernels): a sparse problem is made
+    # dense within the bound of stopwise.problem.design, else refused in one line
+    return d.fit(problem.dense(f"baseline {method!r}"), p)
 
 
 # ---------------------------------------------------------------- identity and store

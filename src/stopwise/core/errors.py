@@ -14,6 +14,7 @@ The hierarchy (module of each class in brackets)::
     +-- SpecError(ValueError)                 bad input: spec, data, params, options
     |   +-- ParamError                        a params field out of its constraint [core.params]
     |   +-- LossError                         unknown loss or one unfit for the task [problem.losses]
+    |   +-- DesignError                       a sparse design too large to densify [problem.design]
     |   +-- DataError                         dataset and source input; unknown source [data.errors]
     |   |   +-- GeneratorError                                             [data.generators]
     |   |   +-- PreprocessError                                            [data.preprocess]

@@ -17,6 +17,7 @@ from typing import Any, Iterable
 
 import numpy as np
 
+from stopwise.problem.design import as_csr, is_sparse
 from stopwise.problem.problem import Problem
 from stopwise.core.params import ParamError, make_params
 from stopwise.data import cache as _cache
@@ -27,6 +28,7 @@ from stopwise.data.preprocess import (
     drop_constant,
     encode_labels,
     random_features,
+    scale_sparse,
     standardize,
     table_to_numeric,
 )
@@ -94,6 +96,8 @@ def normalize_dataset(cfg: dict[str, Any]) -> dict[str, Any]:
     try:
         params = make_params(src.params, dict(cfg.get("params") or {}), f"dataset.params ({src.name})")
         task = src.check(params) if src.check is not None else None
+        if src.resolve is not None:
+            params = src.resolve(params)
     except ValueError as e:
         raise DataError(str(e)) from None
     out = dict(cfg)
@@ -215,6 +219,20 @@ def _split(raw: RawData, split: dict[str, Any], seed: int):
     return split_rows(raw.n_rows, kind, float(split.get("test", 0.2)), val, int(seed), rows)
 
 
+def _nan_rows(X: Any) -> np.ndarray:
+    """Rows of a CSR matrix holding a NaN among their stored entries."""
+    rows = np.repeat(np.arange(X.shape[0]), np.diff(X.indptr))
+    bad = np.zeros(X.shape[0], dtype=bool)
+    bad[rows[np.isnan(X.data)]] = True
+    return bad
+
+
+def sp_hstack(blocks: list[Any]) -> Any:
+    import scipy.sparse as sp
+
+    return sp.hstack(blocks, format="csr")
+
+
 def _missing_target(y: np.ndarray) -> np.ndarray:
     if y.dtype == object:
         return np.array([v is None or (isinstance(v, float) and v != v) for v in y.tolist()], dtype=bool)
@@ -230,6 +248,7 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
     params = make_params(src.params, dataset["params"], "dataset.params")
     raw = _load_raw(src, params)
     X, frame, names, w_true = _select(raw, dataset, where)
+    sparse = X is not None and is_sparse(X)
     try:
         parts = list(_split(raw, split, seed))
     except SplitError as e:
@@ -250,7 +269,8 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
         n_target = int(bad.sum())
         n_feat = 0
         if missing == "drop":
-            fbad = frame.iloc[idx].isna().any(axis=1).to_numpy() if frame is not None else np.isnan(X[idx]).any(axis=1)
+            fbad = (frame.iloc[idx].isna().any(axis=1).to_numpy() if frame is not None
+                    else _nan_rows(X[idx]) if sparse else np.isnan(X[idx]).any(axis=1))
             n_feat = int((fbad & ~bad).sum())
             bad = bad | fbad
         if bad.any():
@@ -277,6 +297,8 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
         Xs, names, rec = table_to_numeric([frame.iloc[idx] for idx in (tr, va, te)],
                                           tuple(c for c in frame.columns if c in cats), missing, where)
         prep.update(rec)
+    elif sparse:
+        Xs = [as_csr(X[idx]) for idx in (tr, va, te)]  # rows of a CSR matrix: its stored entries only
     else:
         Xs = [np.array(X[idx], dtype=np.float64) for idx in (tr, va, te)]
     if dataset.get("drop_constant", True):
@@ -285,7 +307,13 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
             prep["constant_removed"] = gone
         if Xs[0].shape[1] == 0:
             raise DataError(f"{where}: every feature column is constant on the training rows")
-    if dataset.get("standardize", True):
+    if sparse and dataset.get("center_features", False):
+        raise DataError(f"{where}: dataset.center_features=true would fill every implicit zero of its sparse "
+                        "design; set it false, or dataset.params.design=dense")
+    if sparse and dataset.get("standardize", True):
+        Xs, w_true, rec = scale_sparse(Xs, w_true)  # scaled, not centered: centering would densify
+        prep["scale"] = rec
+    elif dataset.get("standardize", True):
         Xs, w_true, rec = standardize(Xs, w_true)
         prep["standardize"] = rec
     elif dataset.get("center_features", False):
@@ -301,7 +329,8 @@ def build_problem(dataset: dict[str, Any], split: dict[str, Any], seed: int) -> 
         w_true = None
     if dataset.get("add_constant", False):
         # a column of ones after scaling and random features: a bias that solvers treat as a weight
-        Xs = [np.hstack([x, np.ones((x.shape[0], 1))]) for x in Xs]
+        Xs = [as_csr(sp_hstack([x, np.ones((x.shape[0], 1))])) if is_sparse(x)
+              else np.hstack([x, np.ones((x.shape[0], 1))]) for x in Xs]
         names = tuple(names) + ("const",)
         if w_true is not None:
             w_true = np.append(w_true, 0.0)

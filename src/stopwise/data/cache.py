@@ -2,7 +2,10 @@
 
 A processed Problem is stored as two files named by the SHA-256 of its data spec::
 
-    <cache>/problems/<key32>.npz    the float64 arrays (numpy .npz, read with allow_pickle=False)
+    <cache>/problems/<key32>.npz    the float64 arrays (numpy .npz, read with allow_pickle=False);
+                                    a CSR design as its three arrays X_<split>__data (float64),
+                                    X_<split>__indices and X_<split>__indptr (integers), its
+                                    shape in the JSON (``csr``)
     <cache>/problems/<key32>.json   everything else (names, task, noise, preprocessing record, info)
 
 The key covers the normalized dataset config, the split, the seed, a digest of the
@@ -39,6 +42,8 @@ from stopwise.problem.problem import Problem
 CACHE_FORMAT = 3  # 2: Problem.info carries row_order; 3: checksums of both files
 ENV = "STOPWISE_CACHE"
 ARRAYS = ("X_train", "y_train", "X_val", "y_val", "X_test", "y_test")
+DESIGNS = ("X_train", "X_val", "X_test")
+CSR_PARTS = ("data", "indices", "indptr")
 _VERSIONS: dict[str, str] | None = None
 
 
@@ -157,6 +162,11 @@ def read(key: str, root: Path | None = None) -> Problem | None:
             arrays = {k: np.array(z[k]) for k in z.files}
     except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile):  # damaged: rebuild
         return None
+    csr = meta.get("csr") or {}
+    if csr:
+        arrays = _csr_from_parts(arrays, csr)
+        if arrays is None:
+            return None
     want = set(ARRAYS) | ({"w_true"} if meta.get("has_truth") else set())
     if set(arrays) != want or any(a.dtype != np.float64 for a in arrays.values()):
         return None
@@ -164,6 +174,30 @@ def read(key: str, root: Path | None = None) -> Problem | None:
                    noise_level=meta["noise_level"], noise_kind=meta["noise_kind"],
                    feature_names=tuple(meta["feature_names"]), preprocessing=meta["preprocessing"],
                    info=meta["info"], loss=meta.get("loss"), **{k: arrays[k] for k in ARRAYS})
+
+
+def _csr_from_parts(arrays: dict, csr: dict) -> dict | None:
+    """The arrays with each CSR design rebuilt from its three parts and its stored shape, or
+    None when the parts do not make a valid CSR matrix of float64."""
+    import scipy.sparse as sp
+
+    out = dict(arrays)
+    for k, shape in csr.items():
+        if k not in DESIGNS:
+            return None
+        try:
+            data, indices, indptr = (out.pop(f"{k}__{part}") for part in CSR_PARTS)
+        except KeyError:
+            return None
+        if data.dtype != np.float64 or indices.dtype.kind != "i" or indptr.dtype.kind != "i":
+            return None
+        try:
+            X = sp.csr_matrix((data, indices, indptr), shape=tuple(int(v) for v in shape))
+            X.check_format(full_check=True)
+        except (ValueError, TypeError):
+            return None
+        out[k] = X
+    return out
 
 
 def write(key: str, problem: Problem, root: Path | None = None) -> Path | None:
@@ -175,6 +209,13 @@ def write(key: str, problem: Problem, root: Path | None = None) -> Path | None:
     arrays = {k: getattr(problem, k) for k in ARRAYS}
     if problem.w_true is not None:
         arrays["w_true"] = problem.w_true
+    csr = {}
+    if problem.sparse:
+        for k in DESIGNS:
+            X = arrays.pop(k)
+            csr[k] = list(X.shape)
+            for part in CSR_PARTS:
+                arrays[f"{k}__{part}"] = getattr(X, part)
     buf = io.BytesIO()
     np.savez(buf, **arrays)
     data = buf.getvalue()
@@ -185,6 +226,8 @@ def write(key: str, problem: Problem, root: Path | None = None) -> Path | None:
             "preprocessing": problem.preprocessing, "info": problem.info, "loss": problem.loss,
             "shapes": {k: list(v.shape) for k, v in arrays.items()},
             "arrays_sha256": hashlib.sha256(data).hexdigest()}
+    if csr:
+        meta["csr"] = csr
     meta = jsonable(meta)
     meta["meta_sha256"] = _meta_sha(meta)
     atomic_write_bytes(json_path, json.dumps(meta, sort_keys=True).encode(), durable=False)

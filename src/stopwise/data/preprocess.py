@@ -12,6 +12,7 @@ Order (see docs/datasets.md)::
     -> one-hot encode categorical columns                          OneHotEncoder
     -> drop columns constant on the training rows
     -> standardize  x' = (x - mean) / std  (std 1 for std 0)
+                    a sparse (CSR) design: x' = x / std, no centering (scale_sparse)
     -> random features (RBFSampler or Nystroem), optional
     -> label encoding (classification) or target centering (regression)
 """
@@ -124,10 +125,20 @@ def _isnan_obj(v: np.ndarray) -> np.ndarray:
 
 def drop_constant(Xs: list[np.ndarray], names: tuple[str, ...], w_true: np.ndarray | None):
     """Remove columns whose training values are all equal (peak-to-peak 0, the exact test
-    that scikit-learn's ``VarianceThreshold(0)`` applies)."""
+    that scikit-learn's ``VarianceThreshold(0)`` applies). A CSR design keeps its form (its
+    column extremes count the implicit zeros)."""
     X = Xs[0]
     if X.shape[0] == 0 or X.shape[1] == 0:
         return Xs, names, w_true, []
+    if hasattr(X, "tocsr"):
+        keep = np.asarray((X.max(axis=0) - X.min(axis=0)).toarray()).ravel() > 0
+        if keep.all():
+            return Xs, names, w_true, []
+        from stopwise.problem.design import as_csr
+
+        dropped = [names[j] for j in np.flatnonzero(~keep)]
+        Xs = [as_csr(x[:, keep]) for x in Xs]
+        return Xs, tuple(n for n, k in zip(names, keep) if k), (w_true[keep] if w_true is not None else None), dropped
     keep = np.ptp(X, axis=0) > 0
     if keep.all():
         return Xs, names, w_true, []
@@ -150,6 +161,35 @@ def standardize(Xs: list[np.ndarray], w_true: np.ndarray | None):
     if w_true is not None:
         w_true = w_true * sd_safe
     return Xs, w_true, {"mean": mu.tolist(), "scale": sd_safe.tolist()}
+
+
+SPARSE_SCALING = "x / std over the training rows, not centered (as StandardScaler(with_mean=False))"
+
+
+def scale_sparse(Xs: list[Any], w_true: np.ndarray | None):
+    """Scaling without centering for CSR designs: ``x' = x / std`` with the training rows'
+    population standard deviation per column (std 0 -> 1), the transform of scikit-learn's
+    ``StandardScaler(with_mean=False)``. Centering would fill every implicit zero, so it is
+    not done: the stored entries keep their places and only their values change. The
+    variance is computed in two passes over the stored entries, ``(sum_nz (x - mean)^2 +
+    (n - nnz_j) mean^2) / n``, as scikit-learn's ``mean_variance_axis`` does. The truth is
+    mapped as by :func:`standardize`, ``w' = std * w``."""
+    import scipy.sparse as sp
+
+    X = Xs[0]
+    n, d = X.shape
+    cols = X.indices
+    counts = np.bincount(cols, minlength=d)
+    mu = np.bincount(cols, weights=X.data, minlength=d) / max(n, 1)
+    dev = X.data - mu[cols]
+    var = (np.bincount(cols, weights=dev * dev, minlength=d) + (n - counts) * mu * mu) / max(n, 1)
+    sd = np.sqrt(var)
+    sd_safe = np.where(sd > 0, sd, 1.0)
+    out = [sp.csr_matrix((x.data / sd_safe[x.indices], x.indices.copy(), x.indptr.copy()), shape=x.shape)
+           for x in Xs]
+    if w_true is not None:
+        w_true = w_true * sd_safe
+    return out, w_true, {"centered": False, "scaled": SPARSE_SCALING, "scale": sd_safe.tolist()}
 
 
 def random_features(Xs: list[np.ndarray], rf: RandomFeaturesParams):

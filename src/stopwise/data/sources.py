@@ -71,6 +71,10 @@ class SourceDef:
     # raw data may be kept in the on-disk cache between processes (data/cache.py: a worker
     # then reads a few arrays instead of importing the package that ships them)
     raw_cache: tuple[str, ...] = ()
+    # optional: params -> params with choices that depend on the data made (the file
+    # source's design=auto, decided by the file's density); applied when a dataset config
+    # is normalized, so the run identity holds the choice made
+    resolve: Callable[[Any], Any] | None = None
 
 
 SOURCES: Registry[SourceDef] = Registry("dataset source", DataError, sort=True)

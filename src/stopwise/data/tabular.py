@@ -4,8 +4,9 @@ A CSV or Parquet source returns the raw feature columns as a DataFrame (``RawDat
 the encoding of categorical columns, imputation and scaling happen after the split, fitted
 on the training rows only (see :mod:`stopwise.data.preprocess`). An svmlight file is read
 by scikit-learn's ``load_svmlight_file`` into a CSR matrix (:func:`read_svmlight`), which
-:func:`load_file` turns into a dense design today (stated in ``RawData.info``): the one
-place a sparse design would be kept sparse.
+stays sparse from the file to the solver with ``design=sparse`` and is made dense with
+``design=dense`` (within the bound of :mod:`stopwise.problem.design`); ``auto`` chooses by
+the file's density (:data:`SPARSE_DENSITY`). The choice is stated in ``RawData.info["design"]``.
 """
 from __future__ import annotations
 
@@ -24,6 +25,12 @@ TASK_CHOICES = ("auto", "regression", "binary", "multiclass")
 FORMATS = ("auto", "csv", "parquet", "svmlight")
 SVMLIGHT_SUFFIXES = (".svm", ".svmlight", ".libsvm")
 INDEX_BASES = ("auto", "zero", "one")
+DESIGNS = ("auto", "sparse", "dense")
+# design=auto keeps an svmlight file's design sparse when at most this fraction of its
+# entries is stored: a CSR entry costs 12 bytes (value and column index) against 8 for a
+# dense one, and a product over CSR entries runs a few times slower per entry than BLAS on
+# dense rows, so below a tenth of the entries sparse is the smaller and the faster form.
+SPARSE_DENSITY = 0.1
 
 
 class TabularError(DataError):
@@ -133,6 +140,12 @@ class FileParams:
     n_features: int | None = param(None, Interval(1, None, integer=True),
                                    "svmlight: number of features (default: the largest index in the file)",
                                    omit_default=True)
+    design: str = param("dense", Choice(DESIGNS),
+                        "svmlight: sparse (the CSR matrix goes to the solver as it is; features scaled "
+                        "without centering), dense (a dense copy; features centered and scaled), or auto "
+                        f"(sparse when at most {SPARSE_DENSITY:g} of the entries are stored, the setting of "
+                        "conf/dataset/file.yaml); a config without the key means dense",
+                        omit_default=True)
 
 
 def _file_format(p: FileParams) -> str:
@@ -160,6 +173,43 @@ def check_file(p: FileParams) -> None:
     if not svm and (p.index_base != "auto" or p.n_features is not None):
         raise TabularError("dataset.params.index_base and n_features apply to svmlight files only "
                            "(set dataset.params.format=svmlight, or drop them)")
+    if not svm and p.design == "sparse":
+        raise TabularError(f"dataset.params.design=sparse applies to svmlight files only, not the {_file_format(p)} "
+                           f"file {p.path!r} (valid here: dense, auto)")
+
+
+def resolve_file(p: FileParams) -> FileParams:
+    """The params with ``design=auto`` decided: for an svmlight file, ``sparse`` when at most
+    :data:`SPARSE_DENSITY` of its entries are stored (the file is read to count them; the
+    count is kept for the file's size and modification time), else ``dense``; every other
+    file is ``dense``. The run identity carries ``design`` only when it is sparse, so runs
+    on dense designs keep the ids they had before the option existed."""
+    import dataclasses
+
+    if p.design != "auto":
+        return p
+    check_file(p)
+    if _file_format(p) != "svmlight":
+        return dataclasses.replace(p, design="dense")
+    n, d, nnz = svmlight_counts(p)
+    sparse = n * d > 0 and nnz <= SPARSE_DENSITY * n * d
+    return dataclasses.replace(p, design="sparse" if sparse else "dense")
+
+
+_COUNTS: dict[tuple, tuple[int, int, int]] = {}
+
+
+def svmlight_counts(p: FileParams) -> tuple[int, int, int]:
+    """(rows, features, stored entries) of an svmlight file as :func:`read_svmlight` reads it."""
+    st = Path(p.path).stat()
+    key = (str(Path(p.path).resolve()), st.st_size, st.st_mtime_ns, p.index_base, p.n_features)
+    hit = _COUNTS.get(key)
+    if hit is None:
+        X, _, _ = read_svmlight(p)
+        hit = _COUNTS[key] = (int(X.shape[0]), int(X.shape[1]), int(X.nnz))
+        if len(_COUNTS) > 64:
+            _COUNTS.pop(next(iter(_COUNTS)))
+    return hit
 
 
 def read_svmlight(p: FileParams) -> tuple[Any, np.ndarray, int]:
@@ -224,26 +274,22 @@ def svmlight_target(y: np.ndarray, task: str, where: str) -> tuple[np.ndarray, s
 
 
 def densify(X: Any, where: str) -> np.ndarray:
-    """A dense float64 copy of a sparse design (the solvers take dense arrays today), refused
-    in one line when it would take more than half of this machine's memory."""
-    import os
+    """A dense float64 copy of an svmlight file's design (``design=dense``), refused in one
+    line when it would take more than half of this machine's memory
+    (:func:`stopwise.problem.design.densify`)."""
+    from stopwise.problem.design import DesignError, densify as _densify
 
-    need = 8 * X.shape[0] * X.shape[1]
     try:
-        total = os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
-    except (ValueError, OSError, AttributeError):  # pragma: no cover - not POSIX
-        total = None
-    if total and need > total // 2:
-        raise TabularError(f"{where}: a dense copy of its {X.shape[0]} x {X.shape[1]} design needs "
-                           f"{need / 2**30:.1f} GiB, more than half of this machine's memory ({total / 2**30:.1f} GiB); "
-                           "sparse designs are not yet kept sparse")
-    return np.asarray(X.toarray(), dtype=np.float64)
+        return _densify(X, where, "set dataset.params.design=sparse to keep it sparse")
+    except DesignError as e:
+        raise TabularError(str(e)) from None
 
 
 def load_file(p: FileParams) -> RawData:
     """Read the whole file with pandas (``read_csv`` / ``read_parquet``), then split off
     the target column; columns of non-numeric type are categorical. An svmlight file is
-    read by :func:`read_svmlight` and densified (``info['design']`` says so)."""
+    read by :func:`read_svmlight` and kept sparse or densified by ``design``
+    (``info['design']`` says which)."""
     import pandas as pd
 
     check_file(p)
@@ -273,9 +319,15 @@ def _load_svmlight(p: FileParams) -> RawData:
     labels, task = svmlight_target(y, p.task, where)
     n, d = X.shape
     nnz = int(X.nnz)
+    p = resolve_file(p)
     info = {"origin": "file (svmlight)", "path": p.path, "index_base": base,
-            "design": {"stored": "csr", "used": "dense", "nnz": nnz, "density": nnz / (n * d)}}
+            "design": {"stored": "csr", "used": "csr" if p.design == "sparse" else "dense", "nnz": nnz,
+                       "density": nnz / (n * d)}}
     names = tuple(f"x{j + base}" for j in range(d))  # the file's own feature numbers
+    if p.design == "sparse":
+        from stopwise.problem.design import as_csr
+
+        return RawData(X=as_csr(X), y=labels, task=task, feature_names=names, info=info)
     return RawData(X=densify(X, where), y=labels, task=task, feature_names=names, info=info)
 
 
@@ -285,4 +337,5 @@ def file_fingerprint(p: FileParams) -> str:
 
 
 register_source(SourceDef("file", FileParams, load_file, "the user's own CSV, Parquet or svmlight / LIBSVM file",
-                          fingerprint=file_fingerprint, check=check_file, row_order=lambda p: p.row_order))
+                          fingerprint=file_fingerprint, check=check_file, row_order=lambda p: p.row_order,
+                          resolve=resolve_file))

@@ -276,6 +276,8 @@ def compute_reference(problem) -> HardMargin | None:
     """What :func:`reference` returns, computed afresh."""
     if problem.task != "binary":
         return None
+    if problem.sparse:  # the LP and SVC below work on dense rows; a sparse design is not densified for a reference
+        return HardMargin(separable=False, method="skipped: sparse design", info={"skipped": True})
     if problem.n_train > REFERENCE_MAX_ROWS:
         return HardMargin(separable=False, method=f"skipped: more than {REFERENCE_MAX_ROWS} training rows",
                           info={"skipped": True})

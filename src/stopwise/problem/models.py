@@ -42,9 +42,12 @@ class LinearModel:
         return X @ (w.reshape(self.d, self.k) if self.k > 1 else w)
 
     def scorer(self, X: np.ndarray) -> Callable[[np.ndarray], np.ndarray]:
-        """``f(w) -> scores of X`` writing into one preallocated buffer (returned, reused)."""
+        """``f(w) -> scores of X`` writing into one preallocated buffer (returned, reused); for a
+        ``scipy.sparse`` design, SciPy's product over the stored entries (a new array)."""
         buf = np.empty((X.shape[0], self.k) if self.k > 1 else X.shape[0])
         d, k = self.d, self.k
+        if hasattr(X, "tocsr"):
+            return (lambda w: X @ w.reshape(d, k)) if k > 1 else (lambda w: X @ w)
         if k > 1:
             return lambda w: np.dot(X, w.reshape(d, k), out=buf)
         return lambda w: np.dot(X, w, out=buf)

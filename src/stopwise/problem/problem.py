@@ -5,15 +5,20 @@ and the smoothness constant), so no solver can look at validation or test data.
 """
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 from functools import cached_property
 from typing import Any, Callable
 
 import numpy as np
 
+from stopwise.problem import design as _design
+from stopwise.problem.design import SPECTRUM_GRAM_MAX  # noqa: F401  (||X_train||_2 from a Gram matrix up to this size)
+
 TASKS = ("regression", "binary", "multiclass")
+DENSE_CHOICES = ("choose dataset.params.design=dense on a smaller file, or a method that takes sparse designs "
+                 "(solvers gd, nesterov, heavy_ball, sgd, cgls)")
 NOISE_KINDS = ("norm", "gaussian")
-SPECTRUM_GRAM_MAX = 4096  # ||X_train||_2 from a Gram matrix up to this many rows (128 MiB)
 
 
 @dataclass(frozen=True)
@@ -31,6 +36,9 @@ class TrainingSet:
     another way, see :mod:`stopwise.running.fastpath`) and ``path`` its name; ``path`` is None
     until an evaluation path was chosen for this set, and ``plan`` None means the direct
     formula. A planned set is built once with ``dataclasses.replace``.
+
+    ``X`` is a dense float64 array or a ``scipy.sparse`` CSR matrix (see
+    :mod:`stopwise.problem.design`); every quantity here reads a CSR matrix's nonzeros only.
     """
 
     X: np.ndarray
@@ -63,7 +71,8 @@ class TrainingSet:
     @cached_property
     def row_norm_max2(self) -> float:
         """``R^2 = max_i ||x_i||^2`` (computed once per training set)."""
-        return float(np.einsum("ij,ij->i", self.X, self.X).max()) if self.X.size else 0.0
+        X = self.X
+        return float(_design.row_norms_sq(X).max()) if X.shape[0] and X.shape[1] else 0.0
 
     @cached_property
     def hessian_range(self) -> tuple[float, float]:
@@ -77,9 +86,14 @@ class TrainingSet:
         if n == 0 or d == 0:
             return 0.0, 0.0
         if n < d:
-            return 0.0, float(np.linalg.eigvalsh(self.X @ self.X.T)[-1]) / n
-        lam = np.linalg.eigvalsh(self.X.T @ self.X)
+            return 0.0, float(np.linalg.eigvalsh(_design.gram(self.X, rows=True))[-1]) / n
+        lam = np.linalg.eigvalsh(_design.gram(self.X))
         return max(float(lam[0]), 0.0) / n, float(lam[-1]) / n
+
+    @property
+    def sparse(self) -> bool:
+        """Whether the training rows are a ``scipy.sparse`` CSR matrix."""
+        return _design.is_sparse(self.X)
 
     @property
     def n(self) -> int:
@@ -103,6 +117,10 @@ class Problem:
     noise added to the training targets (worst-case model, the ``delta`` of the
     discrepancy principle), ``"gaussian"`` when it is the standard deviation ``sigma`` of
     i.i.d. Gaussian noise on every target, and ``None`` when unknown.
+
+    The three designs are dense float64 arrays, or all three ``scipy.sparse`` CSR matrices
+    (:attr:`sparse`; a file dataset's ``design=sparse``); :meth:`dense` gives a dense copy for
+    the methods that need one, within a stated bound.
     """
 
     name: str
@@ -128,6 +146,7 @@ class Problem:
     sufficient_statistics: dict[str, tuple] = field(default_factory=dict, init=False, repr=False, compare=False)
     row_factors: dict[str, np.ndarray] = field(default_factory=dict, init=False, repr=False, compare=False)
     statistics: dict[tuple, Any] = field(default_factory=dict, init=False, repr=False, compare=False)
+    dense_copies: dict[str, "Problem"] = field(default_factory=dict, init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         if self.task not in TASKS:
@@ -141,13 +160,50 @@ class Problem:
             arr = getattr(self, name)
             if arr.dtype != np.float64:
                 raise TypeError(f"Problem.{name} must be float64, got {arr.dtype}")
-            arr.flags.writeable = False
+            if name.startswith("X") and _design.is_sparse(arr) != _design.is_sparse(self.X_train):
+                raise TypeError(f"Problem.{name} must be sparse like X_train, or dense like it")
+            if _design.is_sparse(arr) and arr.format != "csr":
+                raise TypeError(f"Problem.{name} must be a CSR matrix, got {arr.format}")
+            if _design.is_sparse(arr) and not arr.has_canonical_format:
+                raise TypeError(f"Problem.{name} must have sorted column indices without duplicates "
+                                "(scipy's X.sum_duplicates())")
+            _design.freeze(arr)
         if self.w_true is not None:
             self.w_true.flags.writeable = False
 
     @property
     def n_train(self) -> int:
         return self.X_train.shape[0]
+
+    @property
+    def sparse(self) -> bool:
+        """Whether the designs are ``scipy.sparse`` CSR matrices."""
+        return _design.is_sparse(self.X_train)
+
+    def dense(self, method: str) -> "Problem":
+        """This problem with dense designs, for ``method`` that needs them (itself when dense).
+
+        The copy is made once per problem and only below :func:`design.dense_bytes_limit`
+        (all three splits together); above it a one-line :class:`design.DesignError` names the
+        method, the shape and the choices."""
+        if not self.sparse:
+            return self
+        hit = self.dense_copies.get("dense")
+        if hit is not None:
+            return hit
+        self.check_dense(method)  # all splits together, before any copy
+        copy = dataclasses.replace(self, **{k: np.ascontiguousarray(getattr(self, k).toarray(), dtype=np.float64)
+                                            for k in ("X_train", "X_val", "X_test")})
+        self.dense_copies["dense"] = copy
+        return copy
+
+    def check_dense(self, method: str) -> None:
+        """Raise what :meth:`dense` raises for ``method``, without making the copy."""
+        if not self.sparse:
+            return
+        n = sum(getattr(self, "X_" + s).shape[0] for s in ("train", "val", "test"))
+        _design.check_dense_size((n, self.d), f"{method} needs a dense design, and dataset {self.name!r}",
+                                 DENSE_CHOICES)
 
     @property
     def d(self) -> int:
@@ -216,7 +272,7 @@ class Problem:
         G = cache.get(split)
         if G is None:
             X = getattr(self, "X_" + split)
-            G = X.T @ X
+            G = _design.gram(X)  # a sparse product made dense for a sparse design (d x d)
             G.flags.writeable = False
             cache[split] = G
         return G
@@ -224,16 +280,17 @@ class Problem:
     @cached_property
     def train_norm2_sq(self) -> float:
         """``||X_train||_2^2``, the largest eigenvalue of the smaller of ``X^T X`` and ``X X^T``
-        (LAPACK ``syevd``; its relative error is a small multiple of the machine epsilon), or
-        of a full SVD when that matrix would have more than ``SPECTRUM_GRAM_MAX`` rows.
+        (LAPACK ``syevd``; its relative error is a small multiple of the machine epsilon), or,
+        when that matrix would have more than ``SPECTRUM_GRAM_MAX`` rows, of a full SVD (dense
+        design) or of ``scipy.sparse.linalg.svds`` (sparse design, no dense copy).
         Computed once per problem."""
         X = self.X_train
         n, d = X.shape
-        if X.size == 0:
+        if n == 0 or d == 0 or _design.nnz(X) == 0:
             return 0.0
-        if min(n, d) > SPECTRUM_GRAM_MAX:
-            return float(np.linalg.norm(X, 2)) ** 2
-        return float(np.linalg.eigvalsh(self.gram_matrix("train") if n >= d else X @ X.T)[-1])
+        if min(n, d) > SPECTRUM_GRAM_MAX:  # a full SVD (dense) or ARPACK's top singular value (sparse)
+            return _design.sparse_norm2(X) ** 2 if self.sparse else float(np.linalg.norm(X, 2)) ** 2
+        return float(np.linalg.eigvalsh(self.gram_matrix("train") if n >= d else _design.gram(X, rows=True))[-1])
 
     @cached_property
     def hard_margin(self):

@@ -38,6 +38,16 @@ against the spectral-filter closed form of gradient descent).
 Which path a run takes is a deterministic function of the array shapes (``choose_gradient_path``
 and ``statistics_splits``), so a rerun of a run, on any machine, takes the same path.
 
+Sparse designs (``scipy.sparse`` CSR, :mod:`stopwise.problem.design`): ``direct`` is SciPy's
+``X @ w`` then ``X.T @ r`` (two reads of the nonzeros), ``fused`` the compiled one-pass CSR
+kernel (:func:`stopwise.running.kernels.csr_residual_gradient`, one read, no allocation
+but the returned gradient), ``gram`` the dense ``d x d`` matrix of the sparse product
+``X^T X``. ``auto`` takes ``gram`` when ``n > d``, it fits, and ``d^2 <= nnz`` (an O(d^2)
+product is then no dearer than a pass over the nonzeros), else ``fused``; the recorder uses
+split statistics on the same condition per split, and where the Gram form would lose digits
+it evaluates the split from its rows (one read of the nonzeros; no QR factor, which would be
+dense).
+
 Caching: Gram matrices, compressed rows and the stacked statistics are kept in the declared
 caches of the :class:`~stopwise.problem.problem.Problem` (only the recorder reads the validation
 and test ones); the gradient plan is a field of the solver's
@@ -56,6 +66,7 @@ from typing import Callable
 
 import numpy as np
 
+from stopwise.problem import design as _design
 from stopwise.problem.problem import Problem, TrainingSet
 from stopwise.core.errors import StopwiseError
 
@@ -83,8 +94,11 @@ def _frozen(a: np.ndarray) -> np.ndarray:
 
 # ---------------------------------------------------------------- gradient plans
 
-def choose_gradient_path(n: int, d: int, nbytes: int) -> str:
-    """The path ``auto`` picks: Gram when ``n > d`` and it fits, fused for large X, else direct."""
+def choose_gradient_path(n: int, d: int, nbytes: int, nnz: int | None = None) -> str:
+    """The path ``auto`` picks: Gram when ``n > d`` and it fits, fused for large X, else direct.
+    A sparse design (``nnz`` given): Gram when ``n > d``, it fits and ``d^2 <= nnz``, else fused."""
+    if nnz is not None:
+        return "gram" if n > d and d * d * 8 <= GRAM_MAX_BYTES and d * d <= nnz else "fused"
     if n > d and d * d * 8 <= GRAM_MAX_BYTES:
         return "gram"
     if nbytes > FUSED_MIN_BYTES:
@@ -100,8 +114,8 @@ class GramGradient:
     def __init__(self, X: np.ndarray, y: np.ndarray, G: np.ndarray | None = None,
                  c: np.ndarray | None = None):
         self.n = X.shape[0]
-        self.G = G if G is not None else _frozen(X.T @ X)
-        self.c = c if c is not None else _frozen(X.T @ y)
+        self.G = G if G is not None else _frozen(_design.gram(X))
+        self.c = c if c is not None else _frozen(np.asarray(X.T @ y, dtype=np.float64))
 
     def __call__(self, w: np.ndarray) -> np.ndarray:
         g = self.G.dot(w)  # the same BLAS call as G @ w, with less dispatch
@@ -139,6 +153,39 @@ class FusedGradient:
         return g
 
 
+class SparseFusedGradient:
+    """``g = X^T (X w - y) / n`` for a CSR design in one pass over its stored entries
+    (:func:`stopwise.running.kernels.csr_residual_gradient`). The residual scratch is kept
+    per thread, so a call allocates only the gradient it returns; ``last_residual`` as for
+    :class:`FusedGradient`."""
+
+    path = "fused"
+
+    def __init__(self, X, y: np.ndarray, keep_residual: bool = False):
+        import threading
+
+        from stopwise.running import kernels
+
+        self.X, self.y = X, y
+        self.n, self.d = X.shape
+        self.variant = "csr"
+        self._kernel = kernels.csr_residual_gradient
+        self._local = threading.local()
+        self.keep_residual = keep_residual
+        self.last_residual: np.ndarray | None = None
+
+    def __call__(self, w: np.ndarray) -> np.ndarray:
+        r = getattr(self._local, "r", None)
+        if r is None or self.keep_residual:
+            r = self._local.r = np.empty(self.n)
+        g = np.empty(self.d)
+        self._kernel(self.X, w, self.y, r, g)
+        g /= self.n
+        if self.keep_residual:
+            self.last_residual = r
+        return g
+
+
 def gradient_plan(train: TrainingSet) -> Callable[[np.ndarray], np.ndarray] | None:
     """The training set's gradient plan, or None (then the direct formula is used)."""
     return train.plan
@@ -153,7 +200,7 @@ def _make_plan(train: TrainingSet, path: str, gram: tuple | None = None):
     if path == "gram":
         return GramGradient(train.X, train.y, *(gram[:2] if gram is not None else ()))
     if path == "fused":
-        return FusedGradient(train.X, train.y)
+        return SparseFusedGradient(train.X, train.y) if train.sparse else FusedGradient(train.X, train.y)
     return None
 
 
@@ -175,8 +222,9 @@ def training_for(problem: Problem, train: TrainingSet | None = None, path: str =
     if path == "auto":
         if train.path is not None:
             return train
-        chosen = (choose_gradient_path(train.n, train.d, train.X.nbytes) if _squares(train) and train.n
-                  else "direct")
+        chosen = (choose_gradient_path(train.n, train.d, _design.stored_bytes(train.X),
+                                       int(train.X.nnz) if train.sparse else None)
+                  if _squares(train) and train.n else "direct")
         gram = _gram(problem, "train") if chosen == "gram" and own else None
         planned = attach_plan(train, _make_plan(train, chosen, gram))
         if problem.training_sets.get(train.loss) is train:
@@ -200,7 +248,7 @@ def _gram(problem: Problem, split: str) -> tuple[np.ndarray, np.ndarray, float]:
     hit = cache.get(split)
     if hit is None:
         X, y = getattr(problem, "X_" + split), getattr(problem, "y_" + split)
-        hit = (problem.gram_matrix(split), _frozen(X.T @ y), float(y @ y))
+        hit = (problem.gram_matrix(split), _frozen(np.asarray(X.T @ y, dtype=np.float64)), float(y @ y))
         cache[split] = hit
     return hit
 
@@ -224,9 +272,10 @@ def row_factor(problem: Problem, split: str) -> np.ndarray:
 def statistics_splits(problem: Problem, path: str = "auto") -> tuple[str, ...]:
     """Splits whose recorded error uses sufficient statistics under ``path``.
 
-    ``auto``: every split with more rows than features, while their Gram matrices
-    together fit in ``GRAM_MAX_BYTES``; ``gram``: every non-empty split; ``direct`` and
-    ``fused``: none. Only regression problems (squared error) are concerned.
+    ``auto``: every split with more rows than features (sparse designs: and at least ``d^2``
+    stored entries), while their Gram matrices together fit in ``GRAM_MAX_BYTES``; ``gram``:
+    every non-empty split; ``direct`` and ``fused``: none. Only regression problems (squared
+    error) are concerned.
     """
     _check_path(path)
     if path in ("direct", "fused") or problem.task != "regression":
@@ -235,7 +284,8 @@ def statistics_splits(problem: Problem, path: str = "auto") -> tuple[str, ...]:
     rows = {s: getattr(problem, "X_" + s).shape[0] for s in SPLITS}
     if path == "gram":
         return tuple(s for s in SPLITS if rows[s] > 0)
-    chosen = tuple(s for s in SPLITS if rows[s] > d)
+    chosen = tuple(s for s in SPLITS if rows[s] > d
+                   and (not problem.sparse or d * d <= getattr(problem, "X_" + s).nnz))
     if len(chosen) * (d + 1) ** 2 * 8 > GRAM_MAX_BYTES:
         return ()
     return chosen
@@ -293,6 +343,6 @@ def describe(train: TrainingSet, stats: SplitStatistics | None) -> dict:
             "guard": GUARD}
 
 
-__all__ = ["PATHS", "GUARD", "FusedGradient", "GramGradient", "SplitStatistics", "attach_plan",
+__all__ = ["PATHS", "GUARD", "FusedGradient", "GramGradient", "SparseFusedGradient", "SplitStatistics", "attach_plan",
            "choose_gradient_path", "compressed_rows", "gradient_plan", "prepare", "row_factor", "split_statistics", "statistics_splits",
            "training_for"]

@@ -10,6 +10,9 @@ first-level cache, so ``X`` is read from memory once per call; a product with BL
 it once for ``X w`` and once more for ``X^T r`` (blocked into cache-sized row groups it
 still streams each group from memory at the speed of a matrix-vector product, below that
 of a plain read). This is the ``fused`` evaluation path of :mod:`stopwise.running.fastpath`.
+For a ``scipy.sparse`` CSR design, :func:`csr_residual_gradient` does the same row by row
+over the stored entries (their values and column indices), and :func:`csr_residual` gives
+the residual alone (the recorder's errors).
 
 Floating point: the kernels are compiled with the ``reassoc`` and ``contract`` flags only
 (sums may be reordered into SIMD lanes and multiply-adds fused; NaN and infinity keep
@@ -100,6 +103,99 @@ def variant(d: int) -> str:
 _KERNELS = {"rows": _rows, "quads": _quads}
 
 
+# ---------------------------------------------------------------- CSR designs
+
+_U1, _U2, _U3, _U4, _U5, _U6, _U7, _U8 = (np.uint64(k) for k in range(1, 9))
+
+
+@njit(fastmath=FLAGS, nogil=True, cache=True, boundscheck=False)
+def _csr_rows(data, indices, indptr, w, y, r, g):  # pragma: no cover - compiled
+    # Indices are used unsigned (no test for negative indices in the loops). The scatter
+    # loads eight entries of g before it stores them: the column indices of a canonical CSR
+    # row are distinct, so the loads do not wait on the stores (twice as fast as
+    # g[j] += ... one entry at a time on the machine of docs/performance.md).
+    n = indptr.shape[0] - 1
+    for j in range(g.shape[0]):
+        g[j] = 0.0
+    lo = np.uint64(indptr[0])
+    for i in range(n):
+        hi = np.uint64(indptr[i + 1])
+        s = 0.0
+        for k in range(lo, hi):
+            s += data[k] * w[np.uint64(indices[k])]
+        s -= y[i]
+        r[i] = s
+        k = lo
+        while k + _U7 < hi:
+            j0 = np.uint64(indices[k])
+            j1 = np.uint64(indices[k + _U1])
+            j2 = np.uint64(indices[k + _U2])
+            j3 = np.uint64(indices[k + _U3])
+            j4 = np.uint64(indices[k + _U4])
+            j5 = np.uint64(indices[k + _U5])
+            j6 = np.uint64(indices[k + _U6])
+            j7 = np.uint64(indices[k + _U7])
+            a0 = g[j0]
+            a1 = g[j1]
+            a2 = g[j2]
+            a3 = g[j3]
+            a4 = g[j4]
+            a5 = g[j5]
+            a6 = g[j6]
+            a7 = g[j7]
+            g[j0] = a0 + s * data[k]
+            g[j1] = a1 + s * data[k + _U1]
+            g[j2] = a2 + s * data[k + _U2]
+            g[j3] = a3 + s * data[k + _U3]
+            g[j4] = a4 + s * data[k + _U4]
+            g[j5] = a5 + s * data[k + _U5]
+            g[j6] = a6 + s * data[k + _U6]
+            g[j7] = a7 + s * data[k + _U7]
+            k += _U8
+        while k < hi:
+            g[np.uint64(indices[k])] += s * data[k]
+            k += _U1
+        lo = hi
+
+
+@njit(fastmath=FLAGS, nogil=True, cache=True, boundscheck=False)
+def _csr_residual(data, indices, indptr, w, y, r):  # pragma: no cover - compiled
+    n = indptr.shape[0] - 1
+    lo = np.uint64(indptr[0])
+    for i in range(n):
+        hi = np.uint64(indptr[i + 1])
+        s = 0.0
+        for k in range(lo, hi):
+            s += data[k] * w[np.uint64(indices[k])]
+        r[i] = s - y[i]
+        lo = hi
+
+
+def csr_residual_gradient(X, w: np.ndarray, y: np.ndarray, r: np.ndarray, g: np.ndarray) -> None:
+    """Write ``X w - y`` into ``r`` and ``X^T (X w - y)`` into ``g`` for a CSR matrix ``X``
+    in canonical form (sorted column indices, no duplicates: what :class:`Problem` holds),
+    in one pass over its rows: row ``i``'s nonzeros give ``r_i = x_i . w - y_i`` and, while
+    they are in cache, ``g += r_i x_i``; each stored entry is read from memory once and
+    nothing is allocated.
+
+    >>> import numpy as np, scipy.sparse as sp
+    >>> X = sp.csr_matrix(np.array([[1.0, 0.0, 2.0], [0.0, 3.0, 0.0]])); y = np.array([1.0, 1.0])
+    >>> r = np.empty(2); g = np.empty(3)
+    >>> csr_residual_gradient(X, np.array([1.0, 1.0, 1.0]), y, r, g)
+    >>> r.tolist(), g.tolist()
+    ([2.0, 2.0], [2.0, 6.0, 4.0])
+    """
+    if not X.has_canonical_format:
+        raise ValueError("csr_residual_gradient needs a CSR matrix in canonical form (X.sum_duplicates())")
+    _csr_rows(X.data, X.indices, X.indptr, w, y, r, g)
+
+
+def csr_residual(X, w: np.ndarray, y: np.ndarray, r: np.ndarray) -> None:
+    """Write ``X w - y`` into ``r`` for a CSR matrix ``X`` (one read of its nonzeros, no
+    allocation): the recorder's squared errors of a sparse design."""
+    _csr_residual(X.data, X.indices, X.indptr, w, y, r)
+
+
 def residual_gradient(X: np.ndarray, w: np.ndarray, y: np.ndarray, r: np.ndarray,
                       g: np.ndarray, kind: str | None = None) -> None:
     """Write ``X w - y`` into ``r`` and ``X^T (X w - y)`` into ``g`` (one read of ``X``).
@@ -116,4 +212,5 @@ def residual_gradient(X: np.ndarray, w: np.ndarray, y: np.ndarray, r: np.ndarray
     _KERNELS[kind or variant(X.shape[1])](X, w, y, r, g)
 
 
-__all__ = ["FLAGS", "QUAD_MIN_D", "QUAD_MAX_SHORT_D", "residual_gradient", "variant"]
+__all__ = ["FLAGS", "QUAD_MIN_D", "QUAD_MAX_SHORT_D", "csr_residual", "csr_residual_gradient", "residual_gradient",
+           "variant"]

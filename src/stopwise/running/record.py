@@ -50,6 +50,7 @@ from stopwise.core.errors import SpecError
 from stopwise.core.registry import Registry
 from stopwise.running import fastpath
 from stopwise.running.fastpath import GUARD
+from stopwise.problem import design as _design
 from stopwise.problem.problem import Problem
 from stopwise.results.schema import BASE_COLUMNS  # columns every trace has, in order (docs/schema.md)
 from stopwise.stopping.residual import COLUMNS as RESIDUAL_COLUMNS, NCPDistance
@@ -57,6 +58,19 @@ from stopwise.stopping.residual import COLUMNS as RESIDUAL_COLUMNS, NCPDistance
 
 MetricSet = Callable[[Problem], dict[str, Callable[[np.ndarray], float]]]
 BLOCK_BYTES = 1 << 20  # iterates kept for the batch extras at most (256 rows at most)
+
+
+def residual_into(X: Any, y: np.ndarray, w: np.ndarray, out: np.ndarray) -> np.ndarray:
+    """``X w - y`` written into ``out`` (and returned): a BLAS product for a dense design, one
+    read of the stored entries of a CSR one (:func:`stopwise.running.kernels.csr_residual`)."""
+    if _design.is_sparse(X):
+        from stopwise.running.kernels import csr_residual
+
+        csr_residual(X, w, y, out)
+        return out
+    np.dot(X, w, out=out)
+    out -= y
+    return out
 
 
 class UnknownMetricSet(SpecError):
@@ -320,12 +334,15 @@ class RegressionRecorder(Recorder):
         if self._score is not None:
             np.subtract(self._score[split](w), getattr(self.problem, "y_" + split), out=buf)
         else:
-            np.dot(X, w, out=buf)
-            buf -= getattr(self.problem, "y_" + split)
+            residual_into(X, getattr(self.problem, "y_" + split), w, buf)
         return float(buf.dot(buf))
 
     def _compressed_error(self, split: str, w: np.ndarray) -> float:
         self.fallbacks += 1
+        if self.problem.sparse:  # from the rows: a QR factor of a sparse split would be dense
+            X, y = getattr(self.problem, "X_" + split), getattr(self.problem, "y_" + split)
+            r = residual_into(X, y, w, np.empty(X.shape[0]))
+            return float(r.dot(r))
         R = fastpath.row_factor(self.problem, split)
         self._wa[:-1] = w
         r = R @ self._wa
@@ -377,8 +394,7 @@ class RegressionRecorder(Recorder):
         if self._res_rows:
             cur = self._rb[self._rk]
             if self._train_stat is not None:  # the training error came from statistics: evaluate r
-                np.dot(self.problem.X_train, w, out=cur)
-                cur -= self.problem.y_train
+                residual_into(self.problem.X_train, self.problem.y_train, w, cur)
             col["residual_dot_prev"][i] = math.nan if first else float(cur.dot(self._rb[1 - self._rk]))
             if self._ncp is not None:
                 col["ncp_distance"][i] = self._ncp(cur)
@@ -397,6 +413,10 @@ class RegressionRecorder(Recorder):
         if abs(dot) >= GUARD * math.sqrt(max(self._sprev * self._str, 0.0)):
             return dot
         self.fallbacks += 1
+        p = self.problem
+        if p.sparse:  # from the residual vectors (one read of the nonzeros each)
+            r = residual_into(p.X_train, p.y_train, w, np.empty(p.n_train))
+            return float(r.dot(residual_into(p.X_train, p.y_train, self._wprev, np.empty(p.n_train))))
         R = fastpath.row_factor(self.problem, "train")
         self._wa[:-1] = w
         self._za[:-1] = self._wprev

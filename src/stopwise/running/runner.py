@@ -52,7 +52,8 @@ def _problem_info(p: Problem, train=None) -> dict[str, Any]:
             "d": p.d, "L": train.L, "task": p.task, "loss": train.loss, "noise_kind": p.noise_kind,
             "noise_level": p.noise_level,
             "noise_norm": p.noise_norm, "has_truth": p.w_true is not None,
-            "preprocessing": {k: v for k, v in p.preprocessing.items() if k != "standardize"},
+            "preprocessing": {k: ({c: x for c, x in v.items() if c != "scale"} if k == "scale" else v)
+                              for k, v in p.preprocessing.items() if k != "standardize"},
             "standardized": "standardize" in p.preprocessing}
 
 
@@ -99,6 +100,11 @@ def execute(spec: RunSpec, problem: Problem | None = None, path: str = "auto",
     run = _prepare(spec, problem, path, record_path)
     status, message = _loop(spec, run)
     info = dict(_problem_info(problem, run.train), **run.rec.info)
+    if problem.sparse:
+        scale = problem.preprocessing.get("scale", {})
+        info["design"] = {"kind": "csr" if run.rec.problem.sparse else "dense copy of a csr design",
+                          "nnz_train": int(problem.X_train.nnz), "centered": False,
+                          "scaled": scale.get("scaled", "no")}
     info["evaluation"] = dict(fastpath.describe(run.train, run.stats), prepare_seconds=run.t_prep,
                               fallbacks=run.rec.fallbacks)
     return Trace(columns=run.rec.result(), status=status, message=message, problem_info=info)
@@ -123,6 +129,7 @@ def _prepare(spec: RunSpec, problem: Problem, path: str, record_path: str | None
     sdef = get_solver(spec.solver)
     if problem.task not in sdef.tasks:
         raise ValueError(f"solver {spec.solver!r} does not handle {problem.task} problems")
+    problem = solver_problem(problem, sdef)
     params = spec.params
     clock = time.perf_counter
     t_prep = clock()
@@ -145,6 +152,16 @@ def _prepare(spec: RunSpec, problem: Problem, path: str, record_path: str | None
         if missing:
             raise ValueError(halt_missing_column(spec.stopping["rule"], missing[0], problem.name))
     return _Run(sdef, params, train, stats, rec, _halting(spec, problem), t_prep)
+
+
+def solver_problem(problem: Problem, sdef: Any) -> Problem:
+    """The problem a solver runs on: ``problem`` itself, or for a solver that does not take
+    sparse designs (``SolverDef.sparse`` false) a dense copy of a sparse problem, made once
+    per problem within the bound of :mod:`stopwise.problem.design` (above it, a one-line
+    :class:`~stopwise.problem.design.DesignError` naming the solver, the shape and the choices)."""
+    if problem.sparse and not sdef.sparse:
+        return problem.dense(f"solver {sdef.name!r}")
+    return problem
 
 
 def _loop(spec: RunSpec, run: _Run) -> tuple[str, str]:

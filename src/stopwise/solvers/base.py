@@ -61,6 +61,10 @@ class SolverDef:
     ``stopwise sweep`` call it on the problem of each dataset and split before anything is
     written (``sweep.campaign.check_data``); the solver's ``init`` calls it too, so a run on
     another seed's problem that fails it is recorded as failed with that line.
+
+    ``sparse``: the solver runs on a ``scipy.sparse`` CSR design as it is (see
+    :mod:`stopwise.problem.design`); the others receive a dense copy of a sparse problem
+    (:meth:`stopwise.problem.problem.Problem.dense`), or a one-line refusal when it is too large.
     """
 
     name: str
@@ -78,6 +82,10 @@ class SolverDef:
     # the runner calls it instead of ``init`` when present
     init_budget: Callable[[TrainingSet, Any, np.random.Generator, dict], State] | None = None
     check: Callable[[TrainingSet, Any], None] | None = None
+    # whether init and step take a scipy.sparse CSR training design (products with X and
+    # X^T, row selection, the training set's gradient); a solver without it is given a dense
+    # copy of a sparse problem within the bound of stopwise.problem.design, else refused
+    sparse: bool = False
 
     def start(self, train: TrainingSet, params: Any, rng: np.random.Generator,
               budget: dict | None = None) -> State:

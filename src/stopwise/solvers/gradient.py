@@ -51,7 +51,8 @@ def gd_step(train: TrainingSet, params: GDParams, state: State) -> State:
 
 
 register(SolverDef("gd", GDParams, gd_init, gd_step,
-                   "gradient descent (Landweber iteration) with constant step step_scale/L", tasks=ALL_TASKS))
+                   "gradient descent (Landweber iteration) with constant step step_scale/L", tasks=ALL_TASKS,
+                   sparse=True))
 
 
 # ---------------------------------------------------------------- Nesterov
@@ -91,7 +92,8 @@ def nesterov_step(train: TrainingSet, params: NesterovParams, state: MomentumSta
 
 
 register(SolverDef("nesterov", NesterovParams, nesterov_init, nesterov_step,
-                   "Nesterov's accelerated gradient, momentum (t-1)/(t+2), step step_scale/L", tasks=ALL_TASKS))
+                   "Nesterov's accelerated gradient, momentum (t-1)/(t+2), step step_scale/L", tasks=ALL_TASKS,
+                   sparse=True))
 
 
 # ---------------------------------------------------------------- heavy ball
@@ -123,7 +125,7 @@ def heavy_ball_step(train: TrainingSet, params: HeavyBallParams, state: Momentum
 
 register(SolverDef("heavy_ball", HeavyBallParams, heavy_ball_init, heavy_ball_step,
                    "Polyak's heavy ball: gradient step step_scale/L plus momentum (w_t - w_{t-1})",
-                   tasks=ALL_TASKS))
+                   tasks=ALL_TASKS, sparse=True))
 
 
 

@@ -65,4 +65,4 @@ def cgls_step(train: TrainingSet, params: CGLSParams, state: CGLSState) -> CGLSS
 
 
 register(SolverDef("cgls", CGLSParams, cgls_init, cgls_step,
-                   "conjugate gradients on the normal equations (CGLS), no step size"))
+                   "conjugate gradients on the normal equations (CGLS), no step size", sparse=True))

@@ -218,7 +218,7 @@ def sgd_step(train: TrainingSet, params: SGDParams, state: SGDState) -> SGDState
 SGD = register(averaged(SolverDef(
     "sgd", SGDParams, sgd_init, sgd_step,
     "stochastic gradient descent: minibatches, epoch / replacement / cyclic sampling, step schedules, "
-    "iterate averaging", tasks=("regression", "binary", "multiclass"), stochastic=True)))
+    "iterate averaging", tasks=("regression", "binary", "multiclass"), stochastic=True, sparse=True)))
 
 
 __all__ = ["SAMPLINGS", "SCHEDULES", "SGD", "SGDParams", "SGDState", "batch_count", "batch_smoothness",

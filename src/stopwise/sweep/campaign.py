@@ -52,7 +52,8 @@ def check_data(specs: list[RunSpec]) -> None:
     (:func:`stopwise.config.spec.check_trace_fits`). A solver that declares
     ``SolverDef.check`` (what it needs of the training rows, such as a positive definite
     Hessian) is checked on that problem too, once per solver, params and dataset: a pair
-    that cannot run is one line naming the solver and the dataset."""
+    that cannot run is one line naming the solver and the dataset. So is a solver that needs
+    a dense design on a sparse problem too large to densify (``SolverDef.sparse``)."""
     from stopwise.config.spec import check_trace_fits
     from stopwise.data import cached_problem, prepare_problems
     from stopwise.problem.losses import resolve_loss
@@ -73,9 +74,15 @@ def check_data(specs: list[RunSpec]) -> None:
         if what not in seen:
             seen.add(what)
             check_trace_fits(s.budget, s.record, n_train[key])
-    checked: set[str] = set()
+    checked: set = set()
     for data, s in zip(keys, specs):
         sdef = get_solver(s.solver)
+        if not sdef.sparse and ("dense", data, s.solver) not in checked:
+            # a solver that needs a dense design: a sparse problem too large to densify is
+            # refused now, in one line, rather than failing every run
+            checked.add(("dense", data, s.solver))
+            first = firsts[data]
+            cached_problem(first.dataset, first.split, first.seed).check_dense(f"solver {s.solver!r}")
         if sdef.check is None:
             continue
         key = canonical_json([data, s.solver, s.identity()["solver"]["params"]])
