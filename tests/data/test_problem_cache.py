@@ -186,13 +186,16 @@ import stopwise
 out = stopwise.run(["dataset=diabetes", "solver=gd", "budget.iterations=30"], root=sys.argv[1])
 print(out.path)
 print("sklearn imported" if "sklearn" in sys.modules else "sklearn not imported")
+print("pandas imported" if "pandas" in sys.modules else "pandas not imported")
 """
 
 
 def test_scikit_learn_tables_are_kept_so_another_process_need_not_import_scikit_learn(tmp_path, monkeypatch):
     """The first process loads diabetes through scikit-learn and keeps the raw arrays; a
     second process reads them from the cache without importing scikit-learn, and its run
-    is bit for bit the first one's (the arrays are the loader's own float64 values)."""
+    is bit for bit the first one's (the arrays are the loader's own float64 values).
+    Nor does it import pandas: storing a trace lays its Arrow columns out from their buffers
+    (``pa.array`` would import pandas on its first call, about 0.6 s per process)."""
     import pyarrow.parquet as pq
 
     from stopwise.data import cache
@@ -206,6 +209,7 @@ def test_scikit_learn_tables_are_kept_so_another_process_need_not_import_scikit_
         assert res.returncode == 0, res.stderr[-2000:]
         outs.append(res.stdout.split("\n"))
     assert outs[0][1] == "sklearn imported" and outs[1][1] == "sklearn not imported"
+    assert outs[1][2] == "pandas not imported"
     first, second = (pq.read_table(o[0]).drop(["seconds"]).to_pandas() for o in outs)
     assert first.equals(second)
     (kept,) = [e for e in cache.entries(tmp_path / "cache") if e.parent.name == "raw"]

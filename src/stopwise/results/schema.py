@@ -113,6 +113,16 @@ def encode(table: pa.Table, fh) -> None:
     pq.write_table(table, fh, **WRITE_OPTIONS)
 
 
+def encode_bytes(table: pa.Table) -> pa.Buffer:
+    """The bytes :func:`encode` writes, in an Arrow buffer (bytes-like, not copied): the
+    same file, written by the caller in one call (a Python file object given to the Parquet writer costs a
+    call back into Python for every small write, about as much as the encoding itself for
+    a trace of a hundred rows; ``benchmarks/bench_campaign.py``)."""
+    sink = pa.BufferOutputStream()
+    pq.write_table(table, sink, **WRITE_OPTIONS)
+    return sink.getvalue()
+
+
 def read_table(path, columns=None) -> pa.Table:
     """``pyarrow.parquet.read_table`` with every page's CRC verified (files written before
     checksums were stored have none to verify and read as before)."""
@@ -306,13 +316,9 @@ def encoding_problem(path, table: pa.Table) -> str:
     :func:`encode` makes of its decoded ``table`` (schema metadata included), or ''. A
     changed byte that decodes to the same content (in a page header, the footer's
     statistics or its writer string) is named here."""
-    import io
-
-    buf = io.BytesIO()
-    encode(table, buf)
     with open(path, "rb") as fh:
         stored = fh.read()
-    if buf.getvalue() != stored:
+    if encode_bytes(table).to_pybytes() != stored:
         return "its bytes differ from the encoding of its content (a changed byte in the file's structure)"
     return ""
 
@@ -369,5 +375,5 @@ def read_trace(path: str | Path, columns: Iterable[str] | None = None, *,
 
 
 __all__ = ["BASE_COLUMNS", "BASE_SCHEMA", "RUN_LEVEL", "RUN_LEVEL_SCHEMA", "STATUSES", "SchemaError",
-           "FORMER_COLUMNS", "TRACE_SCHEMA", "WRITE_OPTIONS", "ColumnDigest", "data_digest", "data_problem", "encode",
+           "FORMER_COLUMNS", "TRACE_SCHEMA", "WRITE_OPTIONS", "ColumnDigest", "data_digest", "data_problem", "encode", "encode_bytes",
            "encoding_problem", "has_checksums", "metadata_problem", "written_by", "seal", "META_KEY", "CHECKSUMS_KEY", "read_table", "read_trace", "type_mismatches"]

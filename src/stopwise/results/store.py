@@ -31,7 +31,7 @@ from stopwise.core.files import atomic_write_bytes
 from stopwise.core.errors import StopwiseError
 from stopwise.config.spec import canonical_json
 from stopwise.results.schema import (META_KEY, RUN_LEVEL, STATUSES, ColumnDigest, encode,  # noqa: F401
-                                     metadata_problem, read_table, seal)
+                                     encode_bytes, metadata_problem, read_table, seal)
 
 _ID = re.compile(r"^[0-9a-f]{4,64}$")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")  # the campaign file names' rule (campaign.NAME)
@@ -80,13 +80,14 @@ class Store:
                 arrays.append(pa.nulls(n, pa.float64()))
                 digest.nulls(k, n, "double")
             else:
-                arrays.append(pa.array(v))
+                arrays.append(_numbers(v))
                 digest.values(k, v, arrays[-1])
         table = seal(pa.Table.from_arrays(arrays, names=names),
                      json.dumps(meta, sort_keys=True, default=_json_default).encode(), data=digest.hexdigest())
         path = self.run_path(run_id)
         try:
-            _atomic_write(path, lambda fh: encode(table, fh))
+            data = encode_bytes(table)
+            _atomic_write(path, lambda fh: fh.write(data))
         except OSError as e:
             raise StoreWriteError.of(e, path) from e
         return path
@@ -251,7 +252,8 @@ class Store:
         """Write one baseline's table atomically with ``meta`` as its ``stopwise`` metadata."""
         table = seal(table.replace_schema_metadata(None), json.dumps(meta, sort_keys=True, default=_json_default).encode())
         path = self.baseline_path(baseline_id)
-        _atomic_write(path, lambda fh: encode(table, fh))
+        data = encode_bytes(table)
+        _atomic_write(path, lambda fh: fh.write(data))
         return path
 
     def has_baseline(self, baseline_id: str) -> bool:
@@ -414,13 +416,30 @@ def check_manifest_shape(m: Any) -> dict[str, Any]:
     return m
 
 
+def _numbers(v: np.ndarray) -> pa.Array:
+    """A 1-D float64, int64 or bool numpy array as an Arrow array without nulls: the array
+    ``pa.array`` makes of it, laid out from its buffer directly. (``pa.array`` and
+    ``pa.scalar`` import pandas on their first call in a process, about 0.6 s that a
+    campaign's worker would pay only for that; this never does.)"""
+    if isinstance(v, np.ndarray) and v.ndim == 1 and v.dtype.isnative:
+        if v.dtype == np.float64 or v.dtype == np.int64:
+            v = np.ascontiguousarray(v)
+            return pa.Array.from_buffers(_ARROW_NUMBERS[v.dtype.char], len(v), [None, pa.py_buffer(v)])
+        if v.dtype == np.bool_:
+            return pa.Array.from_buffers(pa.bool_(), len(v), [None, pa.py_buffer(np.packbits(v, bitorder="little"))])
+    return pa.array(v)
+
+
+_ARROW_NUMBERS = {np.dtype(np.float64).char: pa.float64(), np.dtype(np.int64).char: pa.int64()}
+
+
 def _constant_column(v: Any, n: int) -> pa.Array:
     if isinstance(v, bool):
-        return pa.repeat(pa.scalar(v, pa.bool_()), n)
+        return _numbers(np.full(n, v, dtype=np.bool_))
     if isinstance(v, int):
-        return pa.repeat(pa.scalar(v, pa.int64()), n)
+        return _numbers(np.full(n, v, dtype=np.int64))
     if isinstance(v, float):
-        return pa.repeat(pa.scalar(v, pa.float64()), n)
+        return _numbers(np.full(n, v, dtype=np.float64))
     if v is None:
         return pa.nulls(n, pa.string())
     if not isinstance(v, str):
