@@ -97,7 +97,7 @@ def one_line(e: BaseException) -> str:
 # carries ``stopwise.checksums`` (:data:`CHECKSUMS_KEY`): the SHA-256 of the decoded data
 # (:func:`data_digest`) and of the metadata's bytes. Readers of metadata check the second;
 # ``stopwise verify`` checks both, and that the file's bytes are exactly what the writer
-# makes of its content (:func:`encode`), which names a changed byte anywhere in the file.
+# makes of its content (:func:`encode_bytes`), which names a changed byte anywhere in the file.
 
 META_KEY = b"stopwise"
 CHECKSUMS_KEY = b"stopwise.checksums"
@@ -108,16 +108,11 @@ WRITE_OPTIONS = {"compression": "snappy", "write_page_checksum": True, "use_dict
                  "write_statistics": False}
 
 
-def encode(table: pa.Table, fh) -> None:
-    """Write ``table`` (with its schema metadata) as Parquet the one way stopwise does."""
-    pq.write_table(table, fh, **WRITE_OPTIONS)
-
-
 def encode_bytes(table: pa.Table) -> pa.Buffer:
-    """The bytes :func:`encode` writes, in an Arrow buffer (bytes-like, not copied): the
-    same file, written by the caller in one call (a Python file object given to the Parquet writer costs a
-    call back into Python for every small write, about as much as the encoding itself for
-    a trace of a hundred rows; ``benchmarks/bench_campaign.py``)."""
+    """``table`` (with its schema metadata) as Parquet, the one way stopwise encodes it, in
+    an Arrow buffer (bytes-like, not copied) that the caller writes in one call. (A Python
+    file object given to the Parquet writer costs a call back into Python for every small
+    write: about as much again as the encoding for a trace of a hundred rows.)"""
     sink = pa.BufferOutputStream()
     pq.write_table(table, sink, **WRITE_OPTIONS)
     return sink.getvalue()
@@ -256,7 +251,7 @@ class ColumnDigest:
 
 def seal(table: pa.Table, meta: bytes, data: str | None = None) -> pa.Table:
     """``table`` with ``meta`` (the ``stopwise`` metadata's JSON bytes) and the checksums of
-    both as its schema metadata, ready for :func:`encode`. ``data``: the table's
+    both as its schema metadata, ready for :func:`encode_bytes`. ``data``: the table's
     :func:`data_digest` when the writer has it already (:class:`ColumnDigest`)."""
     import json
 
@@ -313,7 +308,7 @@ def written_by(md: dict) -> str | None:
 
 def encoding_problem(path, table: pa.Table) -> str:
     """For a file written by this pyarrow version: why its bytes are not exactly what
-    :func:`encode` makes of its decoded ``table`` (schema metadata included), or ''. A
+    :func:`encode_bytes` makes of its decoded ``table`` (schema metadata included), or ''. A
     changed byte that decodes to the same content (in a page header, the footer's
     statistics or its writer string) is named here."""
     with open(path, "rb") as fh:
@@ -375,5 +370,5 @@ def read_trace(path: str | Path, columns: Iterable[str] | None = None, *,
 
 
 __all__ = ["BASE_COLUMNS", "BASE_SCHEMA", "RUN_LEVEL", "RUN_LEVEL_SCHEMA", "STATUSES", "SchemaError",
-           "FORMER_COLUMNS", "TRACE_SCHEMA", "WRITE_OPTIONS", "ColumnDigest", "data_digest", "data_problem", "encode", "encode_bytes",
+           "FORMER_COLUMNS", "TRACE_SCHEMA", "WRITE_OPTIONS", "ColumnDigest", "data_digest", "data_problem", "encode_bytes",
            "encoding_problem", "has_checksums", "metadata_problem", "written_by", "seal", "META_KEY", "CHECKSUMS_KEY", "read_table", "read_trace", "type_mismatches"]

@@ -30,7 +30,7 @@ from stopwise.core.files import atomic_write as _atomic_write  # noqa: F401  (th
 from stopwise.core.files import atomic_write_bytes
 from stopwise.core.errors import StopwiseError
 from stopwise.config.spec import canonical_json
-from stopwise.results.schema import (META_KEY, RUN_LEVEL, STATUSES, ColumnDigest, encode,  # noqa: F401
+from stopwise.results.schema import (META_KEY, RUN_LEVEL, STATUSES, ColumnDigest,  # noqa: F401
                                      encode_bytes, metadata_problem, read_table, seal)
 
 _ID = re.compile(r"^[0-9a-f]{4,64}$")
@@ -86,8 +86,7 @@ class Store:
                      json.dumps(meta, sort_keys=True, default=_json_default).encode(), data=digest.hexdigest())
         path = self.run_path(run_id)
         try:
-            data = encode_bytes(table)
-            _atomic_write(path, lambda fh: fh.write(data))
+            atomic_write_bytes(path, encode_bytes(table))
         except OSError as e:
             raise StoreWriteError.of(e, path) from e
         return path
@@ -252,8 +251,7 @@ class Store:
         """Write one baseline's table atomically with ``meta`` as its ``stopwise`` metadata."""
         table = seal(table.replace_schema_metadata(None), json.dumps(meta, sort_keys=True, default=_json_default).encode())
         path = self.baseline_path(baseline_id)
-        data = encode_bytes(table)
-        _atomic_write(path, lambda fh: fh.write(data))
+        atomic_write_bytes(path, encode_bytes(table))
         return path
 
     def has_baseline(self, baseline_id: str) -> bool:
