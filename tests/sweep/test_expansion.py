@@ -152,6 +152,36 @@ def test_chunks_give_the_same_runs_and_traces_and_progress_counts_each_run_once(
     assert sorted(p.name for p in (chunked / "jobs" / cid / "chunks").glob("*.json")) == ["0.json", "1.json", "2.json"]
 
 
+def test_the_time_left_follows_the_runs_pace_not_the_workers_start_up(tmp_path, capsys):
+    """A launch whose worker took an hour to start (the count's start set an hour back)
+    still estimates the time left from the runs' own pace: from the moment the first
+    finished run began. Measured from the launch's start, the first line would say about
+    three hours for the three runs left."""
+    import time
+
+    from stopwise.results.store import Store
+    from stopwise.sweep.campaign import expand
+    from stopwise.sweep.chunks import jobs_dir, run_chunk, write_plan
+
+    exp = expand(None, ["dataset=wellposed", "solver=gd", "seed=0,1,2,3", *QUICK, f"results_root={tmp_path}"])
+    store = Store(tmp_path)
+    cid = exp.manifest["campaign_id"]
+    write_plan(store, cid, list(exp.specs), 1, total=4, done_before=0)
+    count = jobs_dir(store, cid) / "progress.json"
+    state = json.loads(count.read_text())
+    state["start"] = time.time() - 3600
+    count.write_text(json.dumps(state))
+    t0 = time.time()
+    assert run_chunk(str(tmp_path), cid, 0) == {"completed": 4}
+    took = time.time() - t0
+    lines = [PROGRESS.match(line) for line in capsys.readouterr().out.splitlines()]
+    assert all(lines) and [int(m.group(1)) for m in lines] == [1, 2, 3, 4]
+    left = re.match(r"  ~(?:(\d+)m)?(\d+)s left", lines[0].group(5))
+    assert left, lines[0].group(5)
+    assert int(left.group(1) or 0) * 60 + int(left.group(2)) <= 3 * took + 1
+    assert json.loads(count.read_text())["origin"] >= t0
+
+
 def test_resume_runs_only_what_is_missing_or_failed(tmp_path, capsys):
     root = tmp_path / "res"
     args = ["dataset=wellposed", "solver=gd", "seed=0,1,2", *QUICK, f"results_root={root}"]

@@ -122,8 +122,10 @@ class ProgressCount:
         except OSError:  # no progress file (Hydra driven directly): no count
             self.fd = None
 
-    def add_one(self) -> dict[str, Any] | None:
-        """Add one finished run; the count after it, or None when there is none to keep."""
+    def add_one(self, began: float | None = None) -> dict[str, Any] | None:
+        """Add one finished run; the count after it, or None when there is none to keep.
+        ``began``: the wall-clock time the run began; the first finished run's is kept as
+        the origin of the launch's pace (:func:`progress_prefix`)."""
         if self.fd is None:
             return None
         import fcntl
@@ -133,6 +135,8 @@ class ProgressCount:
             try:
                 state = json.loads(os.pread(self.fd, 1 << 16, 0) or b"{}")
                 state["done"] = int(state.get("done", 0)) + 1
+                if began is not None and "origin" not in state:
+                    state["origin"] = float(began)
                 out = json.dumps(state).encode()
                 os.pwrite(self.fd, out, 0)
                 os.ftruncate(self.fd, len(out))
@@ -175,11 +179,17 @@ def eta_text(seconds: float) -> str:
 
 def progress_prefix(state: dict[str, Any] | None) -> tuple[str, str]:
     """(``[done/total] ``, ``  ~time left``) from a progress count: ``done`` counts the
-    runs stored before this launch too; the time left extrapolates this launch's pace.
+    runs stored before this launch too; the time left extrapolates this launch's pace,
+    measured from the moment its first finished run began (``origin``), so that the start-up
+    of the workers (seconds, against runs of milliseconds) does not inflate the estimate;
+    a count without an origin measures from the launch's ``start``.
 
     >>> import time
     >>> progress_prefix({"start": time.time() - 10, "total": 120, "before": 20, "pending": 100, "done": 10})
     ('[ 30/120] ', '  ~1m30s left')
+    >>> now = time.time()  # workers started 3 s after the launch; 10 runs in the 1 s since
+    >>> progress_prefix({"start": now - 4, "origin": now - 1, "total": 100, "before": 0, "pending": 100, "done": 10})
+    ('[ 10/100] ', '  ~9s left')
     """
     if not state:
         return "", ""
@@ -187,7 +197,7 @@ def progress_prefix(state: dict[str, Any] | None) -> tuple[str, str]:
     done = int(state.get("before", 0)) + int(state.get("done", 0))
     width = len(str(total))
     finished, pending = int(state.get("done", 0)), int(state.get("pending", 0))
-    elapsed = time.time() - float(state.get("start", time.time()))
+    elapsed = time.time() - float(state.get("origin", state.get("start", time.time())))
     left = elapsed / finished * (pending - finished) if finished else math.nan
     eta = eta_text(left) if finished < pending else ""
     return f"[{min(done, total):>{width}}/{total}] ", (f"  ~{eta}" if eta else "")
@@ -259,6 +269,7 @@ def run_chunk(root: str, campaign_id: str, k: int, threads: int | None = None) -
                       f"{len(runs) - j} runs left for the next sweep", file=sys.stderr, flush=True)
                 counts["left"] = len(runs) - j
                 break
+            began = time.time()
             try:
                 spec = spec_from_identity(ident)
                 if spec.run_id != run_id:
@@ -284,7 +295,7 @@ def run_chunk(root: str, campaign_id: str, k: int, threads: int | None = None) -
             except (OSError, TypeError):
                 pass
             try:
-                head, tail = progress_prefix(progress.add_one())
+                head, tail = progress_prefix(progress.add_one(began))
                 print(head + outcome_line(out) + tail, flush=True)
             except Exception:  # a progress line must never fail a run
                 pass
