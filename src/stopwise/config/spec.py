@@ -483,10 +483,85 @@ def _check(path: str, value: Any, allow_none: bool = False) -> Any:
 
 
 def spec_from_config(cfg: Any) -> RunSpec:
-    """Validate a composed config (DictConfig or plain dict) into a RunSpec, one section at a time."""
+    """Validate a composed config (DictConfig or plain dict) into a RunSpec, one section at a time.
+
+    Configs that differ only in their seed validate alike (the seed is checked, and used by
+    nothing else here), so the sections validated for one are reused for the others
+    (:class:`_Reseed`): a sweep over thousands of seeds validates each other combination once.
+    """
     c = _plain(cfg)
     if not isinstance(c, dict):
         raise SpecError("config must be a mapping")
+    key = _reseed_key(c)
+    hit = _RESEED.get(key) if key is not None else None
+    if hit is not None and hit.current():
+        return hit.spec(int(_check("seed", c.get("seed", 0))))
+    spec = _validate_config(c)
+    if key is not None and len(_RESEED) < 4096:
+        _RESEED[key] = _Reseed(spec)
+    return spec
+
+
+# what spec_from_config reads besides the seed (the run options are checked, not kept)
+_RESEED_KEYS = ("dataset", "split", "solver", "budget", "record", "stopping", "threads", "results_root",
+                "campaign_id")
+
+
+def _reseed_key(c: dict) -> str | None:
+    """The config without its seed as sorted-key JSON (None when it is not plain data)."""
+    try:
+        return json.dumps([[k, c[k]] for k in _RESEED_KEYS if k in c], sort_keys=True, allow_nan=True)
+    except (TypeError, ValueError):
+        return None
+
+
+def _copy(obj: Any) -> Any:
+    if isinstance(obj, dict):
+        return {k: _copy(v) for k, v in obj.items()}
+    if isinstance(obj, list):
+        return [_copy(v) for v in obj]
+    return obj
+
+
+class _Reseed:
+    """A validated spec, kept to give the spec of the same config with another seed: fresh
+    copies of its sections (a RunSpec owns its dicts; the params are frozen and shared) and
+    its identity text with the seed put in place. Canonical JSON sorts the identity's keys,
+    and the seed's neighbours are fixed (``format`` and ``record`` before it, ``solver`` and
+    ``split`` after), so the text is the canonical JSON of the keys before ``seed``, the seed,
+    and that of the keys after; checked against the spec's own text when the entry is made."""
+
+    def __init__(self, spec: RunSpec):
+        self.solver = SOLVERS.get(spec.solver)
+        self.rule = RULES.get(spec.stopping.get("rule"))
+        self.sections = _copy({k: getattr(spec, k) for k in ("dataset", "split", "budget", "record", "stopping")})
+        self.name, self.params = spec.solver, spec.params
+        ident = spec.identity()
+        self.head = identity_json({k: v for k, v in ident.items() if k < "seed"})[:-1] + ',"seed":'
+        self.tail = "," + identity_json({k: v for k, v in ident.items() if k > "seed"})[1:]
+        if self.text(spec.seed) != spec.identity_text:  # never expected: then the text is computed per spec
+            self.head = self.tail = ""
+
+    def text(self, seed: int) -> str:
+        return f"{self.head}{seed}{self.tail}"
+
+    def current(self) -> bool:
+        """The solver and rule it was validated against are still the registered ones."""
+        return SOLVERS.get(self.name) is self.solver and RULES.get(self.sections["stopping"].get("rule")) is self.rule
+
+    def spec(self, seed: int) -> RunSpec:
+        spec = RunSpec(solver=self.name, params=self.params, seed=seed, **_copy(self.sections))
+        if self.head:
+            # the cached property's own storage (functools.cached_property keeps its value in
+            # the instance dict, which a frozen dataclass does not guard)
+            vars(spec)["identity_text"] = self.text(seed)
+        return spec
+
+
+_RESEED: dict[str, _Reseed] = {}  # validated specs by their config without the seed
+
+
+def _validate_config(c: dict) -> RunSpec:
     for key in ("dataset", "solver"):
         if not isinstance(c.get(key), dict):
             raise SpecError(f"config has no {key}; choose one with {key}=NAME")
