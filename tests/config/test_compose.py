@@ -25,6 +25,7 @@ PIECES = [
     ["solver=glob(gd*)"],
     ["solver.step_scale=0.5,1,1.5"],
     ["seed=range(0,3)"],
+    ["dataset=wellposed", "seed=range(5,8)", "dataset.params.seed=${seed}"],  # the seed read by an interpolation
     ["budget.iterations=20,30"],
     ["++record.every=2"],
     ["+budget=long"],
@@ -52,6 +53,12 @@ def generated_sweeps(n: int, seed: int = 0) -> list[list[str]]:
     return out
 
 
+def shared(composer: Composer, job: list[str]) -> dict:
+    """The job's config as a sweep's expansion makes it (shared sections for seed-only changes)."""
+    shaping, values = composer.split(job)
+    return composer.apply_shared(composer.base(shaping), values)
+
+
 def compare(jobs: list[list[str]], limit: int | None = None, seed: int = 0) -> int:
     """Compose ``jobs`` both ways (all of them, or a seeded sample of ``limit``); equal configs
     and equal run ids required. Returns the number compared."""
@@ -61,6 +68,7 @@ def compare(jobs: list[list[str]], limit: int | None = None, seed: int = 0) -> i
         mine = composer.config(job)
         ref = per_job(job)
         assert mine == ref, job
+        assert shared(composer, job) == ref, job
         assert spec_from_config(mine).run_id == spec_from_config(ref).run_id
     return len(sample)
 
@@ -108,6 +116,7 @@ def test_generated_sweeps_compose_as_hydra_composes_each_job(sweep):
         for job in random.Random(2).sample(jobs, min(8, len(jobs))):
             try:
                 mine = composer.config(job)
+                assert shared(composer, job) == mine, job
             except SpecError as e:
                 errors_mine.append(str(e))
                 mine = None

@@ -122,6 +122,7 @@ class Composer:
         self._templates: dict[str, Any] = {}
         self._groups: dict[str, bool] = {}
         self.bases: dict[tuple[str, ...], Base] = {}
+        self._unseeded: dict[tuple, dict] = {}  # (base, value overrides but the seed) -> config
         if live:
             self.attach()
 
@@ -261,6 +262,24 @@ class Composer:
                 node[path[-1]] = plain_copy(self._probe(base, o))
             return out
         return self._slow(base, overrides)
+
+    def apply_shared(self, base: Base, overrides: list) -> dict:
+        """:meth:`apply` for jobs that differ only in their seed: the config without the seed
+        override is made once, and each job's is a shallow copy of it with the seed Hydra
+        stores. Only where the leaf values are set directly (no interpolation anywhere, so
+        nothing else reads the seed); the sections are shared between the results: read
+        them, do not modify them."""
+        seeds = [o for o in overrides if o.key_or_group == "seed"]
+        if len(seeds) != 1 or not self._fast(base, overrides):
+            return self.apply(base, overrides)
+        rest = [o for o in overrides if o is not seeds[0]]
+        key = (id(base), tuple(o.input_line for o in rest))
+        cfg = self._unseeded.get(key)
+        if cfg is None:
+            cfg = self._unseeded[key] = self.apply(base, rest)
+        out = dict(cfg)
+        out["seed"] = plain_copy(self._probe(base, seeds[0]))
+        return out
 
     def _fast(self, base: Base, overrides: list) -> bool:
         from hydra.core.override_parser.types import OverrideType

@@ -387,8 +387,12 @@ def expand(campaign: str | None, overrides: list[str], strict: bool = False) -> 
                             continue
                         applied.add(k)
                     use.append(o)
-                cfg = composer.apply(b, use)
-                variants = suite_jobs(cfg, job, suites, replaced) if is_suite(cfg) else [(cfg, job, None)]
+                cfg = composer.apply_shared(b, use)
+                if is_suite(cfg):
+                    cfg = composer.apply(b, use)  # a config of its own: the suite's tasks replace its sections
+                    variants = suite_jobs(cfg, job, suites, replaced)
+                else:
+                    variants = [(cfg, job, None)]
             except SpecError as e:
                 raise where(named(e)) from None
             for cfg, vjob, task in variants:
