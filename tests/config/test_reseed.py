@@ -89,3 +89,18 @@ def test_a_solver_registered_again_is_validated_again():
         if "ext_reseed" in SOLVERS:
             SOLVERS.unregister("ext_reseed")
     assert [type(spec.params) for _, spec in made] == [params for params, _ in made]
+
+
+def test_a_solver_unregistered_since_is_one_line_naming_it():
+    """Served from the memo or not, a config naming a solver no longer registered is the
+    same one-line refusal that validation gives (the registry's list of valid solvers)."""
+    gd = SOLVERS["gd"]
+    cfg = dict(compose_cached(SWEEPS[0]))
+    cfg["solver"] = dict(cfg["solver"], name="ext_gone")
+    register(dataclasses.replace(gd, name="ext_gone"))
+    try:
+        spec_from_config(dict(cfg, seed=0))
+    finally:
+        SOLVERS.unregister("ext_gone")
+    with pytest.raises(SpecError, match="unknown solver 'ext_gone'; valid: .*gd"):
+        spec_from_config(dict(cfg, seed=1))

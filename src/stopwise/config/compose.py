@@ -27,7 +27,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any, Iterator
 
-from stopwise.config.spec import SpecError, conf_dir, hydra_error_line, register_configs
+from stopwise.config.spec import SpecError, conf_dir, hydra_error_line, plain_copy, register_configs
 from stopwise.core.errors import StopwiseError
 
 
@@ -53,20 +53,6 @@ def compose_job(overrides: list[str], return_hydra_config: bool = False, config_
         return compose(config_name=config_name, overrides=list(overrides), return_hydra_config=return_hydra_config)
     except (HydraException, OmegaConfBaseException) as e:
         raise SpecError(hydra_error_line(e)) from None
-
-
-def plain_copy(obj: Any) -> Any:
-    """Copy of nested dicts and lists of plain values (what ``OmegaConf.to_container`` gives).
-
-    >>> a = {"solver": {"name": "gd", "tags": [1, 2]}}
-    >>> b = plain_copy(a); b["solver"]["tags"].append(3); a["solver"]["tags"], b == a
-    ([1, 2], False)
-    """
-    if isinstance(obj, dict):
-        return {k: plain_copy(v) for k, v in obj.items()}
-    if isinstance(obj, list):
-        return [plain_copy(v) for v in obj]
-    return obj
 
 
 def _has_interpolation(obj: Any) -> bool:

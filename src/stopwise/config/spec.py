@@ -515,11 +515,17 @@ def _reseed_key(c: dict) -> str | None:
         return None
 
 
-def _copy(obj: Any) -> Any:
+def plain_copy(obj: Any) -> Any:
+    """Copy of nested dicts and lists of plain values (what ``OmegaConf.to_container`` gives).
+
+    >>> a = {"solver": {"name": "gd", "tags": [1, 2]}}
+    >>> b = plain_copy(a); b["solver"]["tags"].append(3); a["solver"]["tags"], b == a
+    ([1, 2], False)
+    """
     if isinstance(obj, dict):
-        return {k: _copy(v) for k, v in obj.items()}
+        return {k: plain_copy(v) for k, v in obj.items()}
     if isinstance(obj, list):
-        return [_copy(v) for v in obj]
+        return [plain_copy(v) for v in obj]
     return obj
 
 
@@ -532,9 +538,9 @@ class _Reseed:
     and that of the keys after; checked against the spec's own text when the entry is made."""
 
     def __init__(self, spec: RunSpec):
-        self.solver = SOLVERS.get(spec.solver)
-        self.rule = RULES.get(spec.stopping.get("rule"))
-        self.sections = _copy({k: getattr(spec, k) for k in ("dataset", "split", "budget", "record", "stopping")})
+        self.solver = SOLVERS[spec.solver]
+        self.rule = RULES[spec.stopping["rule"]]
+        self.sections = plain_copy({k: getattr(spec, k) for k in ("dataset", "split", "budget", "record", "stopping")})
         self.name, self.params = spec.solver, spec.params
         ident = spec.identity()
         self.head = identity_json({k: v for k, v in ident.items() if k < "seed"})[:-1] + ',"seed":'
@@ -546,11 +552,14 @@ class _Reseed:
         return f"{self.head}{seed}{self.tail}"
 
     def current(self) -> bool:
-        """The solver and rule it was validated against are still the registered ones."""
-        return SOLVERS.get(self.name) is self.solver and RULES.get(self.sections["stopping"].get("rule")) is self.rule
+        """The solver and rule it was validated against are still the registered ones (one
+        unregistered since is validated afresh, which names it as unknown)."""
+        rule = self.sections["stopping"]["rule"]
+        return (self.name in SOLVERS and SOLVERS[self.name] is self.solver
+                and rule in RULES and RULES[rule] is self.rule)
 
     def spec(self, seed: int) -> RunSpec:
-        spec = RunSpec(solver=self.name, params=self.params, seed=seed, **_copy(self.sections))
+        spec = RunSpec(solver=self.name, params=self.params, seed=seed, **plain_copy(self.sections))
         if self.head:
             # the cached property's own storage (functools.cached_property keeps its value in
             # the instance dict, which a frozen dataclass does not guard)
