@@ -351,7 +351,14 @@ def compose_cached(overrides: list[str]) -> dict:
     """The plain config of one job, composing with Hydra only for a group choice not seen
     before in this process (``stopwise.run`` and ``load_problem`` in a loop pay one
     composition per combination of group choices). Everything cached is dropped when
-    solvers or stopping rules are registered or removed."""
+    solvers or stopping rules are registered or removed.
+
+    >>> cfg = compose_cached(["dataset=diabetes", "solver=sgd", "solver.batch=0.2", "seed=3"])
+    >>> cfg["seed"], cfg["solver"]["name"], cfg["solver"]["batch"], cfg["dataset"]["name"]
+    (3, 'sgd', 0.2, 'diabetes')
+    >>> compose_cached(["dataset=diabetes", "solver=sgd", "seed=4"])["solver"]["batch"]  # the default: one row per step
+    1.0
+    """
     from stopwise.config.spec import registration_generation
 
     register_configs()
