@@ -73,6 +73,19 @@ def test_csr_kernels_equal_scipys_products(shape):
     r2 = np.full(n, np.nan)
     kernels.csr_residual(X, w, y, r2)
     np.testing.assert_allclose(r2, ref_r, rtol=1e-13, atol=1e-14)
+    # a kept scratch (whatever it held before) gives the same bits as a fresh one, twice
+    work, r3, g3 = np.full((d, 2), np.nan), np.full(n, np.nan), np.full(d, np.nan)
+    for _ in range(2):
+        kernels.csr_residual_gradient(X, w, y, r3, g3, work)
+        assert np.array_equal(r3, r) and np.array_equal(g3, g)
+
+
+@pytest.mark.parametrize("work", [np.empty((3, 2)), np.empty((2, 3)), np.empty((2, 2), dtype=np.float32),
+                                  np.empty((2, 2), order="F")])
+def test_the_csr_kernel_refuses_a_scratch_of_the_wrong_shape(work):
+    X = sp.csr_matrix(np.array([[1.0, 0.0], [0.0, 2.0]]))
+    with pytest.raises(ValueError, match=r"C-ordered \(2, 2\) float64"):
+        kernels.csr_residual_gradient(X, np.ones(2), np.zeros(2), np.empty(2), np.empty(2), work)
 
 
 def test_the_csr_kernel_refuses_duplicate_entries():

@@ -155,9 +155,9 @@ class FusedGradient:
 
 class SparseFusedGradient:
     """``g = X^T (X w - y) / n`` for a CSR design in one pass over its stored entries
-    (:func:`stopwise.running.kernels.csr_residual_gradient`). The residual scratch is kept
-    per thread, so a call allocates only the gradient it returns; ``last_residual`` as for
-    :class:`FusedGradient`."""
+    (:func:`stopwise.running.kernels.csr_residual_gradient`). The residual and the kernel's
+    ``(p, 2)`` scratch are kept per thread, so a call allocates only the gradient it
+    returns; ``last_residual`` as for :class:`FusedGradient`."""
 
     path = "fused"
 
@@ -178,8 +178,11 @@ class SparseFusedGradient:
         r = getattr(self._local, "r", None)
         if r is None or self.keep_residual:
             r = self._local.r = np.empty(self.n)
+        work = getattr(self._local, "work", None)
+        if work is None:
+            work = self._local.work = np.empty((self.d, 2))
         g = np.empty(self.d)
-        self._kernel(self.X, w, self.y, r, g)
+        self._kernel(self.X, w, self.y, r, g, work)
         g /= self.n
         if self.keep_residual:
             self.last_residual = r
