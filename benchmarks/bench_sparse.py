@@ -16,7 +16,9 @@ step costs at most 1.5 times one read of the design's nonzeros.
    step through the solver) is timed against its peer measured in the same run: one read
    of the training rows' nonzeros (a compiled loop summing ``data[k] * v[indices[k]]``,
    which reads every value and column index once and gathers from a vector, as the
-   gradient must). SciPy's two products ``X.T @ (X @ w - y)`` are shown for comparison.
+   gradient must). SciPy's two products ``X.T @ (X @ w - y)`` are shown for comparison,
+   and so is a plain stream of the same values and indices without the gather (the
+   memory's bandwidth limit), with the ratios to it.
 
     .venv/bin/python benchmarks/bench_sparse.py            # the full size
     BENCH_SPARSE_ROWS=20000 .venv/bin/python benchmarks/bench_sparse.py   # a quicker look
@@ -98,6 +100,15 @@ def step_cost(path: Path) -> None:
             s += data[k] * v[indices[k]]
         return s
 
+    @njit(nogil=True, fastmath={"reassoc", "contract"}, boundscheck=False)
+    def stream_nonzeros(data, indices):  # the memory's limit: the same bytes, no gather
+        s = 0.0
+        t = 0
+        for k in range(data.shape[0]):
+            s += data[k]
+            t += indices[k]
+        return s + t
+
     spec = spec_from_overrides(overrides(path) + SOLVERS["gd"])
     problem = build_problem(spec.dataset, spec.split, spec.seed)
     X, y = problem.X_train, problem.y_train
@@ -111,8 +122,12 @@ def step_cost(path: Path) -> None:
     v = np.ones(d)
     read_nonzeros(X.data, X.indices, v)  # compile
     repeat = 15
+    stream_nonzeros(X.data, X.indices)  # compile
     one_read = best_of(lambda: read_nonzeros(X.data, X.indices, v), repeat)
+    stream = best_of(lambda: stream_nonzeros(X.data, X.indices), repeat)
     print(f"  one read of the nonzeros (peer)        {one_read * 1e3:8.2f} ms  {nbytes / one_read / 1e9:5.1f} GB/s")
+    print(f"  the same bytes streamed, no gather     {stream * 1e3:8.2f} ms  {nbytes / stream / 1e9:5.1f} GB/s "
+          f"(no gather: the memory's limit once the design outgrows the caches; the peer is {one_read / stream:4.2f}x it)")
     ref = X.T @ (X @ w - y) / n
     assert np.allclose(train.gradient(w), ref, rtol=1e-10, atol=1e-12 * np.abs(ref).max())
     gd = get_solver("gd")
@@ -123,7 +138,8 @@ def step_cost(path: Path) -> None:
     for name, fn in rows:
         fn()
         t = best_of(fn, repeat)
-        print(f"  {name:40s} {t * 1e3:8.2f} ms  ratio to one read: {t / one_read:5.2f}")
+        print(f"  {name:40s} {t * 1e3:8.2f} ms  ratio to one read: {t / one_read:5.2f}  "
+              f"(to the stream: {t / stream:5.2f})")
 
 
 def main() -> None:
