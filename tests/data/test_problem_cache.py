@@ -134,12 +134,12 @@ def test_concurrent_processes_share_one_entry(problem_cache):
 
 
 def test_a_sweep_builds_each_data_spec_once(problem_cache, root, capsys):
-    """2 solvers x 2 seeds on one dataset: 2 distinct data specs, 2 entries; a second identical sweep
-    rewrites none of them."""
+    """2 solvers x 2 seeds on one dataset: 2 distinct data specs, 2 entries (and their 2 kept
+    norms, the threshold being 0 here); a second identical sweep rewrites none of them."""
     args = ["sweep", "dataset=wellposed", "solver=gd,cgls", "seed=0,1", "budget.iterations=3", f"results_root={root}"]
     assert main(args) == 0
     names = entries(problem_cache)
-    assert len(names) == 4
+    assert len(names) == 6 and sum(n.endswith(".norm.json") for n in names) == 2
     stamps = {n: (problem_cache / "problems" / n).stat().st_mtime_ns for n in names}
     data._CACHE.clear()
     assert main(args) == 0
@@ -227,3 +227,104 @@ def test_scikit_learn_tables_are_kept_so_another_process_need_not_import_scikit_
     assert [f.path for f in rep.bad] == [kept] and "arrays differ" in rep.bad[0].problem
     assert rep.cached == len(cache.entries(tmp_path / "cache"))  # processed problems and raw data
     assert cache.read_raw(json.loads(kept.read_text())["key"], tmp_path / "cache") is None
+
+
+# ---------------------------------------------------------------- the kept ||X_train||_2^2
+
+def thin_svmlight(path):
+    """40 rows, 50 features, two stored entries per row: a CSR design (density 0.04)."""
+    lines = []
+    for i in range(40):
+        a, b = (7 * i) % 50 + 1, (11 * i + 3) % 50 + 1
+        ent = sorted({a: f"{i + 1}.5", b: "-1"}.items())
+        lines.append(f"{1 if i % 2 else -1} " + " ".join(f"{k}:{v}" for k, v in ent))
+    path.write_text("\n".join(lines) + "\n")
+    return ["dataset=file", f"dataset.params.path={path}", "dataset.params.design=sparse"]
+
+
+def norm_files(d):
+    return sorted((d / "problems").glob("*.norm.json"))
+
+
+def test_the_norm_is_kept_and_another_process_reads_the_same_bits(problem_cache, tmp_path, monkeypatch):
+    """The ARPACK path (forced on a small CSR design): the first process computes
+    ||X_train||_2^2 and keeps it; after the in-process memo is dropped, the problem comes back
+    with the kept value (the computation is made to fail, so it cannot have run) and that
+    value equals the computed one bit for bit. Reference: LAPACK's SVD of the dense copy
+    (numpy.linalg.norm(X, 2))."""
+    import stopwise.problem.design as design
+    import stopwise.problem.problem as problem_mod
+
+    monkeypatch.setattr(problem_mod, "SPECTRUM_GRAM_MAX", 10)
+    s = spec_from_overrides(thin_svmlight(tmp_path / "thin.svm"))
+    first = cached_problem(s.dataset, s.split, s.seed)
+    assert first.sparse and min(first.X_train.shape) > 10
+    value = first.train_norm2_sq
+    ref = np.linalg.norm(first.X_train.toarray(), 2) ** 2
+    assert abs(value - ref) <= 1e-12 * ref
+    (kept,) = norm_files(problem_cache)
+    assert kept.name == problem_key(s.dataset, s.split, s.seed)[:32] + ".norm.json"
+    data._CACHE.clear()
+
+    def refuse(X):
+        raise AssertionError("computed again instead of read")
+
+    monkeypatch.setattr(design, "sparse_norm2", refuse)
+    again = cached_problem(s.dataset, s.split, s.seed)
+    assert again is not first and again.train_norm2_sq.hex() == value.hex()
+    import pickle
+
+    assert pickle.loads(pickle.dumps(first)).train_norm2_sq == value  # the hook does not stop pickling
+    assert again.training.L == first.training.L
+    assert data.cache.check_entry(kept) == ""
+
+
+def test_a_kept_norm_is_used_only_when_unchanged_and_under_the_same_versions(problem_cache, tmp_path, monkeypatch):
+    s = spec_from_overrides(thin_svmlight(tmp_path / "thin.svm"))
+    key = problem_key(s.dataset, s.split, s.seed)
+    value = cached_problem(s.dataset, s.split, s.seed).train_norm2_sq
+    (kept,) = norm_files(problem_cache)
+    assert data.cache.read_norm(key) == value
+    good = kept.read_bytes()
+    # another SciPy: not used (it might give other bits), and not a damaged file either
+    meta = json.loads(good)
+    meta["versions"]["scipy"] = "0.0.1"
+    meta["meta_sha256"] = data.cache._meta_sha(meta)
+    kept.write_text(json.dumps(meta, sort_keys=True))
+    assert data.cache.read_norm(key) is None and data.cache.check_entry(kept) == ""
+    data._CACHE.clear()
+    assert cached_problem(s.dataset, s.split, s.seed).train_norm2_sq == value  # computed again, kept again
+    assert kept.read_bytes() == good
+    # a changed digit of the value: not used, and verify names the file
+    text = good.decode()
+    digit = text.index('"train_norm2_sq": ') + len('"train_norm2_sq": ')
+    changed = text[:digit] + ("7" if text[digit] != "7" else "8") + text[digit + 1:]
+    kept.write_text(changed)
+    assert data.cache.read_norm(key) is None
+    assert "checksum mismatch" in data.cache.check_entry(kept)
+    assert kept in data.cache.entries()
+
+
+def test_runs_that_read_a_kept_norm_store_the_traces_of_runs_that_compute_it(problem_cache, tmp_path):
+    import pyarrow.parquet as pq
+
+    import stopwise
+    from stopwise.running.rerun import compare_tables
+
+    over = thin_svmlight(tmp_path / "thin.svm") + ["solver=gd", "budget.iterations=20"]
+    a = stopwise.run(over, root=tmp_path / "a")
+    assert len(norm_files(problem_cache)) == 1
+    data._CACHE.clear()
+    b = stopwise.run(over, root=tmp_path / "b")
+    assert a.status == b.status == "completed" and a.run_id == b.run_id
+    ta = pq.read_table(tmp_path / "a" / "runs" / f"{a.run_id[:16]}.parquet")
+    tb = pq.read_table(tmp_path / "b" / "runs" / f"{b.run_id[:16]}.parquet")
+    assert compare_tables(ta, tb) == (0.0, [])
+
+
+def test_a_norm_computed_quickly_is_not_kept(problem_cache, monkeypatch):
+    """The default threshold: diabetes's 10 x 10 Gram matrix gives its norm in microseconds."""
+    monkeypatch.delenv("STOPWISE_CACHE_MIN_SECONDS")
+    s = spec_from_overrides(["dataset=diabetes", "seed=5"])
+    assert cached_problem(s.dataset, s.split, s.seed).train_norm2_sq > 0
+    assert norm_files(problem_cache) == []

@@ -191,7 +191,8 @@ def test_a_changed_cached_problem_is_named_quarantined_and_rebuilt(root, tmp_pat
     spec_args = ["dataset=illposed", "solver=gd", "budget.iterations=5", "seed=11"]
     stopwise.run(spec_args, root=tmp_path / "r1")
     (npz,) = (cache / "problems").glob("*.npz")
-    assert verify_root(root).cached == 1 and verify_root(root).ok
+    assert verify_root(root).cached == 1 and verify_root(root).ok  # the entry (its kept norm not counted)
+    assert len(list((cache / "problems").glob("*.norm.json"))) == 1
     flip(npz, npz.stat().st_size // 2)
     rep = verify_root(root)
     assert [f.path.stem for f in rep.bad] == [npz.stem] and "cached problem" in rep.bad[0].problem
@@ -233,3 +234,29 @@ def test_the_writers_digest_is_the_digest_of_what_it_wrote(tmp_path, n):
     table = read_table(path)
     stored = json.loads(table.schema.metadata[b"stopwise.checksums"])["data"]
     assert stored == data_digest(table)
+
+
+def test_a_changed_kept_norm_is_named_quarantined_and_computed_again(root, tmp_path, monkeypatch):
+    cache = tmp_path / "cache"
+    monkeypatch.setenv("STOPWISE_CACHE", str(cache))
+    monkeypatch.setenv("STOPWISE_CACHE_MIN_SECONDS", "0")
+    from stopwise import data as data_pkg
+
+    data_pkg._CACHE.clear()
+    spec_args = ["dataset=illposed", "solver=gd", "budget.iterations=5", "seed=12"]
+    first = stopwise.run(spec_args, root=tmp_path / "r1")
+    (norm,) = (cache / "problems").glob("*.norm.json")
+    good = norm.read_bytes()
+    flip(norm, good.index(b'"train_norm2_sq"') + 19)  # a digit of the value
+    rep = verify_root(root)
+    assert [f.path.name for f in rep.bad] == [norm.name] and "kept norm of a cached problem" in rep.bad[0].problem
+    verify_root(root, quarantine=True)
+    assert not norm.exists() and (cache / "quarantine" / norm.name).exists()
+    assert (cache / "problems" / norm.name.replace(".norm.json", ".npz")).exists()  # its problem stays
+    data_pkg._CACHE.clear()
+    again = stopwise.run(spec_args, root=tmp_path / "r2")
+    assert again.status == "completed" and norm.read_bytes() == good  # computed again, same bits
+    a = pq.read_table(first.path).drop(["seconds"])
+    b = pq.read_table(again.path).drop(["seconds"])
+    assert a.to_pandas().equals(b.to_pandas())
+    data_pkg._CACHE.clear()

@@ -445,7 +445,27 @@ _CACHE: "OrderedDict[str, Problem]" = OrderedDict()
 _CACHE_SIZE = 8
 
 
+class _KeepNorm:
+    """``Problem.on_norm`` hook: keep a norm that took at least :func:`cache_min_seconds`
+    (a plain object, so a problem still pickles)."""
+
+    def __init__(self, key: str) -> None:
+        self.key = key
+
+    def __call__(self, value: float, seconds: float) -> None:
+        if seconds >= cache_min_seconds():
+            _cache.write_norm(self.key, value)
+
+
 def _remember(key: str, prob: Problem) -> Problem:
+    """Keep ``prob`` in this process; its ``||X_train||_2^2`` is read from the on-disk cache
+    when kept there, else kept there once computed in at least :func:`cache_min_seconds`."""
+    if "train_norm2_sq" not in prob.__dict__ and not prob.on_norm:
+        kept = _cache.read_norm(key)
+        if kept is not None:
+            prob.__dict__["train_norm2_sq"] = kept  # where functools.cached_property keeps it
+        else:
+            prob.on_norm.append(_KeepNorm(key))
     _CACHE[key] = prob
     _CACHE.move_to_end(key)
     if len(_CACHE) > _CACHE_SIZE:

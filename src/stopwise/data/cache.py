@@ -19,6 +19,13 @@ the same bytes. Nothing is pickled. The JSON carries the SHA-256 of the arrays' 
 changed after it was written (bit rot, a hand edit) is not used but rebuilt, with a warning
 naming it, and ``stopwise verify`` names it (:func:`check_entry`).
 
+Beside an entry, ``<key32>.norm.json`` may keep ``||X_train||_2^2`` of the same problem
+(the smoothness constant's part that costs: ARPACK's top singular value of a large sparse
+design takes seconds to minutes), written once a process has computed it in at least the
+cache's threshold time, with the versions of numpy and SciPy that computed it and its own
+checksum; it is used only under the same versions, so a process that reads it runs with
+the bits a process that computes it would get.
+
 The cache lives in ``$STOPWISE_CACHE`` when set (``off`` disables it), else in the
 user's cache directory (``$XDG_CACHE_HOME/stopwise`` or ``~/.cache/stopwise`` on Linux,
 ``~/Library/Caches/stopwise`` on macOS, ``%LOCALAPPDATA%\\stopwise`` on Windows).
@@ -111,7 +118,8 @@ def _meta_sha(meta: dict) -> str:
 
 
 def check_entry(json_path: Path) -> str:
-    """Why a cache entry (its ``.json`` and ``.npz``) is not what was written, or ''."""
+    """Why a cache entry (its ``.json`` and ``.npz``; a kept norm, its ``.norm.json``) is
+    not what was written, or ''."""
     try:
         meta = json.loads(Path(json_path).read_text())
     except (OSError, ValueError) as e:
@@ -122,6 +130,8 @@ def check_entry(json_path: Path) -> str:
         return ""  # another cache format: never read, so never wrong (left for its own version)
     if meta.get("meta_sha256") != _meta_sha(meta):
         return "its fields differ from what was written (checksum mismatch: a changed byte)"
+    if meta.get("kind") == NORM_KIND:
+        return ""  # a kept norm has no arrays file
     try:
         data = Path(json_path).with_suffix(".npz").read_bytes()
     except OSError as e:
@@ -132,8 +142,8 @@ def check_entry(json_path: Path) -> str:
 
 
 def entries(root: Path | None = None) -> list[Path]:
-    """The JSON files of the cache's entries, processed problems and kept raw data (each
-    beside its ``.npz``)."""
+    """The JSON files of the cache's entries: processed problems and kept raw data (each
+    beside its ``.npz``) and kept norms (:func:`is_norm_file`, alone)."""
     root = root if root is not None else cache_dir()
     if root is None:
         return []
@@ -232,6 +242,63 @@ def write(key: str, problem: Problem, root: Path | None = None) -> Path | None:
     meta["meta_sha256"] = _meta_sha(meta)
     atomic_write_bytes(json_path, json.dumps(meta, sort_keys=True).encode(), durable=False)
     return json_path
+
+
+# ---------------------------------------------------------------- ||X_train||_2^2 of a problem
+
+NORM_KIND = "norm"
+
+
+def _norm_path(root: Path, key: str) -> Path:
+    return root / "problems" / f"{key[:32]}.norm.json"
+
+
+def is_norm_file(path: Path) -> bool:
+    """Whether a file of :func:`entries` is a kept norm (not a problem's entry)."""
+    return Path(path).name.endswith(".norm.json")
+
+
+def norm_versions() -> dict[str, str]:
+    """The versions of the libraries whose routines compute the norm (LAPACK through numpy,
+    ARPACK through SciPy)."""
+    import scipy
+
+    return {"numpy": np.__version__, "scipy": scipy.__version__}
+
+
+def read_norm(key: str, root: Path | None = None) -> float | None:
+    """The kept ``||X_train||_2^2`` of the problem ``key``, or None (none kept, changed since
+    it was written, or computed under other versions of numpy or SciPy)."""
+    root = root if root is not None else cache_dir()
+    if root is None:
+        return None
+    try:
+        meta = json.loads(_norm_path(root, key).read_text())
+    except (OSError, ValueError):
+        return None
+    if not isinstance(meta, dict) or meta.get("key") != key or meta.get("kind") != NORM_KIND \
+            or meta.get("format") != CACHE_FORMAT or meta.get("meta_sha256") != _meta_sha(meta) \
+            or meta.get("versions") != norm_versions():
+        return None
+    value = meta.get("train_norm2_sq")
+    if not isinstance(value, float) or not np.isfinite(value) or value < 0:
+        return None
+    return value
+
+
+def write_norm(key: str, value: float, root: Path | None = None) -> None:
+    """Keep ``||X_train||_2^2`` of the problem ``key`` (atomic); a cache that cannot be
+    written only costs the next process the computation."""
+    root = root if root is not None else cache_dir()
+    if root is None or not np.isfinite(value):
+        return
+    meta = {"key": key, "format": CACHE_FORMAT, "kind": NORM_KIND, "train_norm2_sq": float(value),
+            "versions": norm_versions()}  # concurrent writers of one key write the same bytes
+    meta["meta_sha256"] = _meta_sha(meta)
+    try:
+        atomic_write_bytes(_norm_path(root, key), json.dumps(meta, sort_keys=True).encode(), durable=False)
+    except OSError:
+        pass
 
 
 # ---------------------------------------------------------------- raw data of sources that allow it

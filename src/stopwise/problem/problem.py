@@ -147,6 +147,10 @@ class Problem:
     row_factors: dict[str, np.ndarray] = field(default_factory=dict, init=False, repr=False, compare=False)
     statistics: dict[tuple, Any] = field(default_factory=dict, init=False, repr=False, compare=False)
     dense_copies: dict[str, "Problem"] = field(default_factory=dict, init=False, repr=False, compare=False)
+    # Called as ``on_norm(value, seconds)`` once :attr:`train_norm2_sq` is computed (the data
+    # layer keeps a costly one in its on-disk cache, so another process reads it).
+    on_norm: list[Callable[[float, float], None]] = field(default_factory=list, init=False, repr=False,
+                                                          compare=False)
 
     def __post_init__(self) -> None:
         if self.task not in TASKS:
@@ -283,14 +287,22 @@ class Problem:
         (LAPACK ``syevd``; its relative error is a small multiple of the machine epsilon), or,
         when that matrix would have more than ``SPECTRUM_GRAM_MAX`` rows, of a full SVD (dense
         design) or of ``scipy.sparse.linalg.svds`` (sparse design, no dense copy).
-        Computed once per problem."""
+        Computed once per problem (and handed to :attr:`on_norm`)."""
+        import time
+
         X = self.X_train
         n, d = X.shape
         if n == 0 or d == 0 or _design.nnz(X) == 0:
             return 0.0
+        t0 = time.perf_counter()
         if min(n, d) > SPECTRUM_GRAM_MAX:  # a full SVD (dense) or ARPACK's top singular value (sparse)
-            return _design.sparse_norm2(X) ** 2 if self.sparse else float(np.linalg.norm(X, 2)) ** 2
-        return float(np.linalg.eigvalsh(self.gram_matrix("train") if n >= d else _design.gram(X, rows=True))[-1])
+            value = _design.sparse_norm2(X) ** 2 if self.sparse else float(np.linalg.norm(X, 2)) ** 2
+        else:
+            value = float(np.linalg.eigvalsh(self.gram_matrix("train") if n >= d else _design.gram(X, rows=True))[-1])
+        took = time.perf_counter() - t0
+        for call in self.on_norm:
+            call(value, took)
+        return value
 
     @cached_property
     def hard_margin(self):

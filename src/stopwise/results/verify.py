@@ -327,10 +327,11 @@ def _check_cache(rep: VerifyReport) -> None:
     from stopwise.data import cache
 
     for path in cache.entries():
-        rep.cached += 1
+        norm = cache.is_norm_file(path)
+        rep.cached += not norm  # a kept norm belongs to its problem's entry
         problem = cache.check_entry(path)
         if problem:
-            rep.bad.append(Finding(path, f"cached problem: {problem}"))
+            rep.bad.append(Finding(path, f"{'kept norm of a cached problem' if norm else 'cached problem'}: {problem}"))
 
 
 def verify_root(root: str | os.PathLike, quarantine: bool = False, now: float | None = None,
